@@ -1,0 +1,468 @@
+"""Typed settings, one registry for the node, the replay and the tuning command.
+
+Every setting is declared once in :data:`SPECS` with its type, default, unit, allowed range and a
+description. The ROS node declares its parameters from this table (with descriptors and ranges),
+the replay and tuning commands read the same ROS 2 parameter YAML through
+:func:`load_parameter_file`, and :func:`validate_value` refuses a bad value with its name, the
+value and the allowed range, whoever supplies it.
+
+Settings are flat, dotted names (``observer.gain``), as ROS 2 parameters are. The YAML file nests
+them (``observer: {gain: [...]}``) under ``interaction_estimator:`` or ``/**:`` and then
+``ros__parameters:``.
+"""
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterable, Mapping
+
+import yaml
+
+NODE_NAME = "interaction_estimator"
+STANDARD_GRAVITY = 9.80665  # m/s^2, CGPM 1901 (3rd General Conference on Weights and Measures)
+
+
+class SettingsError(ValueError):
+    """A setting has an unknown name or a value outside what is allowed."""
+
+
+@dataclass(frozen=True)
+class ParamSpec:
+    """One setting: dotted name, kind, default, unit, range and meaning.
+
+    kind is one of ``str``, ``float``, ``int``, ``bool``, ``float_array``, ``str_array``.
+    ``minimum``/``maximum`` bound numbers (and every element of a float array);
+    ``exclusive`` makes both bounds open. ``length`` fixes an array's length (None: any).
+    ``read_only``: cannot be changed while the node runs (it needs a restart or a new model).
+    """
+
+    name: str
+    kind: str
+    default: Any
+    unit: str
+    description: str
+    minimum: float | None = None
+    maximum: float | None = None
+    exclusive: bool = False
+    choices: tuple[str, ...] | None = None
+    length: int | None = None
+    read_only: bool = False
+
+    def range_text(self) -> str:
+        """Human-readable allowed values, used in error messages."""
+        if self.choices:
+            return "one of " + ", ".join(repr(c) for c in self.choices)
+        lo = "-inf" if self.minimum is None else f"{self.minimum:g}"
+        hi = "+inf" if self.maximum is None else f"{self.maximum:g}"
+        brackets = ("(", ")") if self.exclusive else ("[", "]")
+        base = {"bool": "true or false", "str": "a string", "str_array": "a list of strings"}.get(
+            self.kind, f"{brackets[0]}{lo}, {hi}{brackets[1]}"
+        )
+        if self.kind == "float_array":
+            count = f"{self.length} numbers" if self.length else "a list of numbers"
+            return f"{count}, each in {brackets[0]}{lo}, {hi}{brackets[1]}"
+        return base
+
+
+def _f(name, default, unit, description, lo=None, hi=None, exclusive=False, read_only=False):
+    return ParamSpec(name, "float", float(default), unit, description, lo, hi, exclusive,
+                     read_only=read_only)
+
+
+def _fa(name, default, unit, description, lo=None, hi=None, length=None, read_only=False):
+    return ParamSpec(name, "float_array", [float(x) for x in default], unit, description, lo, hi,
+                     length=length, read_only=read_only)
+
+
+def _s(name, default, description, choices=None, read_only=False):
+    return ParamSpec(name, "str", default, "", description, choices=choices, read_only=read_only)
+
+
+def _i(name, default, unit, description, lo=None, hi=None, read_only=False):
+    return ParamSpec(name, "int", int(default), unit, description, lo, hi, read_only=read_only)
+
+
+def _b(name, default, description, read_only=False):
+    return ParamSpec(name, "bool", bool(default), "", description, read_only=read_only)
+
+
+PER_JOINT = (
+    "Per joint, in the order of `joint_names` (or of the model's joints when that list is empty);"
+    " an empty list means zero for every joint, a single number applies to every joint."
+)
+
+SPECS: tuple[ParamSpec, ...] = (
+    # --- robot and contact ----------------------------------------------------------------
+    _s("contact_frame", "tool_tip",
+       "URDF link or frame where the robot touches the object.", read_only=True),
+    _s("effort_side", "link",
+       "Where efforts are measured: 'link' (joint torque sensors, no friction removed) or 'motor'"
+       " (efforts from motor currents: the friction model is subtracted).",
+       choices=("link", "motor")),
+    _f("gravity", STANDARD_GRAVITY, "m/s^2",
+       "Magnitude of gravity along -z of the world (URDF root) frame.", 0.0, 20.0,
+       read_only=True),
+    _s("robot_description_file", "",
+       "Path to a URDF file; empty: take the URDF from the robot_description topic.",
+       read_only=True),
+    ParamSpec("joint_names", "str_array", [], "",
+              "Order of the per-joint lists (bias, friction, observer gain); empty: the model's"
+              " joint order.", read_only=True),
+    # --- manipulation direction -----------------------------------------------------------
+    _s("direction.mode", "world",
+       "Manipulation direction: 'world' (fixed vector in the world frame), 'contact' (fixed in"
+       " the contact frame) or 'estimated' (from the contact point's motion).",
+       choices=("world", "contact", "estimated")),
+    _fa("direction.vector", [1.0, 0.0, 0.0], "",
+        "Manipulation direction for 'world' and 'contact' modes; normalized on load; zero is"
+        " refused.", length=3),
+    _f("direction.window", 0.5, "s",
+       "Window over which the direction is estimated from the contact point's motion.",
+       0.01, 60.0),
+    _f("direction.hysteresis", 10.0, "deg",
+       "The estimated direction changes only when the motion turns by more than this angle.",
+       0.0, 90.0),
+    _f("direction.min_travel", 0.01, "m",
+       "Travel within the window below which the estimated direction is kept as it is.",
+       0.0, 10.0),
+    # --- momentum observer ----------------------------------------------------------------
+    _fa("observer.gain", [40.0], "1/s",
+        "Momentum-observer gain K_O. " + PER_JOINT + " Higher: less lag (1/K_O s), more"
+        " noise (about K_O x inertia x velocity noise).", 0.1, 5000.0),
+    _f("observer.max_gap", 0.05, "s",
+       "A gap between samples longer than this restarts the observer.", 1e-4, 10.0),
+    # --- torque bias ----------------------------------------------------------------------
+    _fa("bias.initial", [], "N·m", "Torque-sensor bias to start from. " + PER_JOINT,
+        -1000.0, 1000.0),
+    _b("bias.learn", True, "Learn the bias while the robot moves freely (no contact)."),
+    _f("bias.time_constant", 0.2, "s", "Time constant of bias learning in free motion.",
+       1e-3, 3600.0),
+    _f("bias.max_rate", 20.0, "N·m/s", "Largest change of the bias estimate per second.",
+       0.0, 1e4),
+    _f("bias.limit", 10.0, "N·m", "Largest magnitude the bias estimate may take, per joint.",
+       0.0, 1e4),
+    _f("bias.startup", 1.0, "s",
+       "After start or reset the robot is taken to move freely for this long while the bias is"
+       " learned; contact is not detected meanwhile.", 0.0, 60.0),
+    # --- friction (motor-side efforts only) ------------------------------------------------
+    _fa("friction.viscous", [], "N·m·s/rad", "Viscous friction coefficient f_v. " + PER_JOINT,
+        0.0, 1e4),
+    _fa("friction.coulomb", [], "N·m", "Coulomb friction level f_c. " + PER_JOINT, 0.0, 1e4),
+    _f("friction.smoothing_velocity", 0.01, "rad/s",
+       "Velocity eps of the smooth sign tanh(v/eps) in the Coulomb term.", 1e-6, 10.0),
+    # --- contact monitor -------------------------------------------------------------------
+    _f("contact.enter_level", 6.0, "",
+       "Contact begins when the residual's RMS over joints, in units of its free-motion noise,"
+       " exceeds this level.", 1.0, 1e4),
+    _f("contact.exit_level", 3.0, "",
+       "Contact ends when that normalized residual falls below this level (hysteresis).",
+       0.5, 1e4),
+    _f("contact.hold_time", 0.02, "s",
+       "The level must be crossed for this long before the contact state changes.", 0.0, 10.0),
+    _f("contact.noise_floor", 0.05, "N·m",
+       "Smallest residual noise level assumed per joint.", 1e-6, 1e3),
+    _f("contact.noise_time_constant", 2.0, "s",
+       "Time constant over which the residual's free-motion noise level is learned.",
+       1e-3, 3600.0),
+    # --- wrench ----------------------------------------------------------------------------
+    _s("wrench.mode", "force",
+       "'force': 3-D force at a point contact; 'wrench': force and torque.",
+       choices=("force", "wrench")),
+    _f("wrench.damping", 1e-3, "m (force mode), 1 (wrench mode)",
+       "Damping lambda of the least-squares inverse (J J^T + lambda^2 I)^-1 J.", 0.0, 10.0),
+    _f("wrench.condition_limit", 200.0, "",
+       "Condition number of the contact Jacobian above which the wrench is flagged.",
+       1.0, 1e9),
+    # --- kinematics along the direction ---------------------------------------------------
+    _f("kinematics.window", 0.06, "s",
+       "Savitzky-Golay window of the acceleration differentiator; its lag is half of it.",
+       1e-3, 5.0),
+    _i("kinematics.polyorder", 2, "",
+       "Polynomial order of the Savitzky-Golay fit.", 1, 5),
+    # --- environment filter (adaptive Kalman filter) ---------------------------------------
+    _fa("filter.initial_mean", [0.0, 0.0, 0.0, 0.0], "kg, N·s/m, N/m, N",
+        "Prior of [mass, damping, stiffness, static_force].", -1e6, 1e6, length=4),
+    _fa("filter.initial_std", [20.0, 100.0, 1000.0, 100.0], "kg, N·s/m, N/m, N",
+        "Prior standard deviation of [mass, damping, stiffness, static_force].", 1e-9, 1e9,
+        length=4),
+    _fa("filter.process_std", [0.05, 0.5, 5.0, 0.5], "kg/√s, N·s/m/√s, N/m/√s, N/√s",
+        "Random-walk intensity of each parameter (how fast it may change).", 0.0, 1e6,
+        length=4),
+    _f("filter.measurement_std", 2.0, "N",
+       "Initial standard deviation of the force measurement along the direction.", 1e-6, 1e6),
+    _s("filter.noise_adaptation", "sage_husa",
+       "Measurement-noise adaptation: 'sage_husa' (fading-memory Sage-Husa), 'matching'"
+       " (innovation covariance matching over a window) or 'fixed'.",
+       choices=("sage_husa", "matching", "fixed")),
+    _f("filter.fading_factor", 0.998, "",
+       "Sage-Husa fading factor b in (0, 1); memory about 1/(1-b) samples.", 0.0, 1.0,
+       exclusive=True),
+    _i("filter.matching_window", 500, "samples",
+       "Window of the covariance-matching estimator.", 2, 1000000),
+    _s("filter.process_adaptation", "fixed",
+       "Process-noise adaptation: 'fixed' (from filter.process_std) or 'sage_husa'.",
+       choices=("fixed", "sage_husa")),
+    _f("filter.change_threshold", 25.0, "",
+       "CUSUM threshold on the normalized innovation squared above which a change is declared.",
+       0.0, 1e9, exclusive=True),
+    _f("filter.change_drift", 2.0, "",
+       "CUSUM drift subtracted from each NIS before accumulating (1 is the NIS mean).",
+       0.0, 1e6),
+    _f("filter.change_inflation", 100.0, "",
+       "Covariance is multiplied by this factor when a change is declared.", 1.0, 1e12),
+    _f("filter.excitation_window", 2.0, "s",
+       "Window (exponential forgetting time) of the excitation measure.", 1e-3, 3600.0),
+    _fa("filter.excitation_min", [0.05, 0.02, 0.005, 0.5], "m/s^2, m/s, m, 1",
+        "RMS of each regressor [x'', x', x, 1] over the window below which that parameter"
+        " counts as not excited.", 0.0, 1e9, length=4),
+    _fa("filter.converged_std", [0.2, 2.0, 20.0, 1.0], "kg, N·s/m, N/m, N",
+        "A parameter is converged when its standard deviation is below this value (or below"
+        " filter.converged_rel_std of its magnitude) and it is excited.", 0.0, 1e9, length=4),
+    _f("filter.converged_rel_std", 0.05, "",
+       "Relative standard deviation below which a parameter counts as converged.", 0.0, 10.0),
+    _b("filter.nonnegative", True, "Keep mass, damping and stiffness non-negative."),
+    # --- health ---------------------------------------------------------------------------
+    _f("health.max_latency", 0.01, "s",
+       "Processing latency above which the status warns.", 0.0, 10.0),
+    _f("health.min_rate", 100.0, "Hz",
+       "Input rate below which the status warns.", 0.0, 1e6),
+    _f("health.stale_after", 0.5, "s",
+       "Estimates older than this (no contact, no input) are STALE.", 0.0, 3600.0),
+    # --- node inputs and outputs (used by the node only) ------------------------------------
+    _b("input.separate_efforts", False,
+       "Take efforts from the joint_efforts topic, matched to joint_states by stamp.",
+       read_only=True),
+    _f("input.stamp_tolerance", 0.0005, "s",
+       "Largest stamp difference for matching an effort message to a joint state.", 0.0, 1.0),
+    _i("input.queue_depth", 200, "messages", "Subscription queue depth.", 1, 100000,
+       read_only=True),
+    _s("input.reliability", "best_effort", "Subscription reliability QoS.",
+       choices=("best_effort", "reliable"), read_only=True),
+    _f("input.expected_rate", 0.0, "Hz",
+       "Expected joint-state rate; 0: not checked.", 0.0, 1e6),
+    _f("output.status_rate", 50.0, "Hz",
+       "Rate of ~/status; 0: one per processed sample.", 0.0, 1e5),
+    _f("output.diagnostics_rate", 1.0, "Hz", "Rate of /diagnostics.", 0.01, 100.0),
+    _s("output.frame_id", "",
+       "frame_id of the published wrench; empty: the URDF root link (the world frame)."),
+)
+
+SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in SPECS}
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _check_bounds(spec: ParamSpec, x: float, where: str) -> None:
+    if not math.isfinite(x):
+        raise SettingsError(f"{where}: {x!r} is not finite; expected {spec.range_text()}")
+    lo, hi = spec.minimum, spec.maximum
+    if spec.exclusive:
+        bad = (lo is not None and x <= lo) or (hi is not None and x >= hi)
+    else:
+        bad = (lo is not None and x < lo) or (hi is not None and x > hi)
+    if bad:
+        unit = f" {spec.unit}" if spec.unit else ""
+        raise SettingsError(
+            f"{where}: {x!r}{unit} is out of range; expected {spec.range_text()}")
+
+
+def validate_value(name: str, value: Any) -> Any:
+    """Check one setting and return it normalized (floats as float, arrays as lists).
+
+    Raises SettingsError naming the setting, the bad value and what is expected.
+    """
+    spec = SPEC_BY_NAME.get(name)
+    if spec is None:
+        raise SettingsError(unknown_name_message(name))
+    kind = spec.kind
+    if kind == "str":
+        if not isinstance(value, str):
+            raise SettingsError(f"{name}: {value!r} is not a string; expected {spec.range_text()}")
+        if spec.choices and value not in spec.choices:
+            raise SettingsError(f"{name}: {value!r} is not allowed; expected {spec.range_text()}")
+        return value
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise SettingsError(f"{name}: {value!r} is not true or false")
+        return value
+    if kind == "int":
+        if not (isinstance(value, int) and not isinstance(value, bool)):
+            raise SettingsError(f"{name}: {value!r} is not a whole number; expected "
+                                f"{spec.range_text()}")
+        _check_bounds(spec, float(value), name)
+        return int(value)
+    if kind == "float":
+        if not _is_number(value):
+            raise SettingsError(f"{name}: {value!r} is not a number; expected {spec.range_text()}")
+        _check_bounds(spec, float(value), name)
+        return float(value)
+    if kind == "float_array":
+        if _is_number(value):
+            value = [value]
+        if not isinstance(value, (list, tuple)) or not all(_is_number(v) for v in value):
+            raise SettingsError(f"{name}: {value!r} is not a list of numbers; expected "
+                                f"{spec.range_text()}")
+        if spec.length is not None and len(value) != spec.length:
+            raise SettingsError(f"{name}: {list(value)!r} has {len(value)} numbers; expected "
+                                f"{spec.range_text()}")
+        for i, v in enumerate(value):
+            _check_bounds(spec, float(v), f"{name}[{i}]")
+        out = [float(v) for v in value]
+        if name == "direction.vector" and math.sqrt(sum(v * v for v in out)) < 1e-9:
+            raise SettingsError(f"{name}: {out!r} has zero length; expected a non-zero vector")
+        return out
+    if kind == "str_array":
+        if not isinstance(value, (list, tuple)) or not all(isinstance(v, str) for v in value):
+            raise SettingsError(f"{name}: {value!r} is not a list of strings")
+        return list(value)
+    raise AssertionError(f"unknown kind {kind}")  # a defect in SPECS, not user input
+
+
+def unknown_name_message(name: str) -> str:
+    close = difflib.get_close_matches(name, SPEC_BY_NAME, n=3)
+    hint = f"; did you mean {', '.join(close)}?" if close else ""
+    return f"unknown setting {name!r}{hint} (see config/default.yaml for the full list)"
+
+
+class Settings(Mapping[str, Any]):
+    """An immutable, validated set of all settings, read by dotted name: ``s["observer.gain"]``.
+
+    Cross-setting rules (exit level below enter level) are checked here too.
+    """
+
+    def __init__(self, values: Mapping[str, Any] | None = None):
+        merged = {s.name: _copy(s.default) for s in SPECS}
+        for name, value in (values or {}).items():
+            merged[name] = validate_value(name, value)
+        if merged["contact.exit_level"] >= merged["contact.enter_level"]:
+            raise SettingsError(
+                f"contact.exit_level: {merged['contact.exit_level']!r} must be below "
+                f"contact.enter_level ({merged['contact.enter_level']!r})")
+        self._values = merged
+
+    def __getitem__(self, name: str) -> Any:
+        try:
+            return _copy(self._values[name])
+        except KeyError:
+            raise SettingsError(unknown_name_message(name)) from None
+
+    def __iter__(self):
+        return iter(self._values)
+
+    def __len__(self) -> int:
+        return len(self._values)
+
+    def replace(self, changes: Mapping[str, Any]) -> "Settings":
+        """A new Settings with ``changes`` applied (each validated)."""
+        return Settings({**self._values, **changes})
+
+    def to_flat(self) -> dict[str, Any]:
+        return {k: _copy(v) for k, v in self._values.items()}
+
+    def __repr__(self) -> str:
+        changed = {k: v for k, v in self._values.items() if v != SPEC_BY_NAME[k].default}
+        return f"Settings({changed!r})"
+
+
+def _copy(value: Any) -> Any:
+    return list(value) if isinstance(value, list) else value
+
+
+def flatten(tree: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Nested YAML mapping -> dotted names, as ROS 2 does for parameter files."""
+    flat: dict[str, Any] = {}
+    for key, value in tree.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            flat.update(flatten(value, name + "."))
+        else:
+            flat[name] = value
+    return flat
+
+
+def nest(flat: Mapping[str, Any]) -> dict[str, Any]:
+    """Dotted names -> nested mapping (the inverse of :func:`flatten`)."""
+    tree: dict[str, Any] = {}
+    for name, value in flat.items():
+        node = tree
+        *parents, leaf = name.split(".")
+        for p in parents:
+            node = node.setdefault(p, {})
+        node[leaf] = value
+    return tree
+
+
+def parameters_from_yaml(text: str, source: str = "<text>",
+                         node_name: str = NODE_NAME) -> dict[str, Any]:
+    """Read the node's parameters from ROS 2 parameter-file text; flat, not yet validated.
+
+    Accepts the sections ``/**``, ``<node_name>``, ``/<node_name>`` and ``/<ns>/<node_name>``,
+    each holding ``ros__parameters``; later sections override earlier ones, as in ROS 2.
+    """
+    try:
+        doc = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        raise SettingsError(f"{source}: not valid YAML: {exc}") from None
+    if not isinstance(doc, Mapping):
+        raise SettingsError(f"{source}: expected a mapping with '{node_name}:' or '/**:' at the"
+                            f" top, found {type(doc).__name__}")
+    found: dict[str, Any] = {}
+    matched = False
+    for section, body in doc.items():
+        section = str(section)
+        if section not in ("/**", node_name) and section.rstrip("/").split("/")[-1] != node_name:
+            continue
+        if not isinstance(body, Mapping) or "ros__parameters" not in body:
+            raise SettingsError(f"{source}: section {section!r} has no 'ros__parameters:' mapping")
+        params = body["ros__parameters"] or {}
+        if not isinstance(params, Mapping):
+            raise SettingsError(f"{source}: {section}.ros__parameters must be a mapping")
+        found.update(flatten(params))
+        matched = True
+    if not matched:
+        raise SettingsError(f"{source}: no section for this node; expected a top-level"
+                            f" '{node_name}:' or '/**:' key, found {sorted(map(str, doc))}")
+    return found
+
+
+def load_parameter_file(path: str | Path, base: Settings | None = None) -> Settings:
+    """Load a ROS 2 parameter YAML into validated Settings (unknown keys are refused)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise SettingsError(f"parameter file {str(path)!r} cannot be read: {exc.strerror}") from None
+    flat = parameters_from_yaml(text, source=str(path))
+    try:
+        return (base or Settings()).replace(flat)
+    except SettingsError as exc:
+        raise SettingsError(f"{path}: {exc}") from None
+
+
+def per_joint(settings: Settings, name: str, model_joints: Iterable[str]) -> list[float]:
+    """Resolve a per-joint list setting to one value per model joint (model order).
+
+    Empty: zeros. One value: every joint. Otherwise one value per name of ``joint_names``
+    (or per model joint when ``joint_names`` is empty); joints not listed get zero.
+    """
+    joints = list(model_joints)
+    values = settings[name]
+    if not values:
+        return [0.0] * len(joints)
+    if len(values) == 1:
+        return [values[0]] * len(joints)
+    order = settings["joint_names"] or joints
+    if len(values) != len(order):
+        raise SettingsError(
+            f"{name}: {len(values)} values given; expected 1 or {len(order)} (one per joint of "
+            f"{'joint_names' if settings['joint_names'] else 'the model'}: {order})")
+    unknown = [j for j in order if j not in joints]
+    if unknown:
+        raise SettingsError(f"joint_names: {unknown} are not joints of the model; expected "
+                            f"names from {joints}")
+    by_name = dict(zip(order, values))
+    return [by_name.get(j, 0.0) for j in joints]
