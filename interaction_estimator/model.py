@@ -1,0 +1,171 @@
+"""RobotModel: URDF -> Pinocchio model, JointState-name mapping, dynamics terms per sample.
+
+The rigid-body terms of ``M(q) q'' + C(q, q') q' + g(q) = tau + tau_ext`` come from Pinocchio
+(Carpentier et al., "The Pinocchio C++ library", IEEE/SICE SII 2019): ``crba`` for M,
+``computeCoriolisMatrix`` for C, ``computeGeneralizedGravity`` for g and the contact frame's
+Jacobian in the world-aligned frame (``LOCAL_WORLD_ALIGNED``: linear rows are the contact point's
+velocity in world axes). Continuous joints take two configuration entries (cos, sin) in Pinocchio;
+JointState carries their angle, which :class:`JointMap` converts.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+
+from .samples import Sample, SampleRejected
+from .settings import STANDARD_GRAVITY
+
+
+class ModelError(ValueError):
+    """The URDF cannot be used: it does not parse, a frame is missing, a joint is unsupported."""
+
+
+@dataclass(frozen=True)
+class Dynamics:
+    """Dynamics terms at one sample (nv = number of velocity coordinates).
+
+    mass_matrix (nv, nv) kg·m² / kg; coriolis_transpose_velocity (nv,) C(q,q')^T q', N·m;
+    gravity (nv,) g(q), N·m; jacobian (6, nv) contact-frame Jacobian, world-aligned (rows
+    v_x, v_y, v_z, w_x, w_y, w_z); position (3,) contact point in the world frame, m;
+    rotation (3, 3) contact frame orientation in the world frame.
+    """
+
+    mass_matrix: np.ndarray
+    coriolis_transpose_velocity: np.ndarray
+    gravity: np.ndarray
+    jacobian: np.ndarray
+    position: np.ndarray
+    rotation: np.ndarray
+
+
+class JointMap:
+    """Maps one ordering of JointState names onto the model's configuration and velocity.
+
+    Names the model does not have (grippers, other robots) are ignored; every model joint must be
+    present. Built once per distinct name tuple and cached by :class:`RobotModel`.
+    """
+
+    def __init__(self, model: "RobotModel", names: tuple[str, ...]):
+        index = {}
+        for i, n in enumerate(names):
+            if n in index:
+                raise SampleRejected("unknown_joint", f"joint name {n!r} appears twice")
+            index[n] = i
+        missing = [j for j in model.joint_names if j not in index]
+        if missing:
+            raise SampleRejected(
+                "unknown_joint",
+                f"joint state lacks model joints {missing}; it has {list(names)}")
+        self.source = np.array([index[j] for j in model.joint_names], dtype=int)  # (nv,)
+        self._simple_q = model._simple_q
+        self._simple_v = model._simple_v
+        self._circle_q = model._circle_q
+        self._circle_v = model._circle_v
+        self._nq = model.nq
+
+    def apply(self, sample: Sample) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return (q (nq,), v (nv,), effort (nv,)) in model order."""
+        angle = sample.position[self.source]
+        q = np.empty(self._nq)
+        q[self._simple_q] = angle[self._simple_v]
+        if len(self._circle_q):
+            a = angle[self._circle_v]
+            q[self._circle_q] = np.cos(a)
+            q[self._circle_q + 1] = np.sin(a)
+        return q, sample.velocity[self.source], sample.effort[self.source]
+
+
+class RobotModel:
+    """A robot built from URDF text, with a contact frame and gravity along -z of the root.
+
+    joint_names: model joints in velocity order (nv of them). Raises ModelError for a URDF that
+    does not parse, a contact frame that does not exist, or an unsupported joint type.
+    """
+
+    def __init__(self, urdf: str, contact_frame: str, gravity: float = STANDARD_GRAVITY):
+        if not isinstance(urdf, str) or "<robot" not in urdf:
+            raise ModelError("robot description is not URDF text: no <robot> element found")
+        try:
+            self.model = pin.buildModelFromXML(urdf)
+        except Exception as exc:  # Pinocchio raises plain ValueError/RuntimeError with the parser text
+            raise ModelError(f"URDF does not parse: {str(exc).strip()}") from None
+        self.model.gravity.linear = np.array([0.0, 0.0, -gravity])
+        self.data = self.model.createData()
+        if not self.model.existFrame(contact_frame):
+            frames = sorted({f.name for f in self.model.frames} - {"universe"})
+            raise ModelError(f"contact frame {contact_frame!r} is not in the URDF; expected one of "
+                             f"{frames}")
+        self.contact_frame = contact_frame
+        self.frame_id = self.model.getFrameId(contact_frame)
+        self.root_frame = self.model.frames[1].name if len(self.model.frames) > 1 else "world"
+        self.nq, self.nv = self.model.nq, self.model.nv
+
+        names, simple_q, simple_v, circle_q, circle_v = [], [], [], [], []
+        for jid in range(1, self.model.njoints):
+            joint = self.model.joints[jid]
+            name = self.model.names[jid]
+            kind = joint.shortname()
+            if joint.nv != 1 or joint.nq not in (1, 2):
+                raise ModelError(f"joint {name!r} of type {kind} is not supported; expected "
+                                 "revolute, continuous, prismatic or fixed joints (write a mobile "
+                                 "base as prismatic and continuous joints)")
+            names.append(name)
+            if joint.nq == 1:
+                simple_q.append(joint.idx_q)
+                simple_v.append(joint.idx_v)
+            else:
+                circle_q.append(joint.idx_q)
+                circle_v.append(joint.idx_v)
+        self.joint_names: tuple[str, ...] = tuple(names)
+        self.continuous_joints = tuple(names[i] for i in circle_v)
+        self._simple_q, self._simple_v = np.array(simple_q, int), np.array(simple_v, int)
+        self._circle_q, self._circle_v = np.array(circle_q, int), np.array(circle_v, int)
+        self._maps: dict[tuple[str, ...], JointMap] = {}
+        # Older Pinocchio releases fill only the upper triangle of M in crba: check once.
+        probe = pin.crba(self.model, self.data, pin.neutral(self.model))
+        self._symmetrize = self.nv > 1 and not np.allclose(probe, probe.T)
+
+    @classmethod
+    def from_file(cls, path: str | Path, contact_frame: str,
+                  gravity: float = STANDARD_GRAVITY) -> "RobotModel":
+        try:
+            text = Path(path).read_text(encoding="utf-8")
+        except OSError as exc:
+            raise ModelError(f"URDF file {str(path)!r} cannot be read: {exc.strerror}") from None
+        return cls(text, contact_frame, gravity)
+
+    def joint_map(self, names: tuple[str, ...]) -> JointMap:
+        """The cached mapping for this name order (raises SampleRejected for missing joints)."""
+        m = self._maps.get(names)
+        if m is None:
+            m = JointMap(self, names)
+            if len(self._maps) > 64:  # bounded: a publisher changing order every message
+                self._maps.clear()
+            self._maps[names] = m
+        return m
+
+    def configuration_from_angles(self, angles: np.ndarray) -> np.ndarray:
+        """Model configuration q (nq,) from one angle/position per joint (nv,), model order."""
+        q = np.empty(self.nq)
+        q[self._simple_q] = angles[self._simple_v]
+        q[self._circle_q] = np.cos(angles[self._circle_v])
+        q[self._circle_q + 1] = np.sin(angles[self._circle_v])
+        return q
+
+    def dynamics(self, q: np.ndarray, v: np.ndarray) -> Dynamics:
+        """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
+        m, d = self.model, self.data
+        pin.computeJointJacobians(m, d, q)
+        pin.updateFramePlacement(m, d, self.frame_id)
+        mass = pin.crba(m, d, q)
+        if self._symmetrize:
+            mass = np.triu(mass) + np.triu(mass, 1).T
+        coriolis = pin.computeCoriolisMatrix(m, d, q, v)
+        gravity = pin.computeGeneralizedGravity(m, d, q)
+        jac = pin.getFrameJacobian(m, d, self.frame_id, pin.LOCAL_WORLD_ALIGNED)
+        pose = d.oMf[self.frame_id]
+        return Dynamics(mass.copy(), coriolis.T @ v, gravity.copy(), jac,
+                        pose.translation.copy(), pose.rotation.copy())

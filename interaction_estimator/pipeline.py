@@ -1,0 +1,316 @@
+"""Pipeline: Sample -> Estimate. The only place that composes the stages.
+
+validate -> RobotModel (Pinocchio) -> MomentumObserver (bias and friction removed) ->
+ContactMonitor -> WrenchMap -> Direction and AlongKinematics -> EnvironmentFilter -> Health.
+
+The ROS node and the replay command both feed :class:`Sample` records into :meth:`Pipeline.process`
+and turn the returned :class:`Estimate` into messages or file rows; for the same samples and
+settings they get the same numbers. Memory is bounded: no history grows with run length.
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass
+
+import numpy as np
+
+from .environment import EnvironmentFilter
+from .health import HealthInputs, Verdict, assess
+from .model import RobotModel
+from .observer import BiasEstimator, ContactMonitor, FrictionModel, MomentumObserver
+from .samples import RejectCounts, Sample, SampleRejected, SampleValidator
+from .settings import Settings, per_joint
+from .wrench import AlongKinematics, Direction, WrenchMap
+
+_KINEMATICS_WARMUP = 10  # samples used to learn the nominal sample interval before building AlongKinematics
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """Everything the pipeline knows after one sample. SI units; world frame = URDF root.
+
+    force (3,) N and torque (3,) N·m: what the robot applies to the environment at the contact
+    frame (torque zero in force mode). direction (3,): unit u. force_along N,
+    position_along m (from contact onset), velocity_along m/s, acceleration_along m/s^2 (at
+    ``kinematics_lag`` s before ``time``). parameters (4,) [kg, N·s/m, N/m, N] and their
+    standard deviations; per-parameter excited/converged flags; converged: all four converged.
+    external_torque (nv,) N·m, bias (nv,) N·m in model joint order.
+    """
+
+    time: float
+    force: np.ndarray
+    torque: np.ndarray
+    direction: np.ndarray
+    force_along: float
+    position_along: float
+    velocity_along: float
+    acceleration_along: float
+    parameters: np.ndarray
+    parameter_std: np.ndarray
+    excited: np.ndarray
+    parameter_converged: np.ndarray
+    converged: bool
+    in_contact: bool
+    phase: str
+    level: int
+    state: str
+    message: str
+    nis: float
+    nis_average: float
+    nis_bounds: tuple[float, float]
+    measurement_std: float
+    external_torque: np.ndarray
+    bias: np.ndarray
+    bias_age: float
+    contact_level: float
+    jacobian_condition: float
+    observer_restarts: int
+    rejected: int
+    rate_hz: float
+    kinematics_lag: float
+    event: str
+    stamp_from_receive: bool
+
+
+class Pipeline:
+    """The estimator. ``Pipeline(settings, urdf_text)``; then :meth:`process` per sample.
+
+    Raises ModelError (bad URDF, unknown contact frame) or SettingsError (per-joint lists that do
+    not fit the model) at construction.
+    """
+
+    def __init__(self, settings: Settings, urdf: str):
+        self.settings = settings
+        self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"])
+        self.validator = SampleValidator()
+        self.rejects = RejectCounts()
+        self._configure(settings)
+        self.filter = EnvironmentFilter(settings)
+        self.reset()
+
+    # --- configuration ---------------------------------------------------------------------
+    def _configure(self, s: Settings) -> None:
+        joints = self.model.joint_names
+        gain = np.array(per_joint(s, "observer.gain", joints))
+        if getattr(self, "observer", None) is None:
+            self.observer = MomentumObserver(gain, s["observer.max_gap"])
+        else:
+            self.observer.gain, self.observer.max_gap = gain, s["observer.max_gap"]
+        self.friction = FrictionModel(per_joint(s, "friction.viscous", joints),
+                                      per_joint(s, "friction.coulomb", joints),
+                                      s["friction.smoothing_velocity"],
+                                      s["effort_side"] == "motor")
+        bias = BiasEstimator(per_joint(s, "bias.initial", joints), s["bias.time_constant"],
+                             s["bias.max_rate"], s["bias.limit"], s["bias.learn"])
+        old_bias = getattr(self, "bias", None)
+        if old_bias is not None:  # keep what was learned
+            bias.value, bias.last_learned = old_bias.value, old_bias.last_learned
+        self.bias = bias
+        contact = ContactMonitor(self.model.nv, s["contact.enter_level"], s["contact.exit_level"],
+                                 s["contact.hold_time"], s["contact.noise_floor"],
+                                 s["contact.noise_time_constant"])
+        old_contact = getattr(self, "contact", None)
+        if old_contact is not None:
+            contact.noise_var = np.maximum(old_contact.noise_var, s["contact.noise_floor"] ** 2)
+            contact.in_contact = old_contact.in_contact
+        self.contact = contact
+        self.wrench_map = WrenchMap(s["wrench.mode"] == "wrench", s["wrench.damping"])
+        old_dir = getattr(self, "direction", None)
+        self.direction = Direction(s["direction.mode"], s["direction.vector"],
+                                   s["direction.window"], s["direction.hysteresis"],
+                                   s["direction.min_travel"])
+        if old_dir is not None and old_dir.mode == self.direction.mode == "estimated":
+            self.direction.u = old_dir.u
+        self._gain_mean = float(np.mean(gain))
+
+    def apply_settings(self, settings: Settings) -> None:
+        """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
+
+        Settings marked read-only in the registry (contact frame, gravity, URDF source, joint
+        order) need a new Pipeline; the node refuses to change them at runtime.
+        """
+        changed_kin = any(settings[k] != self.settings[k]
+                          for k in ("kinematics.window", "kinematics.polyorder"))
+        self._configure(settings)
+        self.filter.update_settings(settings)
+        self.settings = settings
+        if changed_kin:
+            self.kinematics = None
+            self._intervals.clear()
+
+    # --- commands --------------------------------------------------------------------------
+    def reset(self) -> None:
+        """Forget everything learned at run time: observer, bias (back to the file's), contact,
+        direction, object estimates. The startup bias-learning phase runs again."""
+        self.validator.reset()
+        self.observer.reset()
+        self.bias.reset()
+        self.contact.reset()
+        self.direction.reset()
+        self.filter.reset("reset")
+        self.kinematics: AlongKinematics | None = None
+        self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
+        self._t_prev: float | None = None
+        self._t_start: float | None = None
+        self._point_prev: np.ndarray | None = None
+        self._contact_end: float = math.inf
+        self._ever_contact = False
+        self._dt_avg = 0.0
+        self._reject_times: deque[float] = deque(maxlen=1000)
+        self._rejected_before = self.rejects.total
+        self._last_reject_total = self.rejects.total
+
+    def calibrate_bias(self) -> tuple[bool, str]:
+        """Start a bias-learning phase of ``bias.startup`` s now (the robot must move freely).
+
+        Returns (accepted, message); refused while in contact, since the contact force would be
+        learned as bias.
+        """
+        if self.contact.in_contact:
+            return False, ("refused: the robot is in contact; move it clear of the object and "
+                           "call again")
+        if self._t_prev is None:
+            return False, "refused: no joint states received yet"
+        self._t_start = self._t_prev
+        self._startup = max(self.settings["bias.startup"], 0.5)
+        return True, f"learning torque bias for {self._startup:.1f} s: keep the robot clear of contact"
+
+    # --- one sample ------------------------------------------------------------------------
+    def process(self, sample: Sample) -> Estimate | None:
+        """One sample in, one Estimate out; None when the sample is rejected (and counted)."""
+        try:
+            self.validator.check(sample)
+            q, v, effort = self.model.joint_map(sample.names).apply(sample)
+        except SampleRejected as exc:
+            self._reject(sample.time, exc)
+            return None
+        t = sample.time
+        if self._t_start is None:
+            self._t_start = t
+            self._startup = self.settings["bias.startup"]
+        dt = 0.0 if self._t_prev is None else t - self._t_prev
+
+        dyn = self.model.dynamics(q, v)
+        tau = effort - self.friction.torque(v)
+        raw, restarted = self.observer.step(t, dyn.mass_matrix @ v,
+                                            tau + dyn.coriolis_transpose_velocity - dyn.gravity)
+        residual = raw + self.bias.value
+
+        elapsed = t - self._t_start
+        event = "observer_restarted" if restarted else ""
+        if elapsed < self._startup:
+            phase = "learning_bias"
+            self.bias.update(t, dt, raw)
+            if elapsed > 0.5 * self._startup:
+                self.contact.learn_noise(dt * 4.0 * self.settings["contact.noise_time_constant"]
+                                         / max(self._startup, 1e-3), raw + self.bias.value)
+            contact_level = 0.0
+        else:
+            state = self.contact.step(t, residual)
+            contact_level = state.level
+            if state.event:
+                event = state.event
+            if state.in_contact:
+                phase = "contact"
+            else:
+                phase = "free"
+                self.bias.update(t, dt, raw)
+                residual = raw + self.bias.value
+                self.contact.learn_noise(dt, residual)
+
+        wrench = self.wrench_map.solve(dyn.jacobian, residual)
+        if not (np.all(np.isfinite(wrench.force)) and np.all(np.isfinite(wrench.torque))):
+            self.observer.reset()
+            self._reject(t, SampleRejected("non_finite_output",
+                                           "the wrench came out non-finite; observer restarted"))
+            return None
+
+        point_velocity = dyn.jacobian[:3] @ v
+        u = self.direction.update(dt, dyn.rotation, point_velocity)
+        force_along = float(u @ wrench.force)
+        dx = 0.0 if self._point_prev is None else float(u @ (dyn.position - self._point_prev))
+        self._point_prev = dyn.position
+        velocity_along = float(u @ point_velocity)
+
+        kin = self._kinematics(dt)
+        step = self.filter.last
+        if kin is not None:
+            if event == "contact_begin":
+                kin.start_contact()
+                dx = 0.0
+                if self._ever_contact or (step is not None and step.samples > 0):
+                    self.filter.inflate("contact regained")
+                self._ever_contact = True
+            kin.push(t, dx, velocity_along, force_along)
+            if phase == "contact":
+                row = kin.aligned_row(dt)
+                if row is not None:
+                    h, f, t_centre = row
+                    try:
+                        step = self.filter.update(t_centre, h, f)
+                    except SampleRejected as exc:
+                        self._reject(t, exc)
+                        return None
+                    if step.change:
+                        event = f"change: {step.change}"
+        if event == "contact_end":
+            self._contact_end = t
+
+        self._t_prev = t
+        if dt > 0:
+            self._dt_avg = dt if self._dt_avg == 0 else self._dt_avg + 0.01 * (dt - self._dt_avg)
+        rate = 1.0 / self._dt_avg if self._dt_avg > 0 else 0.0
+        while self._reject_times and self._reject_times[0] < t - 1.0:
+            self._reject_times.popleft()
+
+        s = self.settings
+        if step is None:
+            theta, std = np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"])
+            excited = converged = np.zeros(4, bool)
+            nis = nis_avg = 0.0
+            bounds, meas_std, samples = (0.0, math.inf), s["filter.measurement_std"], 0
+        else:
+            theta, std = step.theta, step.std
+            excited, converged = step.excited, step.converged
+            nis, nis_avg, bounds = step.nis, step.nis_average, step.nis_bounds
+            meas_std, samples = math.sqrt(step.measurement_var), step.samples
+        if phase != "contact":
+            converged = np.zeros(4, bool)
+        verdict: Verdict = assess(HealthInputs(
+            time=t, phase=phase, startup_remaining=max(self._startup - elapsed, 0.0),
+            since_contact_end=t - self._contact_end, excited=excited, converged=converged,
+            nis_average=nis_avg, nis_bounds=bounds, filter_samples=samples,
+            jacobian_condition=wrench.condition, condition_limit=s["wrench.condition_limit"],
+            recent_rejects=len(self._reject_times), rate_hz=rate, min_rate_hz=s["health.min_rate"],
+            stale_after=s["health.stale_after"], stamp_from_receive=sample.stamp_from_receive))
+        return Estimate(
+            time=t, force=wrench.force, torque=wrench.torque, direction=u.copy(),
+            force_along=force_along, position_along=0.0 if kin is None else kin.position,
+            velocity_along=velocity_along,
+            acceleration_along=0.0 if kin is None else kin.acceleration(),
+            parameters=theta, parameter_std=std, excited=excited, parameter_converged=converged,
+            converged=bool(np.all(converged)), in_contact=phase == "contact", phase=phase,
+            level=verdict.level, state=verdict.state, message=verdict.message, nis=nis,
+            nis_average=nis_avg, nis_bounds=bounds, measurement_std=meas_std,
+            external_torque=residual, bias=self.bias.value.copy(), bias_age=self.bias.age(t),
+            contact_level=contact_level, jacobian_condition=wrench.condition,
+            observer_restarts=self.observer.restarts, rejected=self.rejects.total, rate_hz=rate,
+            kinematics_lag=0.0 if kin is None else kin.lag, event=event,
+            stamp_from_receive=sample.stamp_from_receive)
+
+    # --- helpers ---------------------------------------------------------------------------
+    def _reject(self, t: float, exc: SampleRejected) -> None:
+        self.rejects.add(exc)
+        self._reject_times.append(t)
+
+    def _kinematics(self, dt: float) -> AlongKinematics | None:
+        if self.kinematics is None:
+            if dt > 0:
+                self._intervals.append(dt)
+            if len(self._intervals) < _KINEMATICS_WARMUP:
+                return None
+            s = self.settings
+            self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
+                                              float(np.median(self._intervals)), self._gain_mean)
+        return self.kinematics

@@ -1,0 +1,65 @@
+"""Settings registry and the ROS 2 parameter-file format."""
+import pytest
+
+from interaction_estimator.settings import (SPECS, Settings, SettingsError, load_parameter_file,
+                                            parameters_from_yaml, per_joint)
+
+
+def test_defaults_validate_and_every_spec_has_unit_or_text():
+    s = Settings()
+    assert len(s) == len(SPECS)
+    for spec in SPECS:
+        assert spec.description.strip(), spec.name
+
+
+@pytest.mark.parametrize("name,value,expected", [
+    ("filter.fading_factor", 1.0, r"filter.fading_factor: 1.0 is out of range; expected \(0, 1\)"),
+    ("filter.initial_std", [1, 2, -3, 4], r"filter.initial_std\[2\]: -3.0 kg, N·s/m, N/m, N is out"),
+    ("direction.vector", [0, 0, 0], "has zero length"),
+    ("direction.mode", "sideways", "expected one of 'world', 'contact', 'estimated'"),
+    ("observer.gain", "fast", "not a list of numbers"),
+    ("contact_framee", "x", "unknown setting 'contact_framee'; did you mean contact_frame"),
+])
+def test_bad_values_are_refused_with_name_value_and_range(name, value, expected):
+    with pytest.raises(SettingsError, match=expected):
+        Settings({name: value})
+
+
+def test_yaml_sections_and_nesting(tmp_path):
+    text = """
+/**:
+  ros__parameters:
+    contact_frame: gripper_pad
+    observer:
+      gain: [30.0]
+interaction_estimator:
+  ros__parameters:
+    observer:
+      gain: [45.0, 50.0]
+    filter:
+      measurement_std: 1.5
+"""
+    flat = parameters_from_yaml(text)
+    assert flat == {"contact_frame": "gripper_pad", "observer.gain": [45.0, 50.0],
+                    "filter.measurement_std": 1.5}
+    path = tmp_path / "p.yaml"
+    path.write_text(text.replace("measurement_std: 1.5", "measurement_stdev: 1.5"))
+    with pytest.raises(SettingsError, match="p.yaml: unknown setting 'filter.measurement_stdev'"):
+        load_parameter_file(path)
+    with pytest.raises(SettingsError, match="no section for this node"):
+        parameters_from_yaml("other_node:\n  ros__parameters: {}\n")
+
+
+def test_per_joint_lists():
+    s = Settings({"bias.initial": [0.5]})
+    assert per_joint(s, "bias.initial", ["a", "b"]) == [0.5, 0.5]
+    s = Settings({"joint_names": ["b", "a"], "bias.initial": [1.0, 2.0]})
+    assert per_joint(s, "bias.initial", ["a", "b", "c"]) == [2.0, 1.0, 0.0]
+    with pytest.raises(SettingsError, match="3 values given; expected 1 or 2"):
+        per_joint(Settings({"joint_names": ["b", "a"], "bias.initial": [1, 2, 3]}),
+                  "bias.initial", ["a", "b"])
+
+
+def test_exit_level_must_be_below_enter_level():
+    with pytest.raises(SettingsError, match="contact.exit_level: 7.0 must be below"):
+        Settings({"contact.exit_level": 7.0})

@@ -1,0 +1,66 @@
+"""WrenchMap and Projection against numpy/scipy references."""
+import numpy as np
+import pytest
+from scipy.signal import savgol_filter
+
+from interaction_estimator.wrench import AlongKinematics, Direction, WrenchMap
+
+
+def test_force_is_least_squares_solution_with_robot_sign():
+    # tau_ext = J^T F_ext; without damping the map equals numpy's least-squares solution of
+    # J^T F = tau (numpy.linalg.lstsq). The robot applies F = -F_ext.
+    rng = np.random.default_rng(1)
+    jac = rng.normal(size=(6, 7))
+    f_ext = np.array([3.0, -12.0, 5.5])
+    tau = jac[:3].T @ f_ext
+    w = WrenchMap(full_wrench=False, damping=0.0).solve(jac, tau)
+    ref = np.linalg.lstsq(jac[:3].T, tau, rcond=None)[0]
+    np.testing.assert_allclose(w.force, -ref, atol=1e-10)
+    np.testing.assert_allclose(w.force, -f_ext, atol=1e-10)
+    assert w.condition == pytest.approx(np.linalg.cond(jac[:3]), rel=1e-9)
+
+
+def test_full_wrench_and_damping_match_closed_form():
+    rng = np.random.default_rng(2)
+    jac = rng.normal(size=(6, 9))
+    wrench = rng.normal(size=6)
+    tau = jac.T @ wrench
+    lam = 0.05
+    w = WrenchMap(full_wrench=True, damping=lam).solve(jac, tau)
+    # damped least squares, closed form (J J^T + lambda^2 I)^-1 J tau (Nakamura and Hanafusa 1986)
+    ref = np.linalg.solve(jac @ jac.T + lam**2 * np.eye(6), jac @ tau)
+    np.testing.assert_allclose(np.concatenate([w.force, w.torque]), -ref, atol=1e-10)
+
+
+def test_savitzky_golay_acceleration_matches_scipy():
+    dt = 1e-3
+    kin = AlongKinematics(window=0.031, polyorder=2, nominal_dt=dt, observer_gain=50.0)
+    t = np.arange(200) * dt
+    vel = 0.2 * np.sin(3.0 * t) + 0.05 * t
+    for ti, vi in zip(t, vel):
+        kin.push(ti, vi * dt, vi, 0.0)
+    # scipy.signal.savgol_filter, same window and order, first derivative, at the window centre
+    ref = savgol_filter(vel, kin.n, 2, deriv=1, delta=dt, mode="interp")[-1 - kin.half]
+    assert kin.acceleration() == pytest.approx(ref, rel=1e-9)
+    assert kin.acceleration() == pytest.approx(0.6 * np.cos(3.0 * t[-1 - kin.half]) + 0.05,
+                                               rel=2e-3)  # the analytic derivative
+    assert kin.lag == pytest.approx(kin.half * dt)
+
+
+def test_estimated_direction_follows_motion_with_hysteresis():
+    d = Direction("estimated", [1, 0, 0], window=0.2, hysteresis_deg=10.0, min_travel=0.005)
+    line = np.array([0.0, 0.6, -0.8])
+    for _ in range(300):
+        u = d.update(1e-3, np.eye(3), 0.1 * line)
+    np.testing.assert_allclose(u, line, atol=1e-9)
+    for _ in range(300):  # a 5 degree turn stays inside the hysteresis band
+        tilt = np.array([0.0, 0.6 * np.cos(0.087) + 0.8 * np.sin(0.087),
+                         -0.8 * np.cos(0.087) + 0.6 * np.sin(0.087)])
+        u = d.update(1e-3, np.eye(3), 0.1 * tilt)
+    np.testing.assert_allclose(u, line, atol=1e-9)
+
+
+def test_contact_frame_direction_rotates_with_frame():
+    d = Direction("contact", [0, 0, 2.0], 1.0, 10.0, 0.01)
+    rot = np.array([[1, 0, 0], [0, 0, -1], [0, 1, 0]], float)  # 90 deg about x
+    np.testing.assert_allclose(d.update(1e-3, rot, np.zeros(3)), [0, -1, 0], atol=1e-12)
