@@ -15,7 +15,7 @@ LEVEL_NAMES = {OK: "OK", WARN: "WARN", ERROR: "ERROR", STALE: "STALE"}
 PARAMETERS = ("mass", "damping", "stiffness", "static_force")
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class HealthInputs:
     """What the stages report for one sample (units in names)."""
 
@@ -76,7 +76,7 @@ def assess(h: HealthInputs) -> Verdict:
     if h.filter_samples > 0 and not (lo <= h.nis_average <= hi):
         warnings.append(f"innovations inconsistent (NIS {h.nis_average:.2f} outside "
                         f"[{lo:.2f}, {hi:.2f}])")
-    if bool(np.all(h.converged)):
+    if h.converged.all():
         state, msg = "converged", "in contact, all four parameters converged"
     else:
         state = "in_contact"

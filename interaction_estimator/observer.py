@@ -18,6 +18,7 @@ velocity noise straight through), effort noise as about ``sigma_tau * sqrt(K_O d
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -142,6 +143,11 @@ class ContactMonitor:
         self._pending_since: float | None = None
 
     @property
+    def pending(self) -> bool:
+        """True while a level crossing waits out hold_time (a state change may be coming)."""
+        return self._pending_since is not None
+
+    @property
     def noise_std(self) -> np.ndarray:
         return np.sqrt(self.noise_var)
 
@@ -151,7 +157,7 @@ class ContactMonitor:
         np.maximum(self.noise_var, self.noise_floor**2, out=self.noise_var)
 
     def step(self, t: float, residual: np.ndarray) -> ContactState:
-        level = float(np.sqrt(np.mean(residual * residual / self.noise_var)))
+        level = math.sqrt(float(residual @ (residual / self.noise_var)) / self.nv)
         crossing = level < self.exit_level if self.in_contact else level > self.enter_level
         event = ""
         if crossing:

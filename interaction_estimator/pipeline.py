@@ -26,7 +26,7 @@ from .wrench import AlongKinematics, Direction, WrenchMap
 _KINEMATICS_WARMUP = 10  # samples used to learn the nominal sample interval before building AlongKinematics
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Estimate:
     """Everything the pipeline knows after one sample. SI units; world frame = URDF root.
 
@@ -123,6 +123,13 @@ class Pipeline:
         if old_dir is not None and old_dir.mode == self.direction.mode == "estimated":
             self.direction.u = old_dir.u
         self._gain_mean = float(np.mean(gain))
+        # values read on every sample, looked up once here
+        self._noise_tc = s["contact.noise_time_constant"]
+        self._condition_limit = s["wrench.condition_limit"]
+        self._min_rate = s["health.min_rate"]
+        self._stale_after = s["health.stale_after"]
+        self._prior = (np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"]),
+                       s["filter.measurement_std"])
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -202,9 +209,9 @@ class Pipeline:
         if elapsed < self._startup:
             phase = "learning_bias"
             self.bias.update(t, dt, raw)
-            if elapsed > 0.5 * self._startup:
-                self.contact.learn_noise(dt * 4.0 * self.settings["contact.noise_time_constant"]
-                                         / max(self._startup, 1e-3), raw + self.bias.value)
+            if elapsed > 0.5 * self._startup:  # learn the noise 4x faster than in free motion
+                self.contact.learn_noise(dt * 4.0 * self._noise_tc / max(self._startup, 1e-3),
+                                         raw + self.bias.value)
             contact_level = 0.0
         else:
             state = self.contact.step(t, residual)
@@ -215,12 +222,13 @@ class Pipeline:
                 phase = "contact"
             else:
                 phase = "free"
-                self.bias.update(t, dt, raw)
-                residual = raw + self.bias.value
-                self.contact.learn_noise(dt, residual)
+                if not self.contact.pending:  # a contact may be starting: learn nothing from it
+                    self.bias.update(t, dt, raw)
+                    residual = raw + self.bias.value
+                    self.contact.learn_noise(dt, residual)
 
         wrench = self.wrench_map.solve(dyn.jacobian, residual)
-        if not (np.all(np.isfinite(wrench.force)) and np.all(np.isfinite(wrench.torque))):
+        if not math.isfinite(wrench.force.sum() + wrench.torque.sum()):
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))
@@ -264,12 +272,11 @@ class Pipeline:
         while self._reject_times and self._reject_times[0] < t - 1.0:
             self._reject_times.popleft()
 
-        s = self.settings
         if step is None:
-            theta, std = np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"])
+            theta, std, meas_std = self._prior
             excited = converged = np.zeros(4, bool)
             nis = nis_avg = 0.0
-            bounds, meas_std, samples = (0.0, math.inf), s["filter.measurement_std"], 0
+            bounds, samples = (0.0, math.inf), 0
         else:
             theta, std = step.theta, step.std
             excited, converged = step.excited, step.converged
@@ -281,16 +288,16 @@ class Pipeline:
             time=t, phase=phase, startup_remaining=max(self._startup - elapsed, 0.0),
             since_contact_end=t - self._contact_end, excited=excited, converged=converged,
             nis_average=nis_avg, nis_bounds=bounds, filter_samples=samples,
-            jacobian_condition=wrench.condition, condition_limit=s["wrench.condition_limit"],
-            recent_rejects=len(self._reject_times), rate_hz=rate, min_rate_hz=s["health.min_rate"],
-            stale_after=s["health.stale_after"], stamp_from_receive=sample.stamp_from_receive))
+            jacobian_condition=wrench.condition, condition_limit=self._condition_limit,
+            recent_rejects=len(self._reject_times), rate_hz=rate, min_rate_hz=self._min_rate,
+            stale_after=self._stale_after, stamp_from_receive=sample.stamp_from_receive))
         return Estimate(
             time=t, force=wrench.force, torque=wrench.torque, direction=u.copy(),
             force_along=force_along, position_along=0.0 if kin is None else kin.position,
             velocity_along=velocity_along,
             acceleration_along=0.0 if kin is None else kin.acceleration(),
             parameters=theta, parameter_std=std, excited=excited, parameter_converged=converged,
-            converged=bool(np.all(converged)), in_contact=phase == "contact", phase=phase,
+            converged=bool(converged.all()), in_contact=phase == "contact", phase=phase,
             level=verdict.level, state=verdict.state, message=verdict.message, nis=nis,
             nis_average=nis_avg, nis_bounds=bounds, measurement_std=meas_std,
             external_torque=residual, bias=self.bias.value.copy(), bias_age=self.bias.age(t),

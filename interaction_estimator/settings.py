@@ -183,27 +183,38 @@ SPECS: tuple[ParamSpec, ...] = (
        "Polynomial order of the Savitzky-Golay fit.", 1, 5),
     # --- environment filter (adaptive Kalman filter) ---------------------------------------
     _fa("filter.initial_mean", [0.0, 0.0, 0.0, 0.0], "kg, N·s/m, N/m, N",
-        "Prior of [mass, damping, stiffness, static_force].", -1e6, 1e6, length=4),
+        "Prior of [mass, damping, stiffness, static_force]. With filter.nonnegative the first"
+        " three must not be negative.", -1e6, 1e6, length=4),
     _fa("filter.initial_std", [20.0, 100.0, 1000.0, 100.0], "kg, N·s/m, N/m, N",
-        "Prior standard deviation of [mass, damping, stiffness, static_force].", 1e-9, 1e9,
-        length=4),
+        "Prior standard deviation of [mass, damping, stiffness, static_force]; a parameter the"
+        " motion does not excite keeps this prior.", 1e-9, 1e9, length=4),
     _fa("filter.process_std", [0.05, 0.5, 5.0, 0.5], "kg/√s, N·s/m/√s, N/m/√s, N/√s",
-        "Random-walk intensity of each parameter (how fast it may change).", 0.0, 1e6,
-        length=4),
+        "Random-walk intensity of each parameter (how fast it may change): the process noise"
+        " over dt seconds is diag(process_std^2) * dt. Start value when filter.process_adaptation"
+        " is 'sage_husa'.", 0.0, 1e6, length=4),
     _f("filter.measurement_std", 2.0, "N",
-       "Initial standard deviation of the force measurement along the direction.", 1e-6, 1e6),
+       "Standard deviation of the force measurement along the direction: fixed value, or start"
+       " value of the adaptation.", 1e-6, 1e6),
+    _f("filter.measurement_std_floor", 0.01, "N",
+       "The adapted measurement standard deviation is never taken below this value.",
+       1e-6, 1e6),
     _s("filter.noise_adaptation", "sage_husa",
        "Measurement-noise adaptation: 'sage_husa' (fading-memory Sage-Husa), 'matching'"
-       " (innovation covariance matching over a window) or 'fixed'.",
+       " (covariance matching over filter.matching_window samples) or 'fixed'. Both adaptive"
+       " forms use the post-fit residual, which keeps the estimate positive.",
        choices=("sage_husa", "matching", "fixed")),
     _f("filter.fading_factor", 0.998, "",
        "Sage-Husa fading factor b in (0, 1); memory about 1/(1-b) samples.", 0.0, 1.0,
        exclusive=True),
     _i("filter.matching_window", 500, "samples",
-       "Window of the covariance-matching estimator.", 2, 1000000),
+       "Window of the covariance-matching estimator.", 2, 100000),
     _s("filter.process_adaptation", "fixed",
-       "Process-noise adaptation: 'fixed' (from filter.process_std) or 'sage_husa'.",
+       "Process-noise adaptation: 'fixed' (from filter.process_std) or 'sage_husa' (diagonal"
+       " Sage-Husa estimate with fading factor filter.fading_factor, floored at zero).",
        choices=("fixed", "sage_husa")),
+    _i("filter.nis_window", 1000, "samples",
+       "Window over which the normalized innovation squared (NIS) is averaged and compared"
+       " with its two-sided 95 % chi-square interval.", 1, 100000),
     _f("filter.change_threshold", 25.0, "",
        "CUSUM threshold on the normalized innovation squared above which a change is declared.",
        0.0, 1e9, exclusive=True),
@@ -211,12 +222,14 @@ SPECS: tuple[ParamSpec, ...] = (
        "CUSUM drift subtracted from each NIS before accumulating (1 is the NIS mean).",
        0.0, 1e6),
     _f("filter.change_inflation", 100.0, "",
-       "Covariance is multiplied by this factor when a change is declared.", 1.0, 1e12),
+       "Covariance is multiplied by this factor when a change is declared (or the contact"
+       " starts again); no variance is taken beyond its prior.", 1.0, 1e12),
     _f("filter.excitation_window", 2.0, "s",
        "Window (exponential forgetting time) of the excitation measure.", 1e-3, 3600.0),
     _fa("filter.excitation_min", [0.05, 0.02, 0.005, 0.5], "m/s^2, m/s, m, 1",
         "RMS of each regressor [x'', x', x, 1] over the window below which that parameter"
-        " counts as not excited.", 0.0, 1e9, length=4),
+        " counts as not excited: it is then not updated and keeps its prior.", 0.0, 1e9,
+        length=4),
     _fa("filter.converged_std", [0.2, 2.0, 20.0, 1.0], "kg, N·s/m, N/m, N",
         "A parameter is converged when its standard deviation is below this value (or below"
         " filter.converged_rel_std of its magnitude) and it is excited.", 0.0, 1e9, length=4),
