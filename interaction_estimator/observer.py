@@ -39,8 +39,9 @@ class MomentumObserver:
         self._p: np.ndarray | None = None
         self._beta: np.ndarray | None = None
 
-    def step(self, t: float, momentum: np.ndarray, beta: np.ndarray) -> tuple[np.ndarray, bool]:
-        """Advance to time t (s).
+    def step(self, t: float, momentum: np.ndarray, beta: np.ndarray,
+             mass_matrix: np.ndarray | None = None) -> tuple[np.ndarray, bool]:
+        """Advance to time t (s); ``mass_matrix`` is unused (same call as the Kalman form).
 
         momentum: p = M q' (nv,), N·m·s. beta: tau + C^T q' - g (nv,), N·m, the known part of p'.
         Returns (residual r (nv,) N·m, restarted). After a gap longer than max_gap the observer
@@ -58,6 +59,85 @@ class MomentumObserver:
                 self.residual = a * self.residual + (1.0 - a) * mean_ext
         self._t, self._p, self._beta = t, momentum, beta
         return self.residual, restarted
+
+
+class KalmanMomentumObserver:
+    """Kalman-filter form of the momentum observer, with a disturbance model (one filter per joint).
+
+    State per joint i: momentum p_i, external torque d_i and its rate e_i, with
+    ``p' = beta + d``, ``d' = e``, ``e' = w`` (w white: the external torque as a doubly
+    integrated random walk, the disturbance-observer form of Haddadin, De Luca and
+    Albu-Schaeffer, IEEE T-RO 2017, Sec. on Kalman-based observers; state-augmentation for an
+    unknown input as in Bar-Shalom, Li and Kirubarajan 2001, ch. 6). The measurement is the
+    momentum ``M(q) q'`` from the measured velocity, noise variance
+    ``R_i = sigma_v^2 sum_j M_ij^2`` (velocity noise through the mass matrix); effort noise
+    ``sigma_tau`` enters p as process noise. The transition matrix and the process covariance are
+    the closed forms for the actual interval dt, so irregular stamps are handled exactly.
+
+    ``bandwidth`` w (rad/s) sets the jerk intensity to ``q_i = R_i dt w^6``, which places the
+    steady-state poles near w (a third-order Butterworth-like pattern): the estimate follows
+    changes of tau_ext up to about w/(2 pi) Hz with no lag for ramps, and velocity noise is rolled
+    off above w, much more than in the first-order form (whose noise gain stays K_O at high
+    frequency).
+    """
+
+    def __init__(self, bandwidth: np.ndarray, velocity_noise: float, effort_noise: float,
+                 max_gap: float):
+        self.gain = np.asarray(bandwidth, dtype=float)
+        self.velocity_noise, self.effort_noise = float(velocity_noise), float(effort_noise)
+        self.max_gap = float(max_gap)
+        self.restarts = 0
+        self.reset()
+
+    def reset(self) -> None:
+        n = len(self.gain)
+        self.residual = np.zeros(n)
+        self._t: float | None = None
+        self._x = np.zeros((n, 3))
+        self._P = np.zeros((n, 3, 3))
+        self._beta = np.zeros(n)
+
+    def _start(self, t: float, momentum: np.ndarray, beta: np.ndarray, r_var: np.ndarray) -> None:
+        self._x[:, 0] = momentum
+        self._x[:, 1] = self.residual       # warm start after a gap
+        self._x[:, 2] = 0.0
+        self._P[:] = 0.0
+        self._P[:, 0, 0] = r_var
+        scale = np.maximum(np.abs(self.residual), 10.0)
+        self._P[:, 1, 1] = scale**2                    # (N·m)^2: tau_ext unknown at start
+        self._P[:, 2, 2] = (scale * self.gain) ** 2    # (N·m/s)^2
+        self._t, self._beta = t, beta
+
+    def step(self, t: float, momentum: np.ndarray, beta: np.ndarray,
+             mass_matrix: np.ndarray) -> tuple[np.ndarray, bool]:
+        """Advance to t (s); momentum p (nv,), beta = tau + C^T q' - g (nv,) N·m,
+        mass_matrix (nv, nv). Returns (external torque estimate (nv,) N·m, restarted)."""
+        r_var = self.velocity_noise**2 * np.einsum("ij,ij->i", mass_matrix, mass_matrix) + 1e-12
+        if self._t is None:
+            self._start(t, momentum, beta, r_var)
+            return self.residual, False
+        dt = t - self._t
+        if dt > self.max_gap or dt <= 0.0:
+            self.restarts += 1
+            self._start(t, momentum, beta, r_var)
+            return self.residual, True
+        x, P = self._x, self._P
+        x[:, 0] += dt * (x[:, 1] + 0.5 * (beta + self._beta)) + 0.5 * dt * dt * x[:, 2]
+        x[:, 1] += dt * x[:, 2]
+        F = np.array([[1.0, dt, 0.5 * dt * dt], [0.0, 1.0, dt], [0.0, 0.0, 1.0]])
+        dt2, dt3 = dt * dt, dt * dt * dt
+        Qw = np.array([[dt3 * dt2 / 20, dt2 * dt2 / 8, dt3 / 6],
+                       [dt2 * dt2 / 8, dt3 / 3, dt2 / 2],
+                       [dt3 / 6, dt2 / 2, dt]])
+        P = F @ P @ F.T + (r_var * dt * self.gain**6)[:, None, None] * Qw
+        P[:, 0, 0] += (self.effort_noise * dt) ** 2
+        S = P[:, 0, 0] + r_var
+        K = P[:, :, 0] / S[:, None]
+        x += K * (momentum - x[:, 0])[:, None]
+        self._P = P - K[:, :, None] * P[:, 0, None, :]
+        self._t, self._beta = t, beta
+        self.residual = x[:, 1].copy()
+        return self.residual, False
 
 
 class FrictionModel:

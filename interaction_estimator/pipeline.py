@@ -18,7 +18,8 @@ import numpy as np
 from .environment import EnvironmentFilter
 from .health import HealthInputs, Verdict, assess
 from .model import RobotModel
-from .observer import BiasEstimator, ContactMonitor, FrictionModel, MomentumObserver
+from .observer import (BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
+                       MomentumObserver)
 from .samples import RejectCounts, Sample, SampleRejected, SampleValidator
 from .settings import Settings, per_joint
 from .wrench import AlongKinematics, Direction, WrenchMap
@@ -93,10 +94,18 @@ class Pipeline:
     def _configure(self, s: Settings) -> None:
         joints = self.model.joint_names
         gain = np.array(per_joint(s, "observer.gain", joints))
-        if getattr(self, "observer", None) is None:
-            self.observer = MomentumObserver(gain, s["observer.max_gap"])
+        kalman = s["observer.form"] == "kalman"
+        old_obs = getattr(self, "observer", None)
+        if old_obs is None or isinstance(old_obs, KalmanMomentumObserver) != kalman:
+            self.observer = (KalmanMomentumObserver(gain, s["observer.velocity_noise"],
+                                                    s["observer.effort_noise"],
+                                                    s["observer.max_gap"])
+                             if kalman else MomentumObserver(gain, s["observer.max_gap"]))
         else:
             self.observer.gain, self.observer.max_gap = gain, s["observer.max_gap"]
+            if kalman:
+                self.observer.velocity_noise = s["observer.velocity_noise"]
+                self.observer.effort_noise = s["observer.effort_noise"]
         self.friction = FrictionModel(per_joint(s, "friction.viscous", joints),
                                       per_joint(s, "friction.coulomb", joints),
                                       s["friction.smoothing_velocity"],
@@ -122,7 +131,9 @@ class Pipeline:
                                    s["direction.min_travel"])
         if old_dir is not None and old_dir.mode == self.direction.mode == "estimated":
             self.direction.u = old_dir.u
-        self._gain_mean = float(np.mean(gain))
+        # lag of the force behind tau_ext that the regressor must match: first order 1/K_O;
+        # the Kalman form has none for slowly varying forces (None: no matching filter)
+        self._gain_mean = None if kalman else float(np.mean(gain))
         # values read on every sample, looked up once here
         self._noise_tc = s["contact.noise_time_constant"]
         self._condition_limit = s["wrench.condition_limit"]
@@ -201,7 +212,8 @@ class Pipeline:
         dyn = self.model.dynamics(q, v)
         tau = effort - self.friction.torque(v)
         raw, restarted = self.observer.step(t, dyn.mass_matrix @ v,
-                                            tau + dyn.coriolis_transpose_velocity - dyn.gravity)
+                                            tau + dyn.coriolis_transpose_velocity - dyn.gravity,
+                                            dyn.mass_matrix)
         residual = raw + self.bias.value
 
         elapsed = t - self._t_start
@@ -222,7 +234,9 @@ class Pipeline:
                 phase = "contact"
             else:
                 phase = "free"
-                if not self.contact.pending:  # a contact may be starting: learn nothing from it
+                # learn only from quiet free motion: a residual above the exit level may be a
+                # contact building up, and must not be learned as bias or noise
+                if not self.contact.pending and state.level < self.contact.exit_level:
                     self.bias.update(t, dt, raw)
                     residual = raw + self.bias.value
                     self.contact.learn_noise(dt, residual)

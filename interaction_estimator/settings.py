@@ -128,9 +128,18 @@ SPECS: tuple[ParamSpec, ...] = (
        "Travel within the window below which the estimated direction is kept as it is.",
        0.0, 10.0),
     # --- momentum observer ----------------------------------------------------------------
-    _fa("observer.gain", [40.0], "1/s",
-        "Momentum-observer gain K_O. " + PER_JOINT + " Higher: less lag (1/K_O s), more"
-        " noise (about K_O x inertia x velocity noise).", 0.1, 5000.0),
+    _s("observer.form", "kalman",
+       "'kalman': Kalman-filter form with the external torque as a disturbance state (less noise"
+       " for the same bandwidth, no lag on ramps); 'first_order': the classic first-order"
+       " residual r' = K_O (tau_ext - r).", choices=("kalman", "first_order")),
+    _fa("observer.gain", [80.0], "1/s",
+        "Observer bandwidth: K_O of the first-order form, or the pole radius of the Kalman form. "
+        + PER_JOINT + " Higher: faster response (lag about 1/K_O s in the first-order form),"
+        " more noise.", 0.1, 5000.0),
+    _f("observer.velocity_noise", 0.003, "rad/s",
+       "Standard deviation of the measured joint velocities (Kalman form).", 1e-9, 100.0),
+    _f("observer.effort_noise", 0.1, "N·m",
+       "Standard deviation of the measured efforts (Kalman form).", 0.0, 1e4),
     _f("observer.max_gap", 0.05, "s",
        "A gap between samples longer than this restarts the observer.", 1e-4, 10.0),
     # --- torque bias ----------------------------------------------------------------------

@@ -106,9 +106,11 @@ class AlongKinematics:
     passed through the same first-order filter as the momentum observer (``exp(-K dt)``), so that
     the filtered force and the filtered regressor obey the same linear model: the observer's lag
     is matched, not ignored (the model f = h . theta is linear with constant theta).
+    ``observer_gain`` None: no matching filter (the Kalman-form observer does not lag slow forces).
     """
 
-    def __init__(self, window: float, polyorder: int, nominal_dt: float, observer_gain: float):
+    def __init__(self, window: float, polyorder: int, nominal_dt: float,
+                 observer_gain: float | None):
         n = max(int(round(window / nominal_dt)) | 1, polyorder + 2 | 1)
         self.n = n
         self.half = n // 2
@@ -180,7 +182,7 @@ class AlongKinematics:
         c = self._i + self.half
         row = np.array([float(self._deriv @ self._v[s]) / spacing,
                         float(self._smooth @ self._v[s]), self._x[c], 1.0])
-        if self._filtered is None:
+        if self._filtered is None or self.gain is None:
             self._filtered = row
         else:
             a = np.exp(-self.gain * dt)
