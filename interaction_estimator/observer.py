@@ -206,13 +206,14 @@ class ContactMonitor:
 
     level = sqrt(mean_i (r_i / sigma_i)^2) with sigma_i the residual's noise level learned in
     free motion (exponential average of r_i^2, floored at noise_floor N·m). Contact begins when
-    level > enter_level for hold_time s, ends when level < exit_level for hold_time s.
+    level > enter_level for hold_time s, ends when level < exit_level for release_time s.
     """
 
     def __init__(self, nv: int, enter_level: float, exit_level: float, hold_time: float,
-                 noise_floor: float, noise_time_constant: float):
+                 noise_floor: float, noise_time_constant: float, release_time: float = 0.0):
         self.enter_level, self.exit_level = enter_level, exit_level
         self.hold_time, self.noise_floor = hold_time, noise_floor
+        self.release_time = release_time
         self.noise_time_constant = noise_time_constant
         self.nv = nv
         self.reset()
@@ -243,7 +244,8 @@ class ContactMonitor:
         if crossing:
             if self._pending_since is None:
                 self._pending_since = t
-            if t - self._pending_since >= self.hold_time:
+            if t - self._pending_since >= (self.release_time if self.in_contact
+                                           else self.hold_time):
                 self.in_contact = not self.in_contact
                 event = "contact_begin" if self.in_contact else "contact_end"
                 self._pending_since = None

@@ -118,7 +118,7 @@ class Pipeline:
         self.bias = bias
         contact = ContactMonitor(self.model.nv, s["contact.enter_level"], s["contact.exit_level"],
                                  s["contact.hold_time"], s["contact.noise_floor"],
-                                 s["contact.noise_time_constant"])
+                                 s["contact.noise_time_constant"], s["contact.release_time"])
         old_contact = getattr(self, "contact", None)
         if old_contact is not None:
             contact.noise_var = np.maximum(old_contact.noise_var, s["contact.noise_floor"] ** 2)
@@ -136,6 +136,7 @@ class Pipeline:
         self._gain_mean = None if kalman else float(np.mean(gain))
         # values read on every sample, looked up once here
         self._noise_tc = s["contact.noise_time_constant"]
+        self._forget_after = s["contact.forget_after"]
         self._condition_limit = s["wrench.condition_limit"]
         self._min_rate = s["health.min_rate"]
         self._stale_after = s["health.stale_after"]
@@ -259,10 +260,13 @@ class Pipeline:
         step = self.filter.last
         if kin is not None:
             if event == "contact_begin":
-                kin.start_contact()
-                dx = 0.0
-                if self._ever_contact or (step is not None and step.samples > 0):
-                    self.filter.inflate("contact regained")
+                if t - self._contact_end > self._forget_after:
+                    kin.start_contact()   # a new contact: x from here, estimates uncertain
+                    dx = 0.0
+                    if self._ever_contact:
+                        self.filter.inflate("contact regained")
+                else:
+                    event = "contact_resumed"
                 self._ever_contact = True
             kin.push(t, dx, velocity_along, force_along)
             if phase == "contact":

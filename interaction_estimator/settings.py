@@ -169,7 +169,15 @@ SPECS: tuple[ParamSpec, ...] = (
        "Contact ends when that normalized residual falls below this level (hysteresis).",
        0.5, 1e4),
     _f("contact.hold_time", 0.02, "s",
-       "The level must be crossed for this long before the contact state changes.", 0.0, 10.0),
+       "The level must stay above contact.enter_level this long before contact begins.",
+       0.0, 10.0),
+    _f("contact.release_time", 0.5, "s",
+       "The level must stay below contact.exit_level this long before contact ends (a held"
+       " object's force passes through zero briefly without ending the contact).", 0.0, 60.0),
+    _f("contact.forget_after", 2.0, "s",
+       "A contact regained within this time after it ended continues the previous one (same"
+       " object, position kept); later, it starts anew (position from zero, estimates made"
+       " uncertain again).", 0.0, 3600.0),
     _f("contact.noise_floor", 0.05, "N·m",
        "Smallest residual noise level assumed per joint.", 1e-6, 1e3),
     _f("contact.noise_time_constant", 2.0, "s",
@@ -224,7 +232,7 @@ SPECS: tuple[ParamSpec, ...] = (
     _i("filter.nis_window", 1000, "samples",
        "Window over which the normalized innovation squared (NIS) is averaged and compared"
        " with its two-sided 95 % chi-square interval.", 1, 100000),
-    _f("filter.change_threshold", 25.0, "",
+    _f("filter.change_threshold", 100.0, "",
        "CUSUM threshold on the normalized innovation squared above which a change is declared.",
        0.0, 1e9, exclusive=True),
     _f("filter.change_drift", 2.0, "",

@@ -75,7 +75,7 @@ def test_bias_learning_time_constant_rate_and_limit():
 
 def test_contact_monitor_hysteresis_and_hold():
     mon = ContactMonitor(2, enter_level=6.0, exit_level=3.0, hold_time=0.01, noise_floor=0.1,
-                         noise_time_constant=1.0)
+                         noise_time_constant=1.0, release_time=0.01)
     t = 0.0
     states = []
     for level in [1.0] * 5 + [7.0] * 20 + [4.0] * 20 + [2.0] * 20:

@@ -39,7 +39,7 @@ Integration: semi-implicit (symplectic) Euler, ``v += dt v'`` then ``q = integra
 
 Controller (what drives the robot; it is not part of the estimator)
 -------------------------------------------------------------------
-Every control tick (at the sample rate when it is at least 500 Hz, otherwise a multiple of it)
+Every control tick (at the sample rate when it is at least 1 kHz, otherwise a multiple of it)
 the controller computes, from the true state, and holds (zero-order hold) until the next tick::
 
     tau = h + J^T F_task + N^T tau_posture
@@ -69,11 +69,16 @@ motor supplies the friction on top of the joint torque). With ``noise=False`` th
 noise, bias or quantization; friction stays in motor-side efforts because it is a physical
 effect of where the effort is measured, not a sensor error.
 
+The objects keep their constant static force at all times, as the model says, also in the brief
+moments when they creep backwards (a few mm/s at contact onset, and in the cart's last 0.3 s when
+it settles); Coulomb's sign switch is not simulated.
+
 Sample ``k`` holds the state at ``time[k]``, the truth at that instant, and (at rates of at least
-500 Hz) the effort held from ``time[k]`` to ``time[k+1]``.
+1 kHz) the effort held from ``time[k]`` to ``time[k+1]``.
 """
 from __future__ import annotations
 
+import copy
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -87,7 +92,7 @@ from .marten import CONTACT_FRAME, MOBILE_URDF, mobile_urdf
 STANDARD_GRAVITY = 9.80665  # m/s^2, CGPM 1901 (3rd General Conference on Weights and Measures)
 
 INTERNAL_STEP = 0.0005       # s, largest internal integration step
-MIN_CONTROL_RATE = 500.0     # Hz, the controller never runs slower than this
+MIN_CONTROL_RATE = 1000.0    # Hz, the controller never runs slower than this
 RATE_RANGE = (50.0, 10000.0)  # Hz, allowed sample rates
 MAX_DURATION = 120.0         # s
 EFFORT_SIDES = ("link", "motor")
@@ -110,7 +115,7 @@ FRICTION_COULOMB: tuple[float, ...] = (4.0, 4.0, 2.5, 1.5, 1.8, 0.8, 0.9, 0.35, 
 
 # Controller gains (task space, per axis; posture as natural frequency and damping ratio).
 TASK_STIFFNESS = 2500.0      # N/m
-TASK_DAMPING = 120.0         # N·s/m
+TASK_DAMPING = 200.0         # N·s/m
 POSTURE_FREQUENCY = 8.0      # rad/s
 POSTURE_DAMPING_RATIO = 1.0
 DOOR_RADIAL_BAUMGARTE = 40.0  # rad/s, drift correction of the door's radial constraint
@@ -157,7 +162,7 @@ class ScenarioSpec:
     static_force: float
     direction_kind: str
     direction: tuple[float, float, float]
-    settings: dict[str, Any]
+    settings: dict[str, Any] = field(hash=False)
     free_time: float
     contact_point: tuple[float, float, float]
     start_offset: tuple[float, float, float]
@@ -167,7 +172,7 @@ class ScenarioSpec:
     monotone: bool
     base_follows: bool
     feedforward: float
-    physical: dict[str, float] = field(default_factory=dict)
+    physical: dict[str, float] = field(default_factory=dict, hash=False)
 
     @property
     def min_duration(self) -> float:
@@ -220,7 +225,7 @@ def _drawer() -> ScenarioSpec:
         direction_kind="world", direction=(-1.0, 0.0, 0.0),
         settings={"direction.mode": "world", "direction.vector": [-1.0, 0.0, 0.0]},
         free_time=2.0, contact_point=(0.88, -0.05, 0.72), start_offset=(-0.20, 0.15, 0.20),
-        travel=0.36, wiggles=(Wiggle(0.004, 0.35, 0.0), Wiggle(0.0018, 1.9, 0.5)),
+        travel=0.38, wiggles=(Wiggle(0.004, 0.4), Wiggle(0.0022, 2.2)),
         hold=0.0, monotone=True, base_follows=False, feedforward=5.5,
         physical={"rail_friction_N": 4.5})
 
@@ -234,7 +239,7 @@ def _cart() -> ScenarioSpec:
         direction_kind="world", direction=(1.0, 0.0, 0.0),
         settings={"direction.mode": "world", "direction.vector": [1.0, 0.0, 0.0]},
         free_time=2.0, contact_point=(0.72, 0.0, 0.92), start_offset=(-0.18, 0.18, 0.15),
-        travel=1.2, wiggles=(Wiggle(0.010, 0.5, 0.0), Wiggle(0.0025, 1.3, 0.7)),
+        travel=1.2, wiggles=(Wiggle(0.012, 0.6), Wiggle(0.003, 1.7)),
         hold=0.0, monotone=True, base_follows=True, feedforward=12.0,
         physical={"rolling_resistance_coefficient": 10.5 / (42.0 * STANDARD_GRAVITY)})
 
@@ -272,7 +277,8 @@ class SimulatedRun:
     truth: parameters (``mass`` kg, ``damping`` N·s/m, ``stiffness`` N/m, ``static_force`` N),
     ``bias`` (n,) N·m/N, ``friction_viscous`` (n,) N·m·s/rad or N·s/m, ``friction_coulomb`` (n,)
     N·m/N, ``friction_smoothing_velocity`` rad/s, ``effort_noise`` N·m, ``velocity_noise``
-    rad/s, ``encoder_bits``, ``position_quantum`` (n,) rad/m, ``direction`` (N, 3) for the door or
+    rad/s, ``encoder_bits``, ``position_quantum`` (n,) rad/m (noise off: 0 and zeros),
+    ``direction`` (N, 3) for the door (the opening tangent; before contact, the closed door's) or
     (3,), ``physical`` (the object's own parameters), ``contact_time`` s, ``contact_point`` (3,) m
     (where contact began), ``hinge`` (3,) m (door only), ``effort_side``, ``noise``, ``seed``.
     urdf: the mobile Marten's URDF text. contact_frame: ``tool_tip``. settings: recommended
@@ -380,18 +386,18 @@ def _contact_path(spec: ScenarioSpec, s: np.ndarray, contact_length: float
     """Desired motion along u after contact, at contact times s (M,) s.
 
     Returns (x, x', x'', x_slow) in m, m/s, m/s^2, m:
-    ``x = V int(e) + e sum(a (cos(phi) - cos(w s + phi)))`` with the plateau envelope e (with
-    phi = 0 every wiggle is >= 0, so the object never goes behind its start); x_slow is the slow
-    part alone (for the posture keyframes).
+    ``x = V int(e_s) + c e_w sum(a (cos(phi) - cos(w s + phi)))``. ``e_s`` is a plateau envelope
+    over the moving time (the slow motion covers ``travel``), ``e_w`` a narrower one for the
+    wiggles (with phi = 0 every wiggle is >= 0, so the object never goes behind its start);
+    ``c`` = 1, or less for ``monotone`` scenarios if needed to keep ``x' >= 0``. x_slow is the
+    slow part alone (for the posture keyframes).
     """
     move = contact_length - spec.hold
     ramp = min(1.5, move / 3.0)
-    e, de, dde = _envelope(s, move, ramp)
-    grid = np.linspace(0.0, move, 8001)
-    eg, deg, _ = _envelope(grid, move, ramp)
-    integral_e = np.concatenate(([0.0], np.cumsum(np.diff(grid) * 0.5 * (eg[1:] + eg[:-1]))))
-    speed = spec.travel / integral_e[-1]
-    slow = speed * np.interp(np.clip(s, 0.0, move), grid, integral_e)
+    inset = 0.5 * ramp
+
+    def envelopes(s_: np.ndarray):
+        return _envelope(s_, move, ramp), _envelope(s_ - inset, move - 2 * inset, ramp)
 
     def wiggle(s_: np.ndarray):
         w_, dw_, ddw_ = np.zeros_like(s_), np.zeros_like(s_), np.zeros_like(s_)
@@ -402,17 +408,23 @@ def _contact_path(spec: ScenarioSpec, s: np.ndarray, contact_length: float
             ddw_ += wig.amplitude * om**2 * np.cos(om * s_ + wig.phase)
         return w_, dw_, ddw_
 
+    grid = np.linspace(0.0, move, 8001)
+    (eg, _, _), (ewg, dewg, _) = envelopes(grid)
+    integral_e = np.concatenate(([0.0], np.cumsum(np.diff(grid) * 0.5 * (eg[1:] + eg[:-1]))))
+    speed = spec.travel / integral_e[-1]
     scale = 1.0
     if spec.monotone:  # shrink the wiggles if they would make the desired motion go backwards
         wg, dwg, _ = wiggle(grid)
-        back = deg * wg + eg * dwg
+        back = dewg * wg + ewg * dwg
         neg = back < 0
         if np.any(neg):
             scale = min(1.0, 0.9 * float(np.min(speed * eg[neg] / -back[neg])))
+    (e, de, dde), (ew, dew, ddew) = envelopes(s)
     w, dw, ddw = (scale * c for c in wiggle(s))
-    x = slow + e * w
-    xd = speed * e + de * w + e * dw
-    xdd = speed * de + dde * w + 2 * de * dw + e * ddw
+    slow = speed * np.interp(np.clip(s, 0.0, move), grid, integral_e)
+    x = slow + ew * w
+    xd = speed * e + dew * w + ew * dw
+    xdd = speed * de + ddew * w + 2 * dew * dw + ew * ddw
     return x, xd, xdd, slow
 
 
@@ -438,6 +450,7 @@ class _Robot:
         self.arm_v = np.arange(3, 10)
         self.lower = self.model.lowerPositionLimit.copy()
         self.upper = self.model.upperPositionLimit.copy()
+        self.lower_tri = np.tril_indices(self.nv, -1)
 
     def angles(self, q: np.ndarray) -> np.ndarray:
         """Configuration (nq,) -> one coordinate per joint (nv,): continuous joints as angles."""
@@ -499,8 +512,8 @@ class _Terms:
 def _terms(robot: _Robot, q: np.ndarray, v: np.ndarray) -> _Terms:
     model, data = robot.model, robot.data
     pin.computeAllTerms(model, data, q, v)
-    upper = np.triu(data.M)
-    M = upper + np.triu(upper, 1).T
+    M = data.M.copy()
+    M[robot.lower_tri] = M.T[robot.lower_tri]  # crba fills the upper triangle: symmetrize
     p = pin.updateFramePlacement(model, data, robot.fid).translation.copy()
     J = pin.getFrameJacobian(model, data, robot.fid, pin.LOCAL_WORLD_ALIGNED)[:3].copy()
     gamma = pin.getFrameClassicalAcceleration(model, data, robot.fid,
@@ -570,7 +583,7 @@ class _Door:
         r = float(np.hypot(d[0], d[1]))
         theta = math.atan2(float(d @ self.t0), float(d @ self.n0))
         n = d / r
-        t = np.cross([0.0, 0.0, 1.0], n)  # = cos(theta) t0 - sin(theta) n0, opening sense
+        t = np.array([-n[1], n[0], 0.0])  # z x n = cos(theta) t0 - sin(theta) n0, opening
         return r, theta, n, t
 
     def rows(self, tm: _Terms, v: np.ndarray):
@@ -610,14 +623,24 @@ class _Door:
 # the simulation
 
 
+def _kkt(t: _Terms, E: np.ndarray, A: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """The matrix [[M, J^T E], [A, B]] ((nv + nc) x (nv + nc))."""
+    nv, nc = t.M.shape[0], B.shape[0]
+    K = np.empty((nv + nc, nv + nc))
+    K[:nv, :nv] = t.M
+    K[:nv, nv:] = t.J.T @ E
+    K[nv:, :nv] = A
+    K[nv:, nv:] = B
+    return K
+
+
 def _solve(t: _Terms, tau: np.ndarray, obj, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Joint accelerations (nv,) and contact-force components (nc,) at one state."""
     if obj is None:
         return np.linalg.solve(t.M, tau - t.h), np.zeros(0)
     E, A, B, rhs = obj.rows(t, v)
     nv = t.M.shape[0]
-    K = np.block([[t.M, t.J.T @ E], [A, B]])
-    sol = np.linalg.solve(K, np.concatenate([tau - t.h, rhs]))
+    sol = np.linalg.solve(_kkt(t, E, A, B), np.concatenate([tau - t.h, rhs]))
     return sol[:nv], sol[nv:]
 
 
@@ -625,8 +648,7 @@ def _impact(t: _Terms, obj, v: np.ndarray) -> np.ndarray:
     """Velocity after the inelastic grasp of the object at rest (same rows, zero right side)."""
     E, A, B = obj.impact_rows(t)
     nv = t.M.shape[0]
-    K = np.block([[t.M, t.J.T @ E], [A, B]])
-    sol = np.linalg.solve(K, np.concatenate([t.M @ v, np.zeros(B.shape[0])]))
+    sol = np.linalg.solve(_kkt(t, E, A, B), np.concatenate([t.M @ v, np.zeros(B.shape[0])]))
     return sol[:nv]
 
 
@@ -831,13 +853,14 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
         "encoder_bits": ENCODER_BITS if noise else 0,
         "position_quantum": quantum if noise else np.zeros(nv),
         "direction": rec_u if spec.direction_kind == "arc" else np.asarray(spec.direction, float),
-        "physical": dict(spec.physical),
+        "physical": copy.deepcopy(spec.physical),
         "contact_time": t_contact, "contact_point": contact_point,
         "effort_side": effort_side, "noise": bool(noise), "seed": seed,
     }
     if spec.direction_kind == "arc":
         truth["hinge"] = obj.hinge.copy()
-    settings = {**spec.settings, "effort_side": effort_side, "contact_frame": CONTACT_FRAME}
+    settings = {**copy.deepcopy(spec.settings), "effort_side": effort_side,
+                "contact_frame": CONTACT_FRAME}
     return SimulatedRun(
         scenario=spec.name, time=time, joint_names=JOINT_NAMES, position=position,
         velocity=velocity, effort=effort, true_force=rec_F, true_position_along=rec_x,

@@ -1,0 +1,335 @@
+"""Tests of the built-in scenarios and their simulator (interaction_estimator.scenarios.simulator).
+
+Each check names the outside reference it is held against: Newton's second law and the
+work-energy theorem on the object, standard gravity (CGPM), the statics of a manipulator
+(principle of virtual work, tau = g(q) + J^T F), MuJoCo as an independent physics engine,
+numpy/scipy numerical differentiation and integration, and chi-square bounds from scipy.stats.
+"""
+from __future__ import annotations
+
+import functools
+import math
+
+import mujoco
+import numpy as np
+import pinocchio as pin
+import pytest
+from scipy import integrate, stats
+
+from interaction_estimator import settings as settings_module
+from interaction_estimator.scenarios import simulator as sim
+
+G0 = 9.80665  # m/s^2, standard gravity, CGPM 1901
+
+
+@functools.lru_cache(maxsize=None)
+def clean_run(name: str) -> sim.SimulatedRun:
+    """Each scenario at its own duration, without measurement corruption (cached)."""
+    return sim.simulate(name, noise=False)
+
+
+@functools.lru_cache(maxsize=None)
+def noisy_run(effort_side: str, seed: int = 3) -> sim.SimulatedRun:
+    return sim.simulate("drawer", duration=5.0, seed=seed, effort_side=effort_side)
+
+
+def pinocchio_model(urdf: str) -> tuple[pin.Model, pin.Data]:
+    model = pin.buildModelFromXML(urdf)
+    model.gravity.linear = np.array([0.0, 0.0, -G0])
+    return model, model.createData()
+
+
+def config(model: pin.Model, angles: np.ndarray) -> np.ndarray:
+    """JointState-convention positions (yaw as an angle) -> Pinocchio configuration."""
+    q = np.empty(model.nq)
+    for j in range(1, model.njoints):
+        jm, a = model.joints[j], angles[j - 1]
+        if jm.nq == 1:
+            q[jm.idx_q] = a
+        else:
+            q[jm.idx_q:jm.idx_q + 2] = (math.cos(a), math.sin(a))
+    return q
+
+
+# --- the catalogue and the argument checks -------------------------------------------------
+
+
+def test_catalogue_has_the_four_invented_scenarios_with_valid_settings():
+    assert {"door", "drawer", "cart", "toolbox"} <= set(sim.SCENARIOS)
+    for name, spec in sim.SCENARIOS.items():
+        assert spec.name == name
+        assert spec.description and "\n" not in spec.description
+        assert spec.free_time >= 1.5
+        assert spec.duration >= spec.min_duration
+        # every recommended override is a real setting with an allowed value (the package's
+        # own settings registry is the reference for names and ranges)
+        for key, value in spec.settings.items():
+            settings_module.validate_value(key, value)
+    assert sim.SCENARIOS["door"].settings["direction.mode"] == "estimated"
+    assert sim.SCENARIOS["toolbox"].settings == {"direction.mode": "world",
+                                                 "direction.vector": [0.0, 0.0, 1.0]}
+
+
+def test_truth_values_from_textbook_formulas():
+    door = sim.SCENARIOS["door"]
+    ph = door.physical
+    radius = ph["handle_radius_m"]
+    # rotation about a fixed axis, x = R theta, f R = torque (any mechanics textbook)
+    assert door.mass == pytest.approx(ph["inertia_kg_m2"] / radius**2, rel=1e-15)
+    assert door.damping == pytest.approx(ph["damping_N_m_s_per_rad"] / radius**2, rel=1e-15)
+    assert door.stiffness == pytest.approx(ph["stiffness_N_m_per_rad"] / radius**2, rel=1e-15)
+    assert door.static_force == pytest.approx(ph["preload_N_m"] / radius, rel=1e-15)
+    assert 0.7 <= radius <= 0.8
+    toolbox = sim.SCENARIOS["toolbox"]
+    assert toolbox.mass == 3.5
+    assert toolbox.static_force == pytest.approx(3.5 * 9.80665, abs=1e-12)  # weight, CGPM g
+    assert toolbox.direction == (0.0, 0.0, 1.0)
+    assert sim.SCENARIOS["drawer"].stiffness == 0.0  # no spring in the drawer
+
+
+def test_unknown_scenario_names_the_valid_ones():
+    with pytest.raises(ValueError) as err:
+        sim.simulate("sofa")
+    text = str(err.value)
+    assert "'sofa'" in text
+    for name in sim.SCENARIOS:
+        assert name in text
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"duration": 1.0}, ["duration", "1.0", "4.5", "120"]),
+    ({"duration": float("nan")}, ["duration", "nan"]),
+    ({"duration": "long"}, ["duration", "'long'"]),
+    ({"seed": -1}, ["seed", "-1", ">= 0"]),
+    ({"seed": 2.5}, ["seed", "2.5"]),
+    ({"rate": 0.0}, ["rate", "0.0", "50", "10000"]),
+    ({"effort_side": "joint"}, ["effort_side", "'joint'", "'link'", "'motor'"]),
+    ({"noise": "yes"}, ["noise", "'yes'"]),
+])
+def test_bad_arguments_raise_a_clear_value_error(kwargs, words):
+    with pytest.raises(ValueError) as err:
+        sim.simulate("door", **kwargs)
+    for word in words:
+        assert word in str(err.value)
+
+
+# --- physics of the object -----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("name", ["drawer", "cart", "toolbox"])
+def test_newton_law_on_the_linear_objects(name):
+    run = clean_run(name)
+    t = run.truth
+    c = run.in_contact
+    u = np.asarray(t["direction"])
+    # Newton's second law on the object along u: f = m x'' + d x' + k x + f0
+    model_force = (t["mass"] * run.true_acceleration_along + t["damping"] * run.true_velocity_along
+                   + t["stiffness"] * run.true_position_along + t["static_force"])
+    np.testing.assert_allclose(run.true_force_along[c], model_force[c], rtol=0, atol=1e-9)
+    # the object only pushes along u: F = f u
+    np.testing.assert_allclose(run.true_force[c], run.true_force_along[c, None] * u, atol=1e-12)
+    assert np.all(run.true_force[~c] == 0.0)
+    # the recorded velocity and acceleration are the derivatives of the recorded position
+    # (central differences, numpy.gradient; O(dt^2) truncation at 1 kHz)
+    s = slice(np.argmax(c) + 5, None)
+    dt = run.time[1] - run.time[0]
+    np.testing.assert_allclose(np.gradient(run.true_position_along[s], dt),
+                               run.true_velocity_along[s], atol=2e-3)
+    np.testing.assert_allclose(np.gradient(run.true_velocity_along[s], dt)[1:-1],
+                               run.true_acceleration_along[s][1:-1], atol=2e-2)
+
+
+def test_newton_law_on_the_door_about_its_hinge():
+    run = clean_run("door")
+    ph = run.truth["physical"]
+    radius = ph["handle_radius_m"]
+    c = run.in_contact
+    theta = run.true_position_along / radius
+    theta_d = run.true_velocity_along / radius
+    theta_dd = run.true_acceleration_along / radius
+    # Euler's law for a rotation about a fixed axis: R f_t = I theta'' + c theta' + k theta + tau0
+    torque = (ph["inertia_kg_m2"] * theta_dd + ph["damping_N_m_s_per_rad"] * theta_d
+              + ph["stiffness_N_m_per_rad"] * theta + ph["preload_N_m"])
+    np.testing.assert_allclose(radius * run.true_force_along[c], torque[c], rtol=0, atol=1e-4)
+    # the same law with the along-arc equivalents the estimator is meant to find
+    t = run.truth
+    along = (t["mass"] * run.true_acceleration_along + t["damping"] * run.true_velocity_along
+             + t["stiffness"] * run.true_position_along + t["static_force"])
+    np.testing.assert_allclose(run.true_force_along[c], along[c], rtol=0, atol=1e-4)
+    assert theta[c].max() == pytest.approx(ph["open_angle_rad"], abs=0.05)
+
+
+def test_door_handle_stays_on_its_circle_and_the_direction_is_its_tangent():
+    run = clean_run("door")
+    model, data = pinocchio_model(run.urdf)
+    fid = model.getFrameId(run.contact_frame)
+    hinge = run.truth["hinge"]
+    radius = run.truth["physical"]["handle_radius_m"]
+    direction = run.truth["direction"]
+    assert direction.shape == (len(run.time), 3)
+    for k in np.flatnonzero(run.in_contact)[::250]:
+        pin.forwardKinematics(model, data, config(model, run.true_position[k]))
+        p = pin.updateFramePlacement(model, data, fid).translation
+        d = p[:2] - hinge[:2]
+        # geometry of a circle: |d| = R, the tangent is perpendicular to the radius
+        assert np.hypot(*d) == pytest.approx(radius, abs=1e-6)
+        assert np.linalg.norm(direction[k]) == pytest.approx(1.0, abs=1e-12)
+        assert direction[k][:2] @ d == pytest.approx(0.0, abs=1e-9)
+        assert direction[k][2] == 0.0
+        # the force is horizontal (the door does not hold the handle up) and along u it is f
+        assert run.true_force[k] @ direction[k] == pytest.approx(run.true_force_along[k],
+                                                                 abs=1e-9)
+        assert run.true_force[k][2] == 0.0
+
+
+@pytest.mark.parametrize("name", ["door", "cart"])
+def test_work_energy_balance_of_the_object(name):
+    run = clean_run(name)
+    t = run.truth
+    c = run.in_contact
+    time = run.time[c]
+    x, xd = run.true_position_along[c], run.true_velocity_along[c]
+    f = run.true_force_along[c]
+    # work-energy theorem: W_robot = delta(kinetic + spring energy) + dissipated + f0 * travel
+    work = integrate.trapezoid(f * xd, time)
+    energy = 0.5 * t["mass"] * xd**2 + 0.5 * t["stiffness"] * x**2
+    dissipated = integrate.trapezoid(t["damping"] * xd**2, time)
+    balance = energy[-1] - energy[0] + dissipated + t["static_force"] * (x[-1] - x[0])
+    gross = integrate.trapezoid(np.abs(f * xd), time)  # work in and out, J
+    assert work > 1.0  # the robot did real work on the object
+    # The force jumps at every control tick (the torque is held between ticks) and the samples
+    # hold the value just after the jump, so the trapezoid rule carries an O(dt) error: seen
+    # as about 9e-4 of the gross work at 1 kHz; it halves at 2 kHz and again at 4 kHz (checked
+    # by hand on 8 s runs), so it is the quadrature, not the physics.
+    assert abs(work - balance) < 1.5e-3 * gross
+
+
+def test_toolbox_held_still_weighs_its_weight():
+    run = clean_run("toolbox")
+    hold = run.time >= run.time[-1] - 0.5
+    # standing still, Newton: f = m g with standard gravity 9.80665 m/s^2 (CGPM)
+    np.testing.assert_allclose(run.true_force_along[hold], 3.5 * 9.80665, atol=5e-3)
+    np.testing.assert_allclose(run.true_force[hold][:, :2], 0.0, atol=1e-12)
+    assert np.abs(run.true_velocity_along[hold]).max() < 1e-3
+    # statics of the manipulator (principle of virtual work): tau = g(q) + J^T F
+    model, data = pinocchio_model(run.urdf)
+    fid = model.getFrameId(run.contact_frame)
+    for k in np.flatnonzero(hold)[::100]:
+        q = config(model, run.true_position[k])
+        g = pin.computeGeneralizedGravity(model, data, q)
+        jac = pin.computeFrameJacobian(model, data, q, fid, pin.LOCAL_WORLD_ALIGNED)[:3]
+        np.testing.assert_allclose(run.true_effort[k], g + jac.T @ run.true_force[k], atol=0.05)
+
+
+def test_contact_begins_after_free_motion_and_the_cart_takes_the_base_along():
+    for name in sim.SCENARIOS:
+        run = clean_run(name)
+        spec = sim.SCENARIOS[name]
+        first = np.argmax(run.in_contact)
+        assert run.time[first] == pytest.approx(spec.free_time, abs=1e-9)
+        assert not run.in_contact[:first].any() and run.in_contact[first:].all()
+        assert np.all(run.true_position_along[:first] == 0.0)
+        # the arm really moves while free (an estimator learns its torque bias there)
+        free_speed = np.linalg.norm(run.true_velocity[:first, 3:], axis=1)
+        assert free_speed.max() > 0.2
+        base_travel = run.true_position[-1, :2] - run.true_position[0, :2]
+        if spec.base_follows:
+            assert base_travel[0] == pytest.approx(spec.travel, abs=0.05)
+        else:
+            assert np.abs(base_travel).max() < 0.01
+
+
+# --- robot dynamics against an independent engine -----------------------------------------
+
+
+def test_robot_dynamics_agree_with_mujoco_inverse_dynamics():
+    """MuJoCo's inverse dynamics of the recorded motion equal the joint torque minus J^T F."""
+    run = clean_run("door")
+    urdf = run.urdf.replace("<robot name=\"marten_mobile\">", (
+        "<robot name=\"marten_mobile\"><mujoco><compiler discardvisual=\"true\" "
+        "fusestatic=\"false\" balanceinertia=\"false\"/></mujoco>"), 1)
+    model = mujoco.MjSpec.from_string(urdf).compile()
+    model.opt.gravity[:] = [0.0, 0.0, -G0]
+    data = mujoco.MjData(model)
+    dof = [model.jnt_dofadr[mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n)]
+           for n in run.joint_names]
+    qpos_adr = [model.jnt_qposadr[mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n)]
+                for n in run.joint_names]
+    body = mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_BODY, run.contact_frame)
+    samples = np.concatenate([np.arange(100, 1900, 300),
+                              np.flatnonzero(run.in_contact)[::1500]])
+    checked_contact = 0
+    for k in samples:
+        data.qpos[qpos_adr] = run.true_position[k]
+        data.qvel[dof] = run.true_velocity[k]
+        data.qacc[dof] = run.true_acceleration[k]
+        mujoco.mj_inverse(model, data)
+        jacp = np.zeros((3, model.nv))
+        mujoco.mj_jacBody(model, data, jacp, None, body)
+        expected = run.true_effort[k] - jacp[:, dof].T @ run.true_force[k]
+        np.testing.assert_allclose(data.qfrc_inverse[dof], expected, atol=1e-6, rtol=1e-8)
+        checked_contact += int(run.in_contact[k])
+    assert checked_contact >= 5
+
+
+# --- measurements --------------------------------------------------------------------------
+
+
+def test_measurement_corruption_matches_what_is_documented():
+    run = noisy_run("link")
+    t = run.truth
+    assert np.all(np.abs(t["bias"]) <= 2.0) and np.ptp(t["bias"]) > 0.5
+    n = run.effort.size
+    # effort: bias plus white noise of 0.1; the sample variance of n normal draws lies in the
+    # chi-square interval (scipy.stats.chi2, 99.9 %)
+    noise = run.effort - run.true_effort - t["bias"]
+    lo, hi = stats.chi2.ppf([0.0005, 0.9995], n - 1) / (n - 1)
+    assert lo * 0.1**2 <= noise.var(ddof=1) <= hi * 0.1**2
+    assert abs(noise.mean()) < 4 * 0.1 / math.sqrt(n)
+    vel_noise = run.velocity - run.true_velocity
+    assert lo * 0.003**2 <= vel_noise.var(ddof=1) <= hi * 0.003**2
+    # 18-bit encoders: positions are whole counts, within half a count of the truth
+    quantum = t["position_quantum"]
+    np.testing.assert_allclose(quantum[3:], 2 * math.pi / 2**18, rtol=1e-15)
+    counts = run.position / quantum
+    np.testing.assert_allclose(counts, np.round(counts), atol=1e-6)
+    assert np.all(np.abs(run.position - run.true_position) <= quantum / 2 * (1 + 1e-9))
+    assert t["encoder_bits"] == 18 and t["effort_noise"] == 0.1 and t["velocity_noise"] == 0.003
+    assert run.settings["effort_side"] == "link"
+    assert np.all(t["friction_viscous"] == 0) and np.all(t["friction_coulomb"] == 0)
+
+
+def test_motor_side_efforts_add_the_friction_model():
+    link, motor = noisy_run("link"), noisy_run("motor")
+    fv, fc = motor.truth["friction_viscous"], motor.truth["friction_coulomb"]
+    assert np.all(fv > 0) and np.all(fc > 0)
+    # the same seed draws the same noise; the difference is f_v v + f_c tanh(v / 0.01),
+    # evaluated here with numpy from the true velocity
+    friction = fv * motor.true_velocity + fc * np.tanh(motor.true_velocity / 0.01)
+    np.testing.assert_allclose(motor.effort - link.effort, friction, atol=1e-12)
+    np.testing.assert_array_equal(motor.true_effort, link.true_effort)
+    assert motor.settings["effort_side"] == "motor"
+
+
+def test_deterministic_for_a_seed_and_the_seed_only_changes_the_measurements():
+    again = sim.simulate("drawer", duration=5.0, seed=3, effort_side="link")
+    first = noisy_run("link")
+    for name in ("position", "velocity", "effort", "true_force", "true_position_along"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(first, name))
+    other = noisy_run("link", seed=4)
+    assert not np.array_equal(other.truth["bias"], first.truth["bias"])
+    np.testing.assert_array_equal(other.true_effort, first.true_effort)
+
+
+def test_sample_rate_and_shapes():
+    run = sim.simulate("toolbox", duration=5.5, rate=250.0, noise=False)
+    n = len(run.time)
+    assert n == 5.5 * 250 + 1
+    np.testing.assert_allclose(np.diff(run.time), 1 / 250.0, rtol=1e-12)
+    for name in ("position", "velocity", "effort"):
+        assert getattr(run, name).shape == (n, 10)
+    assert run.true_force.shape == (n, 3) and run.in_contact.dtype == bool
+    assert run.joint_names[:3] == ("marten_base_x", "marten_base_y", "marten_base_yaw")
+    assert run.contact_frame == "tool_tip"
+    # held still at the end: the box's weight again (CGPM standard gravity)
+    assert run.true_force_along[-1] == pytest.approx(3.5 * 9.80665, abs=5e-3)
