@@ -132,6 +132,7 @@ class _Config:
         self.converged_std = np.array(s["filter.converged_std"], dtype=float)
         self.converged_rel = float(s["filter.converged_rel_std"])
         self.nonnegative = bool(s["filter.nonnegative"])
+        self.correlation_correction = bool(s["filter.correlation_correction"])
         if self.nonnegative:
             for i in range(3):
                 if self.initial_mean[i] < 0.0:
@@ -226,6 +227,8 @@ class EnvironmentFilter:
         self._fading_power = 1.0  # b^k
         self._cusum = 0.0
         self._pending_change = ""
+        self._z_prev = 0.0     # previous normalized innovation
+        self._corr = [0.0, 0.0]  # decaying sums of z_k z_(k-1) and z_k^2
         self._ex_num = np.zeros(4)
         self._ex_den = 0.0
         self._nis_window = _WindowMean(c.nis_window)
@@ -426,7 +429,22 @@ class EnvironmentFilter:
         self._ex_den = ex_den
         self._t_prev = t
         self._samples = k + 1
-        std = np.sqrt(np.maximum(P.diagonal(), 0.0))
+        # 9. correlated innovations: the force passes through the observer and the regressor
+        # through the differentiator, so neighbouring residuals are correlated and P (which
+        # assumes white noise) is too small. The standard deviations are widened by the AR(1)
+        # variance inflation factor (1 + rho) / (1 - rho), rho the lag-1 autocorrelation of the
+        # normalized innovations over the excitation window (effective sample size n (1 - rho)
+        # / (1 + rho); Box, Jenkins and Reinsel, Time Series Analysis, 4th ed. 2008, Sec. 2.1).
+        z = y / math.sqrt(S)
+        corr = self._corr
+        corr[0] = corr[0] * decay + z * self._z_prev
+        corr[1] = corr[1] * decay + z * z
+        self._z_prev = z
+        inflation = 1.0
+        if c.correlation_correction and corr[1] > 0.0:
+            rho = min(max(corr[0] / corr[1], 0.0), 0.998)
+            inflation = (1.0 + rho) / (1.0 - rho)
+        std = np.sqrt(np.maximum(P.diagonal(), 0.0) * inflation)
         converged = excited & (std < np.maximum(c.converged_std, c.converged_rel * np.abs(theta)))
         step = FilterStep(theta.copy(), std, y, S, nis, nis_avg,
                           (self._nis_lo[n], self._nis_hi[n]), R, excitation, excited,

@@ -173,8 +173,9 @@ class Pipeline:
         self._t_prev: float | None = None
         self._t_start: float | None = None
         self._point_prev: np.ndarray | None = None
-        self._contact_end: float = math.inf
+        self._contact_end: float = -math.inf   # time the last contact ended
         self._ever_contact = False
+        self._quiet_position = 0.0
         self._dt_avg = 0.0
         self._reject_times: deque[float] = deque(maxlen=1000)
         self._rejected_before = self.rejects.total
@@ -237,12 +238,16 @@ class Pipeline:
                 phase = "free"
                 # learn only from quiet free motion: a residual above the exit level may be a
                 # contact building up, and must not be learned as bias or noise
-                if not self.contact.pending and state.level < self.contact.exit_level:
+                # nor right after a contact ended (it may resume: a held object's force
+                # passing through zero)
+                if (not self.contact.pending and state.level < self.contact.exit_level
+                        and t - self._contact_end > self._forget_after):
                     self.bias.update(t, dt, raw)
                     residual = raw + self.bias.value
                     self.contact.learn_noise(dt, residual)
 
-        wrench = self.wrench_map.solve(dyn.jacobian, residual)
+        inv_var = 1.0 / self.contact.noise_var
+        wrench = self.wrench_map.solve(dyn.jacobian, residual, inv_var * (len(inv_var) / inv_var.sum()))
         if not math.isfinite(wrench.force.sum() + wrench.torque.sum()):
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
@@ -260,15 +265,18 @@ class Pipeline:
         step = self.filter.last
         if kin is not None:
             if event == "contact_begin":
-                if t - self._contact_end > self._forget_after:
-                    kin.start_contact()   # a new contact: x from here, estimates uncertain
-                    dx = 0.0
+                if not self._ever_contact or t - self._contact_end > self._forget_after:
+                    # a new contact: x from where the residual last was quiet (the contact
+                    # began there, before the monitor could tell); estimates uncertain again
+                    kin.start_contact(self._quiet_position)
                     if self._ever_contact:
                         self.filter.inflate("contact regained")
                 else:
                     event = "contact_resumed"
                 self._ever_contact = True
             kin.push(t, dx, velocity_along, force_along)
+            if phase != "contact" and contact_level < self.contact.exit_level:
+                self._quiet_position = kin.position
             if phase == "contact":
                 row = kin.aligned_row(dt)
                 if row is not None:
@@ -304,7 +312,8 @@ class Pipeline:
             converged = np.zeros(4, bool)
         verdict: Verdict = assess(HealthInputs(
             time=t, phase=phase, startup_remaining=max(self._startup - elapsed, 0.0),
-            since_contact_end=t - self._contact_end, excited=excited, converged=converged,
+            since_contact_end=t - self._contact_end if self._ever_contact else math.inf,
+            excited=excited, converged=converged,
             nis_average=nis_avg, nis_bounds=bounds, filter_samples=samples,
             jacobian_condition=wrench.condition, condition_limit=self._condition_limit,
             recent_rejects=len(self._reject_times), rate_hz=rate, min_rate_hz=self._min_rate,

@@ -171,7 +171,7 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("contact.hold_time", 0.02, "s",
        "The level must stay above contact.enter_level this long before contact begins.",
        0.0, 10.0),
-    _f("contact.release_time", 0.5, "s",
+    _f("contact.release_time", 1.0, "s",
        "The level must stay below contact.exit_level this long before contact ends (a held"
        " object's force passes through zero briefly without ending the contact).", 0.0, 60.0),
     _f("contact.forget_after", 2.0, "s",
@@ -205,7 +205,7 @@ SPECS: tuple[ParamSpec, ...] = (
     _fa("filter.initial_std", [20.0, 100.0, 1000.0, 100.0], "kg, N·s/m, N/m, N",
         "Prior standard deviation of [mass, damping, stiffness, static_force]; a parameter the"
         " motion does not excite keeps this prior.", 1e-9, 1e9, length=4),
-    _fa("filter.process_std", [0.05, 0.5, 5.0, 0.5], "kg/√s, N·s/m/√s, N/m/√s, N/√s",
+    _fa("filter.process_std", [0.01, 0.1, 1.0, 0.1], "kg/√s, N·s/m/√s, N/m/√s, N/√s",
         "Random-walk intensity of each parameter (how fast it may change): the process noise"
         " over dt seconds is diag(process_std^2) * dt. Start value when filter.process_adaptation"
         " is 'sage_husa'.", 0.0, 1e6, length=4),
@@ -238,7 +238,7 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("filter.change_drift", 2.0, "",
        "CUSUM drift subtracted from each NIS before accumulating (1 is the NIS mean).",
        0.0, 1e6),
-    _f("filter.change_inflation", 100.0, "",
+    _f("filter.change_inflation", 10.0, "",
        "Covariance is multiplied by this factor when a change is declared (or the contact"
        " starts again); no variance is taken beyond its prior.", 1.0, 1e12),
     _f("filter.excitation_window", 2.0, "s",
@@ -253,6 +253,9 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("filter.converged_rel_std", 0.05, "",
        "Relative standard deviation below which a parameter counts as converged.", 0.0, 10.0),
     _b("filter.nonnegative", True, "Keep mass, damping and stiffness non-negative."),
+    _b("filter.correlation_correction", True,
+       "Widen the reported standard deviations by the variance inflation factor of correlated"
+       " innovations (the observer and the differentiator colour the noise)."),
     # --- health ---------------------------------------------------------------------------
     _f("health.max_latency", 0.01, "s",
        "Processing latency above which the status warns.", 0.0, 10.0),

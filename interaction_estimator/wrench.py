@@ -39,13 +39,21 @@ class WrenchMap:
         self.damping2 = damping * damping
         self._zero3 = np.zeros(3)
 
-    def solve(self, jacobian: np.ndarray, external_torque: np.ndarray) -> Wrench:
-        """jacobian (6, nv) world-aligned; external_torque (nv,) N·m acting on the robot."""
+    def solve(self, jacobian: np.ndarray, external_torque: np.ndarray,
+              weights: np.ndarray | None = None) -> Wrench:
+        """jacobian (6, nv) world-aligned; external_torque (nv,) N·m acting on the robot.
+
+        weights (nv,), optional: per-joint weights W (inverse noise variances, normalized to
+        mean 1), giving the weighted damped least-squares solution
+        ``(J W J^T + lambda^2 I)^-1 J W tau_ext`` (Gauss-Markov: noisy joints, such as a heavy
+        mobile base's, count less).
+        """
         jac = jacobian if self.full_wrench else jacobian[:3]
+        jw = jac if weights is None else jac * weights
         # LAPACK's symmetric eigensolver called directly: numpy.linalg.eigh costs ~10x more in
         # Python overhead for a 3x3 matrix; one decomposition gives the solve and the condition.
-        w, vecs, _ = dsyev(jac @ jac.T)
-        f_ext = vecs @ ((vecs.T @ (jac @ external_torque)) / (w + self.damping2))
+        w, vecs, _ = dsyev(jw @ jac.T)
+        f_ext = vecs @ ((vecs.T @ (jw @ external_torque)) / (w + self.damping2))
         condition = float(np.sqrt(w[-1] / w[0])) if w[0] > 0.0 else float("inf")
         if self.full_wrench:
             return Wrench(-f_ext[:3], -f_ext[3:], condition)
@@ -139,10 +147,12 @@ class AlongKinematics:
         self.position = 0.0
         self._filtered: np.ndarray | None = None
 
-    def start_contact(self) -> None:
-        """Contact onset: x is measured from here; the alignment filter restarts."""
-        self.position = 0.0
-        self._x[:] = 0.0
+    def start_contact(self, origin: float) -> None:
+        """Contact onset: x is measured from ``origin`` (m, a past value of the running
+        position: where the contact began, before it was detected); the alignment filter
+        restarts."""
+        self.position -= origin
+        self._x -= origin
         self._filtered = None
 
     def push(self, t: float, dx: float, velocity: float, force: float) -> None:

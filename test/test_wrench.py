@@ -64,3 +64,17 @@ def test_contact_frame_direction_rotates_with_frame():
     d = Direction("contact", [0, 0, 2.0], 1.0, 10.0, 0.01)
     rot = np.array([[1, 0, 0], [0, 0, -1], [0, 1, 0]], float)  # 90 deg about x
     np.testing.assert_allclose(d.update(1e-3, rot, np.zeros(3)), [0, -1, 0], atol=1e-12)
+
+
+def test_weighted_map_is_generalized_least_squares():
+    # With weights W = 1/sigma^2 the map is the Gauss-Markov estimate: ordinary least squares
+    # (numpy.linalg.lstsq) on the rows scaled by 1/sigma.
+    rng = np.random.default_rng(3)
+    jac = rng.normal(size=(6, 10))
+    tau = rng.normal(size=10)
+    sigma = rng.uniform(0.05, 5.0, 10)
+    w = 1.0 / sigma**2
+    w *= len(w) / w.sum()
+    got = WrenchMap(full_wrench=False, damping=0.0).solve(jac, tau, w)
+    ref = np.linalg.lstsq(jac[:3].T / sigma[:, None], tau / sigma, rcond=None)[0]
+    np.testing.assert_allclose(got.force, -ref, atol=1e-10)
