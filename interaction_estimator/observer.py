@@ -96,6 +96,45 @@ class KalmanMomentumObserver:
         self._x = np.zeros((n, 3))
         self._P = np.zeros((n, 3, 3))
         self._beta = np.zeros(n)
+        self._shared: tuple[float, ...] | None = None
+        self._w6 = 0.0
+
+    def _step_shared(self, t: float, dt: float, momentum: np.ndarray, beta: np.ndarray,
+                     mean_r: float) -> tuple[np.ndarray, bool]:
+        """Fast path for one bandwidth on every joint: the covariance divided by R_i is the
+        same for all joints (Q and R both scale with R_i), so one 3x3 recursion in plain floats
+        gives every joint's gain. Effort noise enters with the joints' mean R; it is small next
+        to the velocity noise through M."""
+        p00, p01, p02, p11, p12, p22 = self._shared
+        a, b = dt, 0.5 * dt * dt
+        r00 = p00 + a * p01 + b * p02
+        r01 = p01 + a * p11 + b * p12
+        r02 = p02 + a * p12 + b * p22
+        r11 = p11 + a * p12
+        r12 = p12 + a * p22
+        q = a * self._w6
+        a2 = a * a
+        a3 = a2 * a
+        n00 = r00 + a * r01 + b * r02 + q * a3 * a2 / 20.0 + (self.effort_noise * a) ** 2 / mean_r
+        n01 = r01 + a * r02 + q * a2 * a2 / 8.0
+        n02 = r02 + q * a3 / 6.0
+        n11 = r11 + a * r12 + q * a3 / 3.0
+        n12 = r12 + q * a2 / 2.0
+        n22 = p22 + q * a
+        s = n00 + 1.0
+        k0, k1, k2 = n00 / s, n01 / s, n02 / s
+        self._shared = (n00 - k0 * n00, n01 - k0 * n01, n02 - k0 * n02, n11 - k1 * n01,
+                        n12 - k1 * n02, n22 - k2 * n02)
+        x = self._x
+        x0 = x[:, 0] + a * (x[:, 1] + 0.5 * (beta + self._beta)) + b * x[:, 2]
+        x1 = x[:, 1] + a * x[:, 2]
+        y = momentum - x0
+        x[:, 0] = x0 + k0 * y
+        x[:, 1] = x1 + k1 * y
+        x[:, 2] += k2 * y
+        self._t, self._beta = t, beta
+        self.residual = x[:, 1].copy()
+        return self.residual, False
 
     def _start(self, t: float, momentum: np.ndarray, beta: np.ndarray, r_var: np.ndarray) -> None:
         self._x[:, 0] = momentum
@@ -107,11 +146,22 @@ class KalmanMomentumObserver:
         self._P[:, 1, 1] = scale**2                    # (N·m)^2: tau_ext unknown at start
         self._P[:, 2, 2] = (scale * self.gain) ** 2    # (N·m/s)^2
         self._t, self._beta = t, beta
+        self._shared = None
+        if np.all(self.gain == self.gain[0]):  # covariance in units of R_i, shared by joints
+            d = self._P.diagonal(axis1=1, axis2=2) / r_var[:, None]
+            self._shared = (1.0, 0.0, 0.0, float(d[:, 1].max()), 0.0, float(d[:, 2].max()))
+            self._w6 = float(self.gain[0]) ** 6
 
     def step(self, t: float, momentum: np.ndarray, beta: np.ndarray,
              mass_matrix: np.ndarray) -> tuple[np.ndarray, bool]:
         """Advance to t (s); momentum p (nv,), beta = tau + C^T q' - g (nv,) N·m,
         mass_matrix (nv, nv). Returns (external torque estimate (nv,) N·m, restarted)."""
+        if self._shared is not None and self._t is not None:
+            dt = t - self._t
+            if 0.0 < dt <= self.max_gap:
+                mean_r = self.velocity_noise**2 * float(np.vdot(mass_matrix, mass_matrix)) / len(
+                    momentum) + 1e-12
+                return self._step_shared(t, dt, momentum, beta, mean_r)
         r_var = self.velocity_noise**2 * np.einsum("ij,ij->i", mass_matrix, mass_matrix) + 1e-12
         if self._t is None:
             self._start(t, momentum, beta, r_var)
@@ -220,6 +270,7 @@ class ContactMonitor:
 
     def reset(self) -> None:
         self.noise_var = np.full(self.nv, self.noise_floor**2)
+        self._weights: np.ndarray | None = None
         self.in_contact = False
         self._pending_since: float | None = None
 
@@ -236,6 +287,15 @@ class ContactMonitor:
         alpha = 1.0 - np.exp(-dt / self.noise_time_constant)
         self.noise_var += alpha * (residual * residual - self.noise_var)
         np.maximum(self.noise_var, self.noise_floor**2, out=self.noise_var)
+        self._weights = None
+
+    @property
+    def weights(self) -> np.ndarray:
+        """Per-joint weights 1/sigma_i^2 normalized to mean 1 (nv,), for the wrench map."""
+        if self._weights is None:
+            inv = 1.0 / self.noise_var
+            self._weights = inv * (len(inv) / inv.sum())
+        return self._weights
 
     def step(self, t: float, residual: np.ndarray) -> ContactState:
         level = math.sqrt(float(residual @ (residual / self.noise_var)) / self.nv)

@@ -122,6 +122,7 @@ class Pipeline:
         old_contact = getattr(self, "contact", None)
         if old_contact is not None:
             contact.noise_var = np.maximum(old_contact.noise_var, s["contact.noise_floor"] ** 2)
+            contact._weights = None
             contact.in_contact = old_contact.in_contact
         self.contact = contact
         self.wrench_map = WrenchMap(s["wrench.mode"] == "wrench", s["wrench.damping"])
@@ -246,8 +247,7 @@ class Pipeline:
                     residual = raw + self.bias.value
                     self.contact.learn_noise(dt, residual)
 
-        inv_var = 1.0 / self.contact.noise_var
-        wrench = self.wrench_map.solve(dyn.jacobian, residual, inv_var * (len(inv_var) / inv_var.sum()))
+        wrench = self.wrench_map.solve(dyn.jacobian, residual, self.contact.weights)
         if not math.isfinite(wrench.force.sum() + wrench.torque.sum()):
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",

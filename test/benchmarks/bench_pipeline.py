@@ -3,7 +3,8 @@
 Three figures from one run on the same samples:
   floor      the Pinocchio calls alone (crba, Coriolis matrix, gravity, joint Jacobians, frame
              placement and Jacobian), as RobotModel.dynamics makes them;
-  stage      model + momentum observer + wrench map (issue target: <= 3x floor);
+  stage      model + momentum observer (Kalman form, the default) + wrench map
+             (issue target: <= 3x floor);
   pipeline   the whole Pipeline.process, filter and health included (target: <= 4x floor).
 Then memory growth of the Pipeline over a long run (target: flat).
 Usage: python test/benchmarks/bench_pipeline.py [--samples N] [--memory-minutes M]
@@ -18,7 +19,7 @@ import numpy as np
 import pinocchio as pin
 
 from interaction_estimator.model import RobotModel
-from interaction_estimator.observer import MomentumObserver
+from interaction_estimator.observer import KalmanMomentumObserver
 from interaction_estimator.pipeline import Pipeline
 from interaction_estimator.samples import Sample
 from interaction_estimator.scenarios import marten
@@ -76,14 +77,17 @@ def main() -> None:
         pin.computeGeneralizedGravity(m, d, q)
         pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
 
-    obs = MomentumObserver(np.full(10, 40.0), 0.05)
+    defaults = Settings()
+    obs = KalmanMomentumObserver(np.full(10, defaults["observer.gain"][0]),
+                                 defaults["observer.velocity_noise"],
+                                 defaults["observer.effort_noise"], defaults["observer.max_gap"])
     wmap = WrenchMap(False, 1e-3)
 
     def stage(s):
         q, v, e = model.joint_map(s.names).apply(s)
         dyn = model.dynamics(q, v)
         r, _ = obs.step(s.time, dyn.mass_matrix @ v,
-                        e + dyn.coriolis_transpose_velocity - dyn.gravity)
+                        e + dyn.coriolis_transpose_velocity - dyn.gravity, dyn.mass_matrix)
         wmap.solve(dyn.jacobian, r)
 
     f = per_sample_us(floor, samples)
