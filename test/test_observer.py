@@ -86,3 +86,60 @@ def test_contact_monitor_hysteresis_and_hold():
     assert entered == [15]  # 10 ms after the first sample above 6
     assert left == [55]     # level 4 lies inside the band: contact holds until below 3 for 10 ms
     assert states[30].in_contact and states[44].in_contact and not states[-1].in_contact
+
+
+def test_kalman_form_equals_filterpy_step_for_step():
+    # The Kalman-form observer (state p, tau_ext, tau_ext') against filterpy's KalmanFilter
+    # (PyPI filterpy) with the same transition F(dt), process covariance (white jerk: the
+    # closed form of Bar-Shalom, Li and Kirubarajan 2001, Sec. 6.2) and momentum measurement,
+    # on irregular intervals.
+    from filterpy.kalman import KalmanFilter
+
+    from interaction_estimator.observer import KalmanMomentumObserver
+
+    w, sv, se, m = 70.0, 0.004, 0.2, 1.7
+    obs = KalmanMomentumObserver(np.array([w]), sv, se, max_gap=1.0)
+    rng = np.random.default_rng(9)
+    times = np.concatenate([[0.0], np.cumsum(rng.uniform(5e-4, 2e-3, 400))])
+    beta = rng.normal(size=len(times))
+    momentum = np.cumsum(rng.normal(scale=0.01, size=len(times)))
+    M = np.array([[m]])
+    r = (sv * m) ** 2 + 1e-12
+    kf = KalmanFilter(dim_x=3, dim_z=1, dim_u=1)
+    kf.x = np.array([[momentum[0]], [0.0], [0.0]])
+    kf.P = np.diag([r, 100.0, 100.0 * w * w])
+    kf.H = np.array([[1.0, 0.0, 0.0]])
+    kf.R = np.array([[r]])
+    obs.step(times[0], momentum[:1], beta[:1], M)
+    for k in range(1, len(times)):
+        dt = times[k] - times[k - 1]
+        kf.F = np.array([[1, dt, dt * dt / 2], [0, 1, dt], [0, 0, 1]])
+        qw = np.array([[dt**5 / 20, dt**4 / 8, dt**3 / 6], [dt**4 / 8, dt**3 / 3, dt**2 / 2],
+                       [dt**3 / 6, dt**2 / 2, dt]])
+        kf.Q = r * dt * w**6 * qw + np.diag([(se * dt) ** 2, 0.0, 0.0])
+        kf.predict(u=np.array([[0.5 * (beta[k] + beta[k - 1])]]), B=np.array([[dt], [0], [0]]))
+        kf.update(np.array([[momentum[k]]]))
+        got, _ = obs.step(times[k], momentum[k:k + 1], beta[k:k + 1], M)
+        assert got[0] == pytest.approx(kf.x[1, 0], rel=1e-9, abs=1e-9)
+
+
+def test_kalman_form_tracks_a_ramp_without_lag():
+    # Disturbance modelled as a doubly integrated random walk: a ramp of external torque is
+    # inside the model, so the steady-state error vanishes (internal model principle; Francis
+    # and Wonham, Automatica 1976). The first-order form lags a ramp by slope / K_O.
+    from interaction_estimator.observer import KalmanMomentumObserver
+
+    model = RobotModel(SLIDER, "cart")
+    kal = KalmanMomentumObserver(np.array([60.0]), 0.003, 0.1, max_gap=1.0)
+    first = MomentumObserver(np.array([60.0]), max_gap=1.0)
+    slope = 20.0  # N/s
+    for k in range(3001):
+        t = k * 1e-3
+        # Newton: m x'' = slope t  ->  v = slope t^2 / (2 m), x = slope t^3 / (6 m)
+        v = np.array([slope * t * t / (2 * MASS)])
+        dyn = model.dynamics(np.array([slope * t**3 / (6 * MASS)]), v)
+        beta = dyn.coriolis_transpose_velocity - dyn.gravity
+        rk, _ = kal.step(t, dyn.mass_matrix @ v, beta, dyn.mass_matrix)
+        rf, _ = first.step(t, dyn.mass_matrix @ v, beta)
+    assert rk[0] == pytest.approx(slope * 3.0, abs=1e-3)
+    assert rf[0] == pytest.approx(slope * 3.0 - slope / 60.0, abs=1e-3)  # lag slope / K_O
