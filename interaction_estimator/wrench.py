@@ -67,7 +67,8 @@ class Direction:
     orientation; 'estimated': principal direction of the contact point's velocity over
     ``window`` s (exponential forgetting), switched only when it turns by more than
     ``hysteresis_deg`` and the point travelled at least ``min_travel`` m within the window; its
-    sign keeps u pointing the way the point moves (or, before any motion, as the vector given).
+    sense is kept continuous from the vector given (motion back and forth does not flip it), or
+    taken from the net motion where the vector given is perpendicular to the motion.
     """
 
     def __init__(self, mode: str, vector, window: float, hysteresis_deg: float,
@@ -84,6 +85,7 @@ class Direction:
         self.u = self.vector.copy()
         self._moment = np.zeros((3, 3))   # forgetting sum of v v^T dt, m^2/s
         self._travel = 0.0                # forgetting sum of |v| dt, m
+        self._displacement = np.zeros(3)  # forgetting sum of v dt, m
 
     def update(self, dt: float, rotation: np.ndarray, point_velocity: np.ndarray) -> np.ndarray:
         """Return u after one sample (rotation (3,3) of the contact frame, velocity (3,) m/s)."""
@@ -95,12 +97,16 @@ class Direction:
         keep = np.exp(-dt / self.window)
         self._moment = keep * self._moment + dt * np.outer(point_velocity, point_velocity)
         self._travel = keep * self._travel + dt * float(np.linalg.norm(point_velocity))
+        self._displacement = keep * self._displacement + dt * point_velocity
         if self._travel >= self.min_travel:
             w, vecs = np.linalg.eigh(self._moment)
             d = vecs[:, -1]
-            if d @ point_velocity < 0.0 or (abs(d @ point_velocity) < 1e-12 and d @ self.u < 0):
+            # an axis, not an arrow: keep the sense u already has; where u is (nearly)
+            # perpendicular to it, take the sense of the net motion in the window
+            ref = self.u if abs(d @ self.u) > 0.1 else self._displacement
+            if d @ ref < 0.0:
                 d = -d
-            if abs(d @ self.u) < self.cos_hysteresis or d @ self.u < 0.0:
+            if d @ self.u < self.cos_hysteresis:
                 self.u = d
         return self.u
 

@@ -210,7 +210,7 @@ def _door() -> ScenarioSpec:
         description="Marten pulls a spring-closed storeroom door open by its handle and works it"
                     " back and forth along the arc.",
         duration=16.0, direction_kind="arc", direction=(-1.0, 0.0, 0.0),
-        settings={"direction.mode": "estimated"},
+        settings={"direction.mode": "estimated", "direction.vector": [-1.0, 0.0, 0.0]},
         free_time=2.0, contact_point=(0.90, -0.10, 0.95), start_offset=(-0.22, -0.12, 0.18),
         travel=phys["handle_radius_m"] * phys["open_angle_rad"],
         wiggles=(Wiggle(0.030, 0.45), Wiggle(0.008, 1.6)),
