@@ -247,7 +247,7 @@ SPECS: tuple[ParamSpec, ...] = (
         "RMS of each regressor [x'', x', x, 1] over the window below which that parameter"
         " counts as not excited: it is then not updated and keeps its prior.", 0.0, 1e9,
         length=4),
-    _fa("filter.converged_std", [0.2, 2.0, 20.0, 1.0], "kg, N·s/m, N/m, N",
+    _fa("filter.converged_std", [0.2, 1.0, 5.0, 0.5], "kg, N·s/m, N/m, N",
         "A parameter is converged when its standard deviation is below this value (or below"
         " filter.converged_rel_std of its magnitude) and it is excited.", 0.0, 1e9, length=4),
     _f("filter.converged_rel_std", 0.05, "",
