@@ -1,0 +1,273 @@
+"""``interaction-estimator``: the package's command line.
+
+Subcommands (each one an entry of :data:`COMMANDS`; a new one is one more entry):
+
+* ``run [--ros-args ...]``: the ROS 2 node (everything after ``run`` goes to it);
+* ``replay BAG [BAG ...] --out DIR``: offline estimates, summary and report from bags;
+* ``simulate SCENARIO --out BAG``: a built-in invented scenario written as a bag with its
+  ground truth.
+
+Exit codes: 0 success; 2 a usage error or bad input (the message names the value and what was
+expected); 1 an unexpected failure (a defect: please report it with the traceback).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable, Sequence
+
+PROG = "interaction-estimator"
+EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
+
+
+class UsageError(Exception):
+    """Bad input found after parsing; printed as ``PROG CMD: error: message``, exit 2."""
+
+
+@dataclass(frozen=True)
+class Command:
+    """A subcommand: its name, one-line help, argument set-up and what it does (-> exit code)."""
+
+    name: str
+    help: str
+    add_arguments: Callable[[argparse.ArgumentParser], None]
+    run: Callable[[argparse.Namespace], int]
+
+
+# --------------------------------------------------------------------------------------------
+# argument types (their messages name the bad value and what is expected)
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number; expected 1 or "
+                                         "more") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{value} is below 1; expected 1 or more")
+    return value
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number; expected an "
+                                         "integer >= 0") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{value} is negative; expected an integer >= 0")
+    return value
+
+
+def _seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds") from None
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"{text!r} s is not allowed; expected a positive "
+                                         "number of seconds")
+    return value
+
+
+def _hertz(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of Hz") from None
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"{text!r} Hz is not allowed; expected a positive "
+                                         "rate in Hz")
+    return value
+
+
+# --------------------------------------------------------------------------------------------
+# run
+
+
+def _run_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("ros_args", nargs=argparse.REMAINDER,
+                   help="passed to the node, e.g. --ros-args --params-file FILE -r "
+                        "__ns:=/marten")
+
+
+def _run(args: argparse.Namespace) -> int:
+    from .node import main as node_main
+    result = node_main(list(args.ros_args))
+    return int(result or 0)
+
+
+# --------------------------------------------------------------------------------------------
+# replay
+
+
+def _replay_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("bags", nargs="+", metavar="BAG", type=Path,
+                   help="rosbag2 bag (directory, .mcap or .db3); several run in parallel")
+    p.add_argument("--out", required=True, type=Path, metavar="DIR",
+                   help="output directory (one subdirectory per bag when several)")
+    p.add_argument("--params", type=Path, metavar="FILE",
+                   help="ROS 2 parameter YAML of the node (the same file as on the robot)")
+    p.add_argument("--urdf", type=Path, metavar="FILE",
+                   help="URDF of the robot (default: the bag's robot_description)")
+    p.add_argument("--topics", nargs="+", default=[], metavar="ROLE=TOPIC",
+                   help="topic of a role: joint_states, joint_efforts, robot_description, "
+                        "reference, parameters (e.g. joint_states=/marten/joint_states)")
+    p.add_argument("--reference-topic", metavar="TOPIC",
+                   help="WrenchStamped topic (world frame) to compare the force with "
+                        "(default: ground_truth/wrench when present)")
+    p.add_argument("--ignore-bag-settings", action="store_true",
+                   help="do not apply the settings recommended in a simulated bag's ground "
+                        "truth (only the defaults and --params)")
+    p.add_argument("--output-bag", action="store_true",
+                   help="also write the estimates as the node's topics into DIR/estimates_bag")
+    p.add_argument("--jobs", type=_positive_int, metavar="N",
+                   help="parallel processes for several bags (default: one per core)")
+    p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                   help="progress bar on stderr (default: only on a terminal)")
+
+
+def _replay(args: argparse.Namespace) -> int:
+    from .replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
+    common = dict(params=args.params, urdf=args.urdf, topics=tuple(args.topics),
+                  reference_topic=args.reference_topic, output_bag=args.output_bag,
+                  bag_settings=not args.ignore_bag_settings)
+    if len(args.bags) == 1:
+        try:
+            result = replay(ReplayRequest(args.bags[0], args.out, progress=args.progress,
+                                          **common))
+        except INPUT_ERRORS as exc:
+            raise UsageError(str(exc)) from None
+        print(format_summary(result.summary))
+        print(f"wrote {args.out}/estimates.csv, summary.json, report.html"
+              + (", estimates_bag" if args.output_bag else ""))
+        return EXIT_OK
+    names = subdir_names(args.bags)
+    requests = [ReplayRequest(b, args.out / n, progress=False, **common)
+                for b, n in zip(args.bags, names)]
+    jobs = args.jobs or min(len(requests), os.cpu_count() or 1)
+    errors: list[str] = []
+    try:
+        failed = replay_many(requests, args.out, jobs, errors.append)
+    except INPUT_ERRORS as exc:
+        raise UsageError(str(exc)) from None
+    for line in errors:
+        print(f"{PROG} replay: error: {line}", file=sys.stderr)
+    print(f"replayed {len(requests) - failed} of {len(requests)} bags into {args.out}/"
+          f"({', '.join(n for n in names)})")
+    return EXIT_USAGE if failed else EXIT_OK
+
+
+def format_summary(summary: dict) -> str:
+    """A short plain-text table of a summary (parameters, force RMSE, convergence)."""
+    from .environment import PARAMETER_NAMES
+    from .report import display
+    lines = [f"{'parameter':<13}{'estimate':>12}{'std':>11}{'truth':>11}{'converged':>11}"
+             f"{'after (s)':>11}"]
+    for p in PARAMETER_NAMES:
+        e = summary["parameters"][p]
+        lines.append(f"{p:<13}{display(e['final']):>12}{display(e['std']):>11}"
+                     f"{display(e['truth']):>11}{display(e['converged']):>11}"
+                     f"{display(e['time_to_convergence_s']):>11}")
+    f = summary["force"]
+    if f.get("reference"):
+        lines.append(f"force RMSE {display(f['rmse_N'])} N after bias learning, "
+                     f"{display(f['rmse_contact_N'])} N in contact ({f['reference']})")
+    lines.append(f"all four converged: {display(summary['converged'])}"
+                 + (f" (after {display(summary['time_to_convergence_s'])} s of contact)"
+                    if summary["time_to_convergence_s"] is not None else ""))
+    return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------------------------
+# simulate
+
+
+def _simulate_arguments(p: argparse.ArgumentParser) -> None:
+    from .scenarios.simulator import SCENARIOS
+    p.add_argument("scenario", metavar="SCENARIO", choices=sorted(SCENARIOS),
+                   help="one of: " + ", ".join(sorted(SCENARIOS)))
+    p.add_argument("--out", required=True, type=Path, metavar="BAG",
+                   help="bag to write (a new path)")
+    p.add_argument("--seed", type=_seed, default=0, help="noise and bias seed (default 0)")
+    p.add_argument("--duration", type=_seconds, metavar="S",
+                   help="length in s (default: the scenario's own)")
+    p.add_argument("--rate", type=_hertz, default=1000.0, metavar="HZ",
+                   help="joint-state rate in Hz (default 1000)")
+    p.add_argument("--storage", choices=("mcap", "sqlite3"), default="mcap",
+                   help="bag storage (default mcap)")
+    p.add_argument("--effort-side", choices=("link", "motor"), default="link",
+                   help="efforts from joint torque sensors (link) or motor currents (motor, "
+                        "with friction)")
+
+
+def _simulate(args: argparse.Namespace) -> int:
+    from .bag import BagError, write_simulated_bag
+    from .scenarios.simulator import SCENARIOS, simulate
+    # refuse a bad target before spending the simulation time on it
+    if args.out.exists():
+        raise UsageError(f"output bag {str(args.out)!r} exists already; expected a new path")
+    if not args.out.parent.is_dir():
+        raise UsageError(f"cannot write bag {str(args.out)!r}: directory "
+                         f"{str(args.out.parent)!r} does not exist")
+    try:
+        run = simulate(args.scenario, duration=args.duration, seed=args.seed, rate=args.rate,
+                       effort_side=args.effort_side)
+        write_simulated_bag(args.out, run, args.storage,
+                            description=SCENARIOS[args.scenario].description)
+    except (ValueError, BagError) as exc:
+        raise UsageError(str(exc)) from None
+    t = run.truth
+    print(f"wrote {args.out} ({args.storage}): scenario {args.scenario}, "
+          f"{run.time[-1]:.1f} s at {args.rate:g} Hz, {len(run.time)} joint states; truth "
+          f"mass {t['mass']:.4g} kg, damping {t['damping']:.4g} N·s/m, stiffness "
+          f"{t['stiffness']:.4g} N/m, static force {t['static_force']:.4g} N")
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------------------------
+
+COMMANDS: tuple[Command, ...] = (
+    Command("run", "run the ROS 2 node (arguments after 'run' go to it)", _run_arguments,
+            _run),
+    Command("replay", "estimate offline from recorded bags: CSV, summary and report",
+            _replay_arguments, _replay),
+    Command("simulate", "write a built-in invented scenario as a bag with ground truth",
+            _simulate_arguments, _simulate),
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog=PROG, description="Sensorless interaction-force and object-parameter estimation.")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for cmd in COMMANDS:
+        p = sub.add_parser(cmd.name, help=cmd.help, description=cmd.help)
+        cmd.add_arguments(p)
+        p.set_defaults(_command=cmd)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser()
+    if argv and argv[0] == "run":  # everything after 'run' belongs to the node, unparsed
+        args = argparse.Namespace(command="run", ros_args=argv[1:], _command=COMMANDS[0])
+    else:
+        args = parser.parse_args(argv)
+    try:
+        return args._command.run(args)
+    except UsageError as exc:
+        print(f"{PROG} {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print(f"{PROG} {args.command}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

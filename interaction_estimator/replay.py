@@ -1,0 +1,432 @@
+"""Offline replay: a recorded bag through the same Pipeline as the node, into files.
+
+``interaction-estimator replay BAG [BAG ...] --out DIR`` writes, per bag:
+
+* ``estimates.csv``: one row per processed sample (columns in :mod:`.estimates`);
+* ``summary.json``: final parameters with std, time to convergence, error against the ground
+  truth when the bag has it, force RMSE against a reference wrench, rejects by reason, samples,
+  duration and throughput;
+* ``report.html``: plots and the same table (:mod:`.report`);
+* ``estimates_bag/`` (with ``--output-bag``): the node's three output topics as an MCAP bag.
+
+With one bag, DIR holds these files; with several, DIR holds one subdirectory per bag (named
+after it) and the bags run in parallel processes (``--jobs``). Every output directory is built
+under a temporary name beside it and renamed when complete: a failed replay leaves no
+directory that looks like a result.
+
+Settings: the defaults, then the settings recommended in the bag's ground truth (simulated bags
+carry them), then ``--params FILE`` (ROS 2 parameter YAML, the node's file). URDF: ``--urdf
+FILE``, else the ``robot_description_file`` setting, else the bag's ``robot_description``.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import sys
+import tempfile
+import time
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, TextIO
+
+import numpy as np
+
+from .bag import BagError, BagWriter, GroundTruth, RecordedBag, TopicNames
+from .estimates import EstimateTable, ForceReference, summarize, write_csv
+from .model import ModelError
+from .pipeline import Pipeline
+from .samples import Sample
+from .settings import NODE_NAME, Settings, SettingsError, load_parameter_file
+
+OUTPUT_FILES = ("estimates.csv", "summary.json", "report.html")
+OUTPUT_BAG_DIR = "estimates_bag"
+NODE_TOPICS = {"wrench": f"/{NODE_NAME}/wrench", "environment": f"/{NODE_NAME}/environment",
+               "status": f"/{NODE_NAME}/status"}
+
+
+class ReplayError(ValueError):
+    """A replay cannot run as asked (bad input the user can fix); the message says why."""
+
+
+INPUT_ERRORS: tuple[type[Exception], ...] = (ReplayError, BagError, SettingsError, ModelError)
+
+
+@dataclass(frozen=True)
+class ReplayRequest:
+    """One bag to replay. bag: rosbag2 path; out: output directory; params: ROS 2 parameter
+    YAML or None; urdf: URDF file or None; topics: ``ROLE=TOPIC`` overrides; reference_topic:
+    WrenchStamped topic to compare with; output_bag: also write the estimates as a bag;
+    progress: show a progress bar on stderr (None: only when stderr is a terminal);
+    bag_settings: apply the settings recommended in the bag's ground truth (simulated bags)
+    beneath the parameter file; bag_label: how the bag is named in the outputs (default: its
+    path)."""
+
+    bag: Path
+    out: Path
+    params: Path | None = None
+    urdf: Path | None = None
+    topics: tuple[str, ...] = ()
+    reference_topic: str | None = None
+    output_bag: bool = False
+    progress: bool | None = None
+    bag_settings: bool = True
+    bag_label: str | None = None
+
+
+@dataclass
+class ReplayResult:
+    """What a replay produced: the summary dict, the columns and the output directory."""
+
+    summary: dict[str, Any]
+    columns: dict[str, np.ndarray]
+    out: Path
+    extras: dict[str, Any] = field(default_factory=dict)
+
+
+# --------------------------------------------------------------------------------------------
+# output directories
+
+
+def check_output_dir(out: Path) -> None:
+    """Refuse an output path that exists and is not an earlier result (or empty)."""
+    if out.exists():
+        if not out.is_dir():
+            raise ReplayError(f"output {str(out)!r} exists and is a file; expected a directory "
+                              "path (new, or an earlier replay's output to replace)")
+        entries = list(out.iterdir())
+        if entries and not (out / "summary.json").exists() and not (out / "runs.json").exists():
+            raise ReplayError(f"output directory {str(out)!r} exists and holds other files; "
+                              "expected a new directory or an earlier replay's output")
+    if not out.parent.exists():
+        raise ReplayError(f"cannot write to {str(out)!r}: directory {str(out.parent)!r} does "
+                          "not exist")
+
+
+class StagedDir:
+    """A directory written under a temporary name and moved to ``final`` on :meth:`commit`.
+
+    Anything already at ``final`` (an earlier result) is replaced only then. Without a commit
+    (an error), the temporary directory is removed.
+    """
+
+    def __init__(self, final: Path):
+        self.final = final
+        final.parent.mkdir(parents=True, exist_ok=True)
+        self.path = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".partial",
+                                          dir=final.parent))
+        self.committed = False
+
+    def commit(self) -> None:
+        old = None
+        if self.final.exists():
+            old = self.final.with_name(f".{self.final.name}.old-{os.getpid()}")
+            shutil.rmtree(old, ignore_errors=True)
+            os.replace(self.final, old)
+        os.replace(self.path, self.final)
+        self.committed = True
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+
+    def __enter__(self) -> "StagedDir":
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        if not self.committed:
+            shutil.rmtree(self.path, ignore_errors=True)
+
+
+# --------------------------------------------------------------------------------------------
+# settings and model
+
+
+def load_settings(params: Path | None, truth: GroundTruth | None,
+                  bag_settings: bool = True) -> tuple[Settings, list[str]]:
+    """Defaults <- the bag's recommended settings (unless ``bag_settings`` is False) <- the
+    parameter file. Returns the settings and a list naming the sources used."""
+    sources = ["defaults"]
+    base = Settings()
+    if bag_settings and truth is not None and truth.settings:
+        try:
+            base = base.replace(truth.settings)
+        except SettingsError as exc:
+            raise ReplayError(f"the bag's recommended settings are not valid: {exc}") from None
+        sources.append("bag ground truth (recommended settings)")
+    if params is not None:
+        base = load_parameter_file(params, base)
+        sources.append(f"parameter file {str(params)}")
+    return base, sources
+
+
+def load_urdf(urdf: Path | None, settings: Settings, bag: RecordedBag) -> tuple[str, str]:
+    """(URDF text, where it came from)."""
+    if urdf is not None:
+        try:
+            return Path(urdf).read_text(encoding="utf-8"), f"file {str(urdf)}"
+        except OSError as exc:
+            raise ReplayError(f"URDF file {str(urdf)!r} cannot be read: {exc.strerror}; "
+                              "expected a readable URDF file") from None
+    path = settings["robot_description_file"]
+    if path:
+        try:
+            return Path(path).read_text(encoding="utf-8"), f"robot_description_file {path}"
+        except OSError as exc:
+            raise ReplayError(f"robot_description_file {path!r} cannot be read: "
+                              f"{exc.strerror}") from None
+    text = bag.urdf()
+    if text is None:
+        raise ReplayError(f"bag {str(bag.path)!r} has no robot_description topic and no URDF "
+                          "was given; expected --urdf FILE (or robot_description_file in the "
+                          "parameter file, or a recorded robot_description)")
+    return text, f"bag topic {bag.info.robot_description}"
+
+
+def check_joint_names(pipeline: Pipeline, first: Sample, bag: RecordedBag) -> None:
+    model = pipeline.model.joint_names
+    missing = [j for j in model if j not in first.names]
+    if missing:
+        raise ReplayError(
+            f"the URDF does not match the bag: its joints {missing} are not in the joint states "
+            f"on {bag.info.joint_states!r}, which name {list(first.names)}; expected the URDF "
+            "of the recorded robot (--urdf FILE)")
+
+
+# --------------------------------------------------------------------------------------------
+# progress
+
+
+class Progress:
+    """A one-line progress bar on a stream (redrawn at most every 0.25 s)."""
+
+    def __init__(self, total: int, label: str, stream: TextIO = sys.stderr):
+        self.total, self.label, self.stream = max(total, 1), label, stream
+        self.start = time.perf_counter()
+        self._last = 0.0
+
+    def update(self, done: int, stamp_span: float) -> None:
+        now = time.perf_counter()
+        if now - self._last < 0.25 and done < self.total:
+            return
+        self._last = now
+        frac = min(done / self.total, 1.0)
+        width = 30
+        bar = "#" * int(frac * width) + "." * (width - int(frac * width))
+        wall = now - self.start
+        speed = f", {stamp_span / wall:.1f}x real time" if wall > 0 else ""
+        self.stream.write(f"\r{self.label} [{bar}] {100 * frac:5.1f} % {done}/{self.total}"
+                          f"{speed}")
+        self.stream.flush()
+
+    def close(self) -> None:
+        self.stream.write("\n")
+        self.stream.flush()
+
+
+# --------------------------------------------------------------------------------------------
+# the output bag (the node's messages, serialized by ROS 2 itself)
+
+
+class NodeOutputBag:
+    """Writes each Estimate as the node would publish it: ``~/wrench`` and ``~/environment`` per
+    sample, ``~/status`` at ``output.status_rate`` (message stamps; log time = sample stamp).
+    Uses the node's message definitions (:mod:`.node_messages`), so it needs rclpy."""
+
+    def __init__(self, path: Path, settings: Settings, pipeline: Pipeline):
+        try:
+            from rclpy.serialization import serialize_message
+
+            from . import node_messages as nm
+        except ImportError as exc:
+            raise ReplayError(f"--output-bag needs the ROS 2 Python messages (rclpy): {exc}; "
+                              "install them or leave --output-bag out") from None
+        self._nm, self._ser = nm, serialize_message
+        self.frame = settings["output.frame_id"] or pipeline.model.root_frame
+        rate = settings["output.status_rate"]
+        self._status_period = 0.0 if rate == 0 else 1.0 / rate
+        self._last_status = -math.inf
+        self._pipeline = pipeline
+        self._writer = BagWriter(path, "mcap")
+        self._writer.__enter__()
+
+    def add(self, est: Any) -> None:
+        nm, ser, w = self._nm, self._ser, self._writer
+        if not nm.outputs_finite(est):
+            return
+        stamp = nm.seconds_to_stamp(est.time)
+        ns = stamp.sec * 1_000_000_000 + stamp.nanosec
+        w.write(NODE_TOPICS["wrench"], "geometry_msgs/msg/WrenchStamped", ns,
+                ser(nm.wrench_message(est, self.frame, stamp)))
+        w.write(NODE_TOPICS["environment"], "std_msgs/msg/Float64MultiArray", ns,
+                ser(nm.environment_message(est)))
+        if est.time - self._last_status >= self._status_period:
+            self._last_status = est.time
+            p = self._pipeline
+            fig = nm.NodeFigures(node_name=NODE_NAME, rejects=dict(p.rejects.counts),
+                                 last_reject=p.rejects.last_message, frame_id=self.frame,
+                                 joints=len(p.model.joint_names),
+                                 contact_frame=p.model.contact_frame)
+            w.write(NODE_TOPICS["status"], "diagnostic_msgs/msg/DiagnosticStatus", ns,
+                    ser(nm.status_message(est, fig, hardware_id="replay")))
+
+    def close(self, ok: bool) -> None:
+        if ok:
+            self._writer.__exit__(None, None, None)
+        else:
+            self._writer.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
+
+# --------------------------------------------------------------------------------------------
+# one bag
+
+
+def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
+                 on_estimate: Callable[[Any], None] | None = None,
+                 progress: Progress | None = None) -> tuple[EstimateTable, int]:
+    """Feed every joint state of the bag through the pipeline; (table, samples read)."""
+    table = EstimateTable(bag.info.joint_state_count)
+    append = table.append
+    process = pipeline.process
+    read = 0
+    first_t = None
+    for sample in bag.samples(settings["input.stamp_tolerance"],
+                              True if settings["input.separate_efforts"] else None):
+        if read == 0:
+            first_t = sample.time
+        read += 1
+        est = process(sample)
+        if est is not None:
+            append(est)
+            if on_estimate is not None:
+                on_estimate(est)
+        if progress is not None and read % 500 == 0:
+            progress.update(read, sample.time - first_t)
+    return table, read
+
+
+def replay(req: ReplayRequest) -> ReplayResult:
+    """Replay one bag into ``req.out``; raises one of :data:`INPUT_ERRORS` on bad input."""
+    out = Path(req.out)
+    check_output_dir(out)
+    topics = TopicNames().with_overrides(req.topics)
+    t_start = time.perf_counter()
+    with RecordedBag(req.bag, topics, req.reference_topic) as bag, StagedDir(out) as stage:
+        truth = bag.truth()
+        settings, sources = load_settings(req.params, truth, req.bag_settings)
+        urdf, urdf_source = load_urdf(req.urdf, settings, bag)
+        pipeline = Pipeline(settings, urdf)
+        first = bag.samples()
+        check_joint_names(pipeline, next(first), bag)
+        first.close()
+        ref = bag.reference()
+        if ref is not None and ref.frame_id not in ("", pipeline.model.root_frame):
+            raise ReplayError(
+                f"reference topic {ref.topic!r} is in frame {ref.frame_id!r}; expected the "
+                f"world frame {pipeline.model.root_frame!r} (the URDF root) or an empty "
+                "frame_id, since the estimates are in the world frame")
+        out_bag = (NodeOutputBag(stage.path / OUTPUT_BAG_DIR, settings, pipeline)
+                   if req.output_bag else None)
+        show = sys.stderr.isatty() if req.progress is None else req.progress
+        progress = Progress(bag.info.joint_state_count, Path(req.bag).name) if show else None
+        ok = False
+        try:
+            table, read = run_pipeline(bag, pipeline, settings,
+                                       out_bag.add if out_bag else None, progress)
+            ok = True
+        finally:
+            if progress is not None:
+                progress.close()
+            if out_bag is not None:
+                out_bag.close(ok)
+        if len(table) == 0:
+            counts = {k: v for k, v in pipeline.rejects.counts.items() if v}
+            raise ReplayError(
+                f"none of the {read} joint states of bag {str(req.bag)!r} could be used "
+                f"(rejected: {counts}; last: {pipeline.rejects.last_message}); expected "
+                "joint states with finite positions, velocities and efforts in time order")
+        wall = time.perf_counter() - t_start
+        cols = table.columns()
+        reference = (ForceReference(f"bag topic {ref.topic}", ref.time, ref.force)
+                     if ref is not None else None)
+        source = {
+            "bag": req.bag_label or str(req.bag), "storage": bag.info.storage,
+            "joint_states_topic": bag.info.joint_states,
+            "efforts": ("joint_states" if bag.efforts_in_states
+                        and not settings["input.separate_efforts"]
+                        else f"topic {bag.info.joint_efforts}"),
+            "urdf": urdf_source, "settings": sources,
+            "settings_changed": _changed_settings(settings),
+            "truth": ("bag ground truth" if truth is not None else None),
+            "scenario": truth.extra.get("scenario") if truth is not None else None,
+            "tool": "replay",
+        }
+        summary = summarize(cols, truth=truth.parameters if truth else None,
+                            reference=reference, rejects=pipeline.rejects.counts,
+                            samples_read=read, wall_time=wall, source=source)
+        write_outputs(stage.path, summary, cols, reference)
+        stage.commit()
+    return ReplayResult(summary, cols, out)
+
+
+def write_outputs(directory: Path, summary: dict[str, Any], cols: dict[str, np.ndarray],
+                  reference: ForceReference | None, title: str | None = None) -> None:
+    """estimates.csv, summary.json and report.html into ``directory``."""
+    from .report import write_report
+    write_csv(directory / "estimates.csv", cols)
+    (directory / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False)
+                                            + "\n", encoding="utf-8")
+    write_report(directory / "report.html", summary, cols, reference, title=title)
+
+
+def _changed_settings(s: Settings) -> dict[str, Any]:
+    default = Settings()
+    return {k: v for k, v in s.to_flat().items() if v != default[k]}
+
+
+# --------------------------------------------------------------------------------------------
+# several bags
+
+
+def _replay_worker(req: ReplayRequest) -> tuple[str, dict[str, Any] | None, str]:
+    try:
+        return str(req.bag), replay(req).summary, ""
+    except INPUT_ERRORS as exc:
+        return str(req.bag), None, str(exc)
+
+
+def subdir_names(bags: list[Path]) -> list[str]:
+    """One distinct output subdirectory name per bag (its file or directory name)."""
+    names, used = [], set()
+    for b in bags:
+        base = Path(b).name
+        for suffix in (".mcap", ".db3"):
+            base = base[:-len(suffix)] if base.endswith(suffix) else base
+        name, k = base or "bag", 2
+        while name in used:
+            name, k = f"{base}-{k}", k + 1
+        used.add(name)
+        names.append(name)
+    return names
+
+
+def replay_many(requests: list[ReplayRequest], out: Path, jobs: int,
+                log: Callable[[str], None]) -> int:
+    """Replay several bags in parallel processes into ``out/<bag>/``; returns the number of
+    bags that failed (each failure is logged with its message)."""
+    check_output_dir(out)
+    out.mkdir(exist_ok=True)
+    results: list[tuple[str, dict[str, Any] | None, str]]
+    with ProcessPoolExecutor(max_workers=max(1, min(jobs, len(requests)))) as pool:
+        results = list(pool.map(_replay_worker, requests))
+    failed = 0
+    runs = []
+    for req, (bag, summary, error) in zip(requests, results):
+        if summary is None:
+            failed += 1
+            log(f"{bag}: {error}")
+        runs.append({"bag": bag, "out": str(req.out), "ok": summary is not None,
+                     "error": error or None})
+    if failed < len(requests):
+        (out / "runs.json").write_text(json.dumps(runs, indent=2) + "\n", encoding="utf-8")
+    return failed

@@ -1,0 +1,428 @@
+"""report.html: one self-contained page per replay (inline SVG plots, inline CSS, no scripts).
+
+The page shows, from top to bottom: a masthead (bag, scenario, source), a verdict strip, the
+parameter table (estimate, standard deviation, truth, error, convergence), the force and run
+tables, then four figures: estimated against reference force per world axis; each parameter
+with its +-2 standard-deviation band and the truth; the health timeline (state and level);
+the normalized innovation squared (NIS) average with its 95 % bounds.
+
+Every number in the tables comes from the summary dictionary that is also written as
+summary.json: each cell carries ``data-key`` (its dotted path in the summary) and ``data-value``
+(the exact JSON value), and shows the value rounded for reading. Plots are drawn with
+matplotlib's SVG backend; long runs are thinned per pixel column (minimum and maximum kept) so
+the file stays small.
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import html
+import io
+import json
+import math
+import re
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from .environment import PARAMETER_NAMES, PARAMETER_UNITS
+from .estimates import LEVEL_NAMES, STATES, ForceReference, match_reference
+
+# Our palette (hex): ink and paper, estimate, its band, the reference, the truth.
+INK = "#1d2731"
+PAPER = "#f6f4ef"
+PANEL = "#ffffff"
+ESTIMATE = "#0f6e7a"
+REFERENCE = "#d9822b"
+TRUTH = "#a4243b"
+BOUNDS = "#7b6aa8"
+STATE_COLOURS = {"learning_bias": "#8e7cc3", "free_motion": "#9aa5b1",
+                 "in_contact": "#4f86c6", "converged": "#2e7d4f", "contact_lost": "#c2543c"}
+LEVEL_COLOURS = {"OK": "#7cc16a", "WARN": "#e8b931", "ERROR": "#b5302a", "STALE": "#5d6873"}
+STATE_LABELS = {"learning_bias": "learning bias", "free_motion": "free motion",
+                "in_contact": "in contact", "converged": "converged",
+                "contact_lost": "contact lost"}
+PARAMETER_LABELS = {"mass": "Mass", "damping": "Damping", "stiffness": "Stiffness",
+                    "static_force": "Static force"}
+_MAX_POINTS = 1500  # per line, after thinning
+_DOT = " \u00b7 "
+SMOOTHING_WINDOW = 0.05  # s, trailing mean drawn over the per-sample force (display only)
+
+
+# --------------------------------------------------------------------------------------------
+# number formatting (display only; data-value keeps the exact number)
+
+
+def display(value: Any) -> str:
+    """How a summary value is shown: 4 significant digits, yes/no, or a dash for None."""
+    if value is None:
+        return "\u2014"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return "\u2014"
+        if value != 0 and (abs(value) >= 1e5 or abs(value) < 1e-3):
+            return f"{value:.3e}"
+        return f"{value:.4g}"
+    return str(value)
+
+
+def _cell(summary: Mapping[str, Any], key: str, css: str = "num") -> str:
+    value: Any = summary
+    for part in key.split("."):
+        value = value[part]
+    raw = json.dumps(value)
+    return (f'<td class="{css}" data-key="{html.escape(key)}" '
+            f'data-value="{html.escape(raw)}">{html.escape(display(value))}</td>')
+
+
+# --------------------------------------------------------------------------------------------
+# tables
+
+
+def parameter_table(summary: Mapping[str, Any]) -> str:
+    head = ("<tr><th>Parameter</th><th>Unit</th><th>Estimate</th><th>Std (1&sigma;)</th>"
+            "<th>Truth</th><th>Error</th><th>Relative error</th><th>Converged</th>"
+            "<th>Time to convergence (s)</th></tr>")
+    rows = []
+    for p in PARAMETER_NAMES:
+        k = f"parameters.{p}"
+        rows.append(
+            f"<tr><th scope=\"row\">{PARAMETER_LABELS[p]}</th>"
+            + _cell(summary, f"{k}.unit", "unit")
+            + "".join(_cell(summary, f"{k}.{f}") for f in
+                      ("final", "std", "truth", "error", "relative_error", "converged",
+                       "time_to_convergence_s"))
+            + "</tr>")
+    return (f'<table class="grid" id="parameters"><thead>{head}</thead><tbody>'
+            + "".join(rows) + "</tbody></table>")
+
+
+def _pairs_table(summary: Mapping[str, Any], table_id: str,
+                 items: Sequence[tuple[str, str]]) -> str:
+    rows = "".join(f"<tr><th scope=\"row\">{html.escape(label)}</th>{_cell(summary, key)}</tr>"
+                   for label, key in items)
+    return f'<table class="pairs" id="{table_id}"><tbody>{rows}</tbody></table>'
+
+
+def force_table(summary: Mapping[str, Any]) -> str:
+    if summary["force"].get("reference") is None:
+        return '<p class="note" id="force-none">No reference wrench in this bag: name one ' \
+               "with --reference-topic to get force errors.</p>"
+    return _pairs_table(summary, "force", (
+        ("Reference", "force.reference"), ("Matched samples", "force.matched_samples"),
+        ("RMSE after bias learning (N)", "force.rmse_N"),
+        ("RMSE in contact (N)", "force.rmse_contact_N"),
+        ("Largest error in contact (N)", "force.max_error_contact_N")))
+
+
+def run_table(summary: Mapping[str, Any]) -> str:
+    items = [("Joint states read", "run.samples_read"),
+             ("Samples estimated", "run.samples_estimated"),
+             ("Samples rejected", "run.samples_rejected"),
+             ("Duration of the stamps (s)", "run.duration_s"),
+             ("First contact at (s)", "first_contact_s"),
+             ("All four converged after (s)", "time_to_convergence_s"),
+             ("Wall time (s)", "run.wall_time_s"),
+             ("Throughput (samples/s)", "run.throughput_samples_per_s"),
+             ("Times real time", "run.real_time_factor")]
+    items += [(f"Rejected: {reason.replace('_', ' ')}", f"rejects.{reason}")
+              for reason, n in summary["rejects"].items() if n]
+    return _pairs_table(summary, "run", items)
+
+
+# --------------------------------------------------------------------------------------------
+# plots
+
+
+def _thin(t: np.ndarray, *ys: np.ndarray, points: int = _MAX_POINTS
+          ) -> tuple[np.ndarray, ...]:
+    """Keep at most about ``points`` samples: per bucket the first sample plus, for the first
+    series, its minimum and maximum (so short spikes stay visible)."""
+    n = len(t)
+    if n <= points:
+        return (t, *ys)
+    buckets = points // 3
+    edges = np.linspace(0, n, buckets + 1).astype(int)
+    keep = []
+    y0 = ys[0] if ys else None
+    for a, b in zip(edges[:-1], edges[1:]):
+        if b <= a:
+            continue
+        keep.append(a)
+        if y0 is not None:
+            seg = y0[a:b]
+            if np.isfinite(seg).any():
+                keep.append(a + int(np.nanargmin(seg)))
+                keep.append(a + int(np.nanargmax(seg)))
+    keep.append(n - 1)
+    idx = np.unique(np.array(keep))
+    return (t[idx], *(y[idx] for y in ys))
+
+
+def _figure(rows: int, cols: int, height: float, bottom: float = 0.5, hspace: float = 0.45):
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+    plt.rcParams.update({
+        "svg.fonttype": "none", "svg.hashsalt": "interaction-estimator",
+        "font.size": 9, "axes.edgecolor": "#8a949e", "axes.labelcolor": INK,
+        "xtick.color": INK, "ytick.color": INK, "axes.titlesize": 10,
+        "axes.titleweight": "bold", "axes.titlelocation": "left",
+        "axes.spines.top": False, "axes.spines.right": False,
+        "axes.grid": True, "grid.color": "#e3e0d8", "grid.linewidth": 0.6,
+        "legend.frameon": False, "figure.facecolor": PANEL, "axes.facecolor": PANEL,
+    })
+    fig, axes = plt.subplots(rows, cols, figsize=(9.6, height), squeeze=False)
+    # fixed margins (in inches, turned into fractions): much cheaper than an automatic layout
+    fig.subplots_adjust(left=0.75 / 9.6, right=1 - 0.2 / 9.6, bottom=bottom / height,
+                        top=1 - 0.35 / height, hspace=hspace, wspace=0.18)
+    return fig, axes
+
+
+def _svg(fig) -> str:
+    import matplotlib.pyplot as plt
+    buf = io.StringIO()
+    fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
+    plt.close(fig)
+    text = buf.getvalue()
+    text = text[text.index("<svg"):]  # drop the XML prolog and doctype: inline SVG in HTML
+    return re.sub(r"\s*<metadata>.*?</metadata>", "", text, count=1, flags=re.S)
+
+
+def force_figure(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> str:
+    t = cols["time"]
+    t0 = float(t[0]) if len(t) else 0.0
+    fig, axes = _figure(3, 1, 5.4)
+    dt = float(np.median(np.diff(t))) if len(t) > 1 else 1.0
+    width = max(1, int(round(SMOOTHING_WINDOW / dt))) if dt > 0 else 1
+    for i, axis in enumerate("xyz"):
+        ax = axes[i, 0]
+        raw = cols[f"force_{axis}"]
+        et, ey = _thin(t - t0, raw)
+        ax.plot(et, ey, color=ESTIMATE, lw=0.6, alpha=0.3, label="estimate, each sample")
+        if width > 1 and len(raw) > width:
+            mean = np.convolve(raw, np.ones(width) / width, mode="valid")
+            mt, my = _thin(t[width - 1:] - t0, mean)
+            ax.plot(mt, my, color=ESTIMATE, lw=1.2,
+                    label=f"estimate, {SMOOTHING_WINDOW * 1e3:.0f} ms trailing mean")
+        if ref is not None:
+            rt, ry = _thin(ref.time - t0, ref.force[:, i])
+            ax.plot(rt, ry, color=REFERENCE, lw=1.5, label="reference", zorder=5)
+        ax.set_ylabel(f"force {axis} (N)")
+        if i == 0:
+            ax.set_title("Force the robot applies, world frame")
+            ax.legend(loc="upper left", ncols=3)
+    axes[-1, 0].set_xlabel("time since first sample (s)")
+    return _svg(fig)
+
+
+def parameter_figure(cols: Mapping[str, np.ndarray], summary: Mapping[str, Any]) -> str:
+    t = cols["time"]
+    t0 = float(t[0]) if len(t) else 0.0
+    fig, axes = _figure(2, 2, 5.6)
+    for k, (p, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
+        ax = axes[k // 2, k % 2]
+        value, std = cols[p], cols[f"{p}_std"]
+        tt, v, s = _thin(t - t0, value, std)
+        ax.fill_between(tt, v - 2 * s, v + 2 * s, color=ESTIMATE, alpha=0.18, lw=0,
+                        label="\u00b12 std")
+        ax.plot(tt, v, color=ESTIMATE, lw=1.2, label="estimate")
+        truth = summary["parameters"][p]["truth"]
+        if truth is not None:
+            ax.axhline(truth, color=TRUTH, lw=1.4, ls=(0, (5, 3)), label="truth")
+        finite = v[np.isfinite(v)]
+        if len(finite):  # keep the prior's wide band from flattening the estimate
+            lo = min(float(np.min(finite)), truth if truth is not None else np.inf)
+            hi = max(float(np.max(finite)), truth if truth is not None else -np.inf)
+            pad = 0.25 * (hi - lo) + 0.05 * max(abs(hi), abs(lo), 1e-3)
+            ax.set_ylim(lo - pad, hi + pad)
+        ax.set_title(f"{PARAMETER_LABELS[p]} ({unit})")
+        if k == 0:
+            ax.legend(loc="upper left", ncols=3)
+        if k >= 2:
+            ax.set_xlabel("time since first sample (s)")
+    return _svg(fig)
+
+
+def _runs(values: Sequence[Any]) -> list[tuple[int, int, Any]]:
+    """(start, end, value) of each run of equal values."""
+    out, start = [], 0
+    for i in range(1, len(values) + 1):
+        if i == len(values) or values[i] != values[start]:
+            out.append((start, i, values[start]))
+            start = i
+    return out
+
+
+def health_figure(cols: Mapping[str, np.ndarray]) -> str:
+    t = cols["time"]
+    t0 = float(t[0]) if len(t) else 0.0
+    fig, axes = _figure(1, 1, 2.1, bottom=0.95)
+    ax = axes[0, 0]
+    end = np.append(t[1:], t[-1]) - t0 if len(t) else t
+    states = list(cols["state"])
+    levels = [LEVEL_NAMES[int(x)] if math.isfinite(x) and 0 <= int(x) < 4 else "?"
+              for x in cols["level"]]
+    seen_states, seen_levels = [], []
+    for a, b, s in _runs(states):
+        colour = STATE_COLOURS.get(s, "#cccccc")
+        ax.broken_barh([(t[a] - t0, end[b - 1] - (t[a] - t0))], (1.1, 0.8), color=colour)
+        if s not in seen_states:
+            seen_states.append(s)
+    for a, b, lev in _runs(levels):
+        ax.broken_barh([(t[a] - t0, end[b - 1] - (t[a] - t0))], (0.1, 0.8),
+                       color=LEVEL_COLOURS.get(lev, "#cccccc"))
+        if lev not in seen_levels:
+            seen_levels.append(lev)
+    ax.set_yticks([0.5, 1.5], ["level", "state"])
+    ax.set_ylim(0, 2)
+    ax.grid(False)
+    ax.set_xlabel("time since first sample (s)")
+    ax.set_title("Health timeline")
+    from matplotlib.patches import Patch
+    handles = [Patch(color=STATE_COLOURS.get(s, "#cccccc"), label=STATE_LABELS.get(s, s))
+               for s in STATES if s in seen_states]
+    handles += [Patch(color=LEVEL_COLOURS[lev], label=lev) for lev in LEVEL_NAMES
+                if lev in seen_levels]
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55),
+              ncols=min(len(handles), 9), fontsize=8)
+    return _svg(fig)
+
+
+def nis_figure(cols: Mapping[str, np.ndarray]) -> str:
+    t = cols["time"]
+    t0 = float(t[0]) if len(t) else 0.0
+    fig, axes = _figure(1, 1, 2.6)
+    ax = axes[0, 0]
+    avg, lo, hi = cols["nis_average"], cols["nis_lower"], cols["nis_upper"]
+    used = np.isfinite(avg) & np.isfinite(hi) & (avg > 0)
+    if used.any():
+        tt, a, lw, up = _thin(t[used] - t0, avg[used], lo[used], hi[used])
+        ax.fill_between(tt, lw, up, color=BOUNDS, alpha=0.2, lw=0, label="95 % bounds")
+        ax.plot(tt, a, color=ESTIMATE, lw=1.2, label="NIS average")
+        ax.axhline(1.0, color=INK, lw=0.6, ls=":")
+        ax.set_yscale("log")
+        ax.legend(loc="upper right", ncols=2)
+    else:
+        ax.text(0.5, 0.5, "no filter updates (no contact)", ha="center", va="center",
+                transform=ax.transAxes, color=INK)
+    ax.set_title("Normalized innovation squared (consistency of the filter)")
+    ax.set_xlabel("time since first sample (s)")
+    return _svg(fig)
+
+
+# --------------------------------------------------------------------------------------------
+# the page
+
+_CSS = f"""
+:root {{ --ink: {INK}; --paper: {PAPER}; --panel: {PANEL}; --accent: {ESTIMATE}; }}
+* {{ box-sizing: border-box; }}
+body {{ margin: 0; background: var(--paper); color: var(--ink);
+  font: 15px/1.45 "DejaVu Sans", "Liberation Sans", sans-serif; }}
+.masthead {{ background: var(--ink); color: #f6f4ef; padding: 18px 32px 14px;
+  border-bottom: 5px solid var(--accent); }}
+.masthead h1 {{ margin: 0; font-size: 22px; letter-spacing: 0.02em; }}
+.masthead p {{ margin: 4px 0 0; opacity: 0.8; font-size: 13px; }}
+main {{ max-width: 1040px; margin: 0 auto; padding: 18px 24px 40px; }}
+.verdict {{ display: flex; gap: 12px; flex-wrap: wrap; margin: 6px 0 18px; }}
+.chip {{ padding: 6px 12px; border-radius: 3px; background: var(--panel);
+  border-left: 6px solid var(--chip); font-weight: bold; }}
+section {{ background: var(--panel); margin: 0 0 18px; padding: 14px 18px;
+  border: 1px solid #e3e0d8; }}
+h2 {{ font-size: 16px; margin: 0 0 10px; color: var(--accent); text-transform: uppercase;
+  letter-spacing: 0.06em; }}
+table {{ border-collapse: collapse; font-size: 14px; }}
+table.grid {{ width: 100%; }}
+table.grid th, table.grid td {{ padding: 5px 8px; border-bottom: 1px solid #ece9e2; }}
+table.grid thead th {{ text-align: right; font-size: 12px; color: #56606a;
+  border-bottom: 2px solid var(--ink); }}
+table.grid thead th:first-child, table.grid tbody th {{ text-align: left; }}
+table.pairs th {{ text-align: left; font-weight: normal; padding: 3px 18px 3px 0;
+  color: #56606a; }}
+td.num {{ text-align: right; font-variant-numeric: tabular-nums; }}
+td.unit {{ text-align: right; color: #56606a; }}
+.two {{ display: grid; grid-template-columns: 1fr 1fr; gap: 18px; }}
+.note {{ color: #56606a; font-size: 13px; }}
+figure {{ margin: 0; }}
+figure svg {{ width: 100%; height: auto; display: block; }}
+figcaption {{ font-size: 12px; color: #56606a; margin-top: 4px; }}
+footer {{ font-size: 12px; color: #56606a; }}
+"""
+
+
+def _chip(text: str, colour: str) -> str:
+    return f'<span class="chip" style="--chip: {colour}">{html.escape(text)}</span>'
+
+
+def build_report(summary: Mapping[str, Any], cols: Mapping[str, np.ndarray],
+                 reference: ForceReference | None, title: str | None = None) -> str:
+    """The report page as HTML text."""
+    src = summary.get("source", {})
+    bag_name = Path(str(src.get("bag", "run"))).name
+    heading = title or f"Interaction estimate \u2014 {bag_name}"
+    sub = [f"bag {src.get('bag', '?')}"]
+    if src.get("scenario"):
+        sub.append(f"scenario {src['scenario']}")
+    sub.append(f"{src.get('tool', 'replay')}, {_dt.date.today().isoformat()}")
+    conv = summary.get("time_to_convergence_s")
+    verdict = _chip("all four parameters converged" + (f" after {conv:.2f} s of contact"
+                                                       if conv is not None else "")
+                    if summary.get("converged") else "not all parameters converged at the end",
+                    STATE_COLOURS["converged"] if summary.get("converged")
+                    else STATE_COLOURS["contact_lost"])
+    final_state = summary.get("final_state") or "?"
+    verdict += _chip(f"final state: {STATE_LABELS.get(final_state, final_state)}",
+                     STATE_COLOURS.get(final_state, "#cccccc"))
+    level = summary.get("final_level") or "?"
+    verdict += _chip(f"final level: {level}", LEVEL_COLOURS.get(level, "#cccccc"))
+    changed = src.get("settings_changed") or {}
+    settings_text = ", ".join(f"{k} = {v}" for k, v in sorted(changed.items())) or "defaults"
+    parts = [
+        "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{html.escape(heading)}</title><style>{_CSS}</style></head><body>",
+        f'<header class="masthead"><h1>{html.escape(heading)}</h1>'
+        f"<p>{html.escape(_DOT.join(sub))}</p></header><main>",
+        f'<div class="verdict">{verdict}</div>',
+        '<section><h2>Object parameters</h2>', parameter_table(summary),
+        '<p class="note">Estimate and standard deviation at the last sample; time to '
+        "convergence counts from the first contact. Error = estimate \u2212 truth.</p>"
+        "</section>",
+        '<section class="two"><div><h2>Force</h2>', force_table(summary),
+        "</div><div><h2>Run</h2>", run_table(summary), "</div></section>",
+        '<section><h2>Force, estimate and reference</h2><figure id="fig-force">',
+        force_figure(cols, reference),
+        "<figcaption>Force the robot applies to the object, world frame, N: each sample "
+        f"(light), its {SMOOTHING_WINDOW * 1e3:.0f} ms trailing mean (for reading only; the "
+        "tables use every sample) and the reference.</figcaption>"
+        "</figure></section>",
+        '<section><h2>Parameters</h2><figure id="fig-parameters">',
+        parameter_figure(cols, summary),
+        "<figcaption>Estimate with its \u00b12 standard-deviation band; dashed: the "
+        "truth, where known.</figcaption></figure></section>",
+        '<section><h2>Health</h2><figure id="fig-health">', health_figure(cols),
+        "<figcaption>Upper band: the health state word; lower band: the level "
+        "(OK, WARN, ERROR, STALE).</figcaption></figure></section>",
+        '<section><h2>Filter consistency</h2><figure id="fig-nis">', nis_figure(cols),
+        "<figcaption>Average NIS over the filter's window against its two-sided 95 % "
+        "chi-square interval; inside the band the noise model fits.</figcaption>"
+        "</figure></section>",
+        f"<footer><p>Settings changed from the defaults: {html.escape(settings_text)}.</p>"
+        f"<p>URDF: {html.escape(str(src.get('urdf', '?')))}. Efforts: "
+        f"{html.escape(str(src.get('efforts', '?')))}.</p>"
+        "<p>The estimates are not a safety function.</p></footer>",
+        "</main></body></html>",
+    ]
+    return "\n".join(parts) + "\n"
+
+
+def write_report(path: Path, summary: Mapping[str, Any], cols: Mapping[str, np.ndarray],
+                 reference: ForceReference | None, title: str | None = None) -> None:
+    Path(path).write_text(build_report(summary, cols, reference, title), encoding="utf-8")
+
+
+__all__ = ["build_report", "write_report", "display", "match_reference"]

@@ -1,0 +1,164 @@
+"""Replay throughput on a long 1 kHz bag of the demo robot, beside the floor (prints, asserts nothing).
+
+Builds a bag of the mobile Marten (10 joints) moving for ``--minutes`` at 1 kHz, in contact with
+an invented spring-damper object from t = 2 s on (efforts by Pinocchio inverse dynamics plus the
+contact torque, with noise), then measures in the same run:
+
+  decode     reading the bag and decoding every JointState (the replay's reader and decoder),
+             and, messages in memory, that decoder beside rosbags' deserializer (20000 of them);
+  floor      decode plus the Pinocchio calls alone (RobotModel.joint_map + dynamics per sample);
+  replay     the whole ``replay`` (pipeline, estimates.csv, summary.json, report.html), and its
+             pipeline loop alone.
+
+Figures: wall seconds, microseconds per sample, times real time, ratio to the floor.
+Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR]
+"""
+from __future__ import annotations
+
+import argparse
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+
+from interaction_estimator.bag import (JOINT_STATE, STRING, BagWriter, JointStateDecoder,
+                                       JointStateEncoder, RecordedBag, encode_string,
+                                       seconds_to_stamp, typestore)
+from interaction_estimator.model import RobotModel
+from interaction_estimator.pipeline import Pipeline
+from interaction_estimator.replay import ReplayRequest, replay, run_pipeline
+from interaction_estimator.scenarios import marten
+from interaction_estimator.settings import Settings
+
+RATE = 1000.0  # Hz
+
+
+def write_bag(path: Path, minutes: float) -> int:
+    """The synthetic long bag; returns the number of joint states."""
+    urdf = marten.mobile_urdf()
+    model = RobotModel(urdf, marten.CONTACT_FRAME)
+    names = model.joint_names
+    rng = np.random.default_rng(0)
+    n = int(minutes * 60 * RATE)
+    rest = np.array([0, 0, 0, 0.1, 0.5, 0.0, 1.2, 0.0, 0.6, 0.0])
+    amp = np.array([0.02, 0.02, 0.05, 0.15, 0.1, 0.1, 0.15, 0.1, 0.1, 0.1])
+    freq = 2 * np.pi * np.array([0.11, 0.13, 0.07, 0.31, 0.23, 0.37, 0.29, 0.41, 0.43, 0.47])
+    enc = JointStateEncoder()
+    x0 = None
+    with BagWriter(path, "mcap") as w:
+        w.write("/robot_description", STRING, 0, encode_string(urdf), transient_local=True)
+        for k in range(n):
+            t = k / RATE
+            ang = rest + amp * np.sin(freq * t)
+            vel = amp * freq * np.cos(freq * t)
+            acc = -amp * freq**2 * np.sin(freq * t)
+            q = model.configuration_from_angles(ang)
+            tau = pin.rnea(model.model, model.data, q, vel, acc).copy()
+            if t >= 2.0:  # the robot pushes an invented object along world x
+                dyn = model.dynamics(q, vel)
+                x0 = dyn.position[0] if x0 is None else x0
+                xd = float(dyn.jacobian[0] @ vel)
+                f = 12.0 + 300.0 * (dyn.position[0] - x0) + 20.0 * xd
+                tau += dyn.jacobian[:3].T @ np.array([f, 0.0, 0.0])
+            sec, nsec = seconds_to_stamp(1.0 + t)
+            w.write("/joint_states", JOINT_STATE, sec * 1_000_000_000 + nsec,
+                    enc.encode(sec, nsec, "", names, ang, vel + rng.normal(0, 0.003, 10),
+                               tau + rng.normal(0, 0.1, 10)))
+    return n
+
+
+def decode_pass(path: Path) -> float:
+    t0 = time.perf_counter()
+    with RecordedBag(path) as bag:
+        for _ in bag.samples():
+            pass
+    return time.perf_counter() - t0
+
+
+def decoders(path: Path, limit: int = 20000) -> tuple[float, float]:
+    """Microseconds per JointState, messages already in memory (the first ``limit``): the
+    replay's CDR decoder, and rosbags' generic deserializer."""
+    ts = typestore()
+    with RecordedBag(path) as bag:
+        raws = []
+        for _, _, raw in bag._messages(bag.info.joint_states):
+            raws.append(bytes(raw))
+            if len(raws) >= limit:
+                break
+    dec = JointStateDecoder()
+    t0 = time.perf_counter()
+    for raw in raws:
+        dec.decode(raw)
+    fast = (time.perf_counter() - t0) / len(raws) * 1e6
+    t0 = time.perf_counter()
+    for raw in raws:
+        ts.deserialize_cdr(raw, JOINT_STATE)
+    return fast, (time.perf_counter() - t0) / len(raws) * 1e6
+
+
+def floor_pass(path: Path) -> float:
+    t0 = time.perf_counter()
+    with RecordedBag(path) as bag:
+        model = RobotModel(bag.urdf(), marten.CONTACT_FRAME)
+        for s in bag.samples():
+            q, v, _ = model.joint_map(s.names).apply(s)
+            model.dynamics(q, v)
+    return time.perf_counter() - t0
+
+
+def loop_pass(path: Path, settings: Settings) -> float:
+    t0 = time.perf_counter()
+    with RecordedBag(path) as bag:
+        pipeline = Pipeline(settings, bag.urdf())
+        run_pipeline(bag, pipeline, settings)
+    return time.perf_counter() - t0
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--minutes", type=float, default=10.0,
+                        help="bag length in minutes at 1 kHz (default 10)")
+    parser.add_argument("--keep", type=Path, help="keep the bag and the replay output here")
+    args = parser.parse_args(argv)
+    work = Path(tempfile.mkdtemp(prefix="bench_replay."))
+    try:
+        bag = work / "marten_long"
+        t0 = time.perf_counter()
+        n = write_bag(bag, args.minutes)
+        duration = (n - 1) / RATE
+        size = sum(p.stat().st_size for p in bag.iterdir()) / 1e6
+        print(f"bag: {n} joint states, {duration:.0f} s at {RATE:.0f} Hz, {size:.0f} MB MCAP, "
+              f"built in {time.perf_counter() - t0:.1f} s")
+        settings = Settings({"direction.mode": "world", "direction.vector": [1.0, 0.0, 0.0]})
+        decode = decode_pass(bag)
+        fast, generic = decoders(bag)
+        floor = floor_pass(bag)
+        loop = loop_pass(bag, settings)
+        t0 = time.perf_counter()
+        params = work / "params.yaml"
+        params.write_text("/**:\n  ros__parameters:\n    direction:\n      mode: world\n"
+                          "      vector: [1.0, 0.0, 0.0]\n")
+        replay(ReplayRequest(bag, work / "out", params=params, progress=False))
+        full = time.perf_counter() - t0
+
+        def row(label: str, wall: float) -> str:
+            return (f"{label:<34}{wall:9.1f} s {wall / n * 1e6:9.1f} us/sample "
+                    f"{duration / wall:8.1f}x real time {wall / floor:7.2f}x floor")
+        print(f"JointState decoding, messages in memory: replay's decoder {fast:.1f} us, "
+              f"rosbags deserializer {generic:.1f} us per message")
+        print(row("decode (read + decode)", decode))
+        print(row("floor (decode + Pinocchio)", floor))
+        print(row("replay pipeline loop", loop))
+        print(row("replay, all outputs", full))
+        if args.keep:
+            shutil.copytree(work, args.keep, dirs_exist_ok=True)
+            print(f"kept in {args.keep}")
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
