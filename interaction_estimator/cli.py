@@ -5,7 +5,9 @@ Subcommands (each one an entry of :data:`COMMANDS`; a new one is one more entry)
 * ``run [--ros-args ...]``: the ROS 2 node (everything after ``run`` goes to it);
 * ``replay BAG [BAG ...] --out DIR``: offline estimates, summary and report from bags;
 * ``simulate SCENARIO --out BAG``: a built-in invented scenario written as a bag with its
-  ground truth.
+  ground truth;
+* ``tune BAG [BAG ...] --out FILE``: bias, friction and noise levels identified from bags,
+  written as a parameter file.
 
 Exit codes: 0 success; 2 a usage error or bad input (the message names the value and what was
 expected); 1 an unexpected failure (a defect: please report it with the traceback).
@@ -238,7 +240,14 @@ COMMANDS: tuple[Command, ...] = (
             _replay_arguments, _replay),
     Command("simulate", "write a built-in invented scenario as a bag with ground truth",
             _simulate_arguments, _simulate),
+    Command("tune", "identify bias, friction and noise levels from bags; write a parameter file",
+            lambda p: _tune().add_arguments(p), lambda a: _tune().run(a)),
 )
+
+
+def _tune():
+    from . import tune  # imported on use: it loads the whole pipeline
+    return tune
 
 
 def build_parser() -> argparse.ArgumentParser:
