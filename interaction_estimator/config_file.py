@@ -1,0 +1,210 @@
+"""The default parameter file, generated from the settings registry so it never drifts.
+
+``python -m interaction_estimator.config_file`` prints it; ``--write config/default.yaml``
+rewrites the committed copy; ``--check config/default.yaml`` exits 1 if that copy is out of date.
+Every entry is commented with its type, unit, meaning, allowed values and, where it helps, how to
+tune it. The format is the ROS 2 parameter file: ``interaction_estimator:`` then
+``ros__parameters:``, dotted names nested.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import re
+import sys
+import textwrap
+from pathlib import Path
+from typing import Any, Sequence
+
+from .settings import NODE_NAME, SPECS, ParamSpec
+
+WIDTH = 96  # characters per comment line
+# The file's section: this node's name in any namespace. A plain "interaction_estimator:" would
+# match only the node without a namespace (ROS 2 matches sections by fully qualified name), so a
+# robot that launches it under a namespace would silently run on the defaults.
+SECTION = f"/**/{NODE_NAME}"
+
+HEADER = f"""\
+# Parameters of the interaction_estimator node, the replay and the tuning command.
+#
+# GENERATED from the settings registry (interaction_estimator/settings.py) by
+#   python -m interaction_estimator.config_file --write config/default.yaml
+# Do not edit this copy: copy it to your robot's package, change what you need there, and pass
+# it with `--ros-args --params-file FILE` (or the launch argument params_file). Values here are
+# the defaults; a file needs only the entries it changes.
+# The section "/**/{NODE_NAME}" applies to the node in any namespace; a section
+# "/arm/{NODE_NAME}" would apply in the namespace /arm only, and a bare
+# "{NODE_NAME}" only without a namespace.
+#
+# Units are SI. "read-only" entries are read at start-up (restart the node to change them); the
+# others can be changed while the node runs, e.g. with
+#   ros2 param set /{NODE_NAME} filter.measurement_std 1.5
+# and a value outside the allowed range is refused with the reason.
+#
+# Tuning order that works on most robots: (1) effort_side and friction for motor-current
+# efforts, (2) observer.gain for the lag/noise trade-off of the force, (3) contact levels,
+# (4) the noise of the object filter: filter.measurement_std, then filter.process_std.
+"""
+
+# How to tune, by setting; the registry's description says what it is.
+TUNING: dict[str, str] = {
+    "contact_frame": "Pick the link that touches the object; the force is reported at its origin.",
+    "effort_side": "Use 'motor' when efforts come from motor currents; then set the friction.",
+    "observer.gain": (
+        "Raise it for a force that follows changes faster, lower it when the wrench is noisy in"
+        " free motion; keep gain x sample interval well below 1."),
+    "observer.max_gap": "Set to a few sample intervals of your joint-state rate.",
+    "bias.initial": "Leave empty unless the torque sensors have a known offset.",
+    "bias.time_constant": "Shorter learns faster but lets slow free-motion dynamics leak in.",
+    "bias.startup": "Keep the robot away from objects for this long after start or reset.",
+    "friction.viscous": (
+        "Motor-side efforts only. Identify from a free motion at several constant speeds (slope"
+        " of effort against velocity), or with the tuning command."),
+    "friction.coulomb": "Motor-side efforts only. The effort offset at low constant speed.",
+    "contact.enter_level": (
+        "Lower detects lighter contacts but gives false contacts during fast free motion."
+        " Raise it if free motion is reported as contact."),
+    "contact.exit_level": "Must stay below contact.enter_level; the gap is the hysteresis.",
+    "contact.noise_floor": "Raise it on robots whose free-motion residual is noisier.",
+    "wrench.damping": "Raise it when the force blows up near singular arm poses.",
+    "wrench.condition_limit": "The status warns above it; lower it to be warned earlier.",
+    "kinematics.window": (
+        "Longer smooths the acceleration (needed for the mass) but adds lag (half the window)."
+        " Cover at least 10 samples."),
+    "filter.initial_std": (
+        "Prior uncertainty. Make it generous (a few times the largest value you expect): too"
+        " small a prior slows convergence and biases the estimate toward initial_mean."),
+    "filter.process_std": (
+        "Process noise: how fast each parameter may drift, per square-root second. Larger"
+        " follows a changing object faster but leaves the estimate noisier and slows"
+        " convergence; zero freezes a parameter once learned. Start at about 1 % of the"
+        " expected value per sqrt(s); the tuning command identifies it from recorded bags."),
+    "filter.measurement_std": (
+        "Measurement noise: the spread of the force along the direction that the object model"
+        " does not explain (sensor noise plus model error). Read it off the wrench in steady"
+        " contact (its standard deviation), or let filter.noise_adaptation adapt it. Too small"
+        " makes the estimates jumpy and the NIS too high; too large makes them slow and the NIS"
+        " too low."),
+    "filter.measurement_std_floor": (
+        "Keeps the adapted measurement noise from collapsing on very clean data; set near the"
+        " force resolution."),
+    "filter.noise_adaptation": (
+        "'sage_husa' suits most cases; 'fixed' when measurement_std is known (repeatable"
+        " results, e.g. for replay comparisons)."),
+    "filter.fading_factor": "Closer to 1: steadier noise estimate, slower to follow changes.",
+    "filter.process_adaptation": (
+        "'sage_husa' lets the filter raise process noise itself when the object changes; keep"
+        " 'fixed' unless the NIS stays outside its bounds with a tuned process_std."),
+    "filter.nis_window": "About 1-2 s of samples gives a stable consistency verdict.",
+    "filter.change_threshold": "Lower detects object changes sooner, with more false alarms.",
+    "filter.excitation_min": (
+        "Below these levels a parameter is not excited and keeps its prior. Move the robot along"
+        " the direction with varying speed and acceleration to excite all four."),
+    "filter.converged_std": "Set to the accuracy your controller needs for each parameter.",
+    "health.max_latency": "Set to the delay your controller tolerates.",
+    "health.min_rate": "Set a little below your joint-state rate.",
+    "input.separate_efforts": "For drivers that publish efforts on their own topic.",
+    "input.stamp_tolerance": "About a quarter of the sample interval.",
+    "input.queue_depth": "200 keeps up with 1 kHz input on a loaded machine; 5 loses samples.",
+    "input.reliability": "'best_effort' matches sensor drivers; 'reliable' for replays and tests.",
+    "input.expected_rate": "Your joint-state rate; the status warns when off by more than 20 %.",
+    "output.status_rate": "0 publishes one status per sample (for logging); 10-50 Hz otherwise.",
+}
+
+_PLAIN = re.compile(r"^[A-Za-z_][A-Za-z0-9_./-]*$")
+_RESERVED = {"true", "false", "yes", "no", "on", "off", "null", "y", "n", "~"}
+
+
+def yaml_value(value: Any) -> str:
+    """A value as YAML text that the ROS 2 parser and PyYAML read alike (floats keep a dot)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        text = repr(value)
+        mantissa, _, exponent = text.partition("e")
+        if "." not in mantissa:
+            mantissa += ".0"
+        return mantissa + (f"e{exponent if exponent[0] in '+-' else '+' + exponent}"
+                           if exponent else "")
+    if isinstance(value, str):
+        if _PLAIN.match(value) and value.lower() not in _RESERVED:
+            return value
+        return json.dumps(value, ensure_ascii=False)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(yaml_value(v) for v in value) + "]"
+    raise TypeError(f"no YAML form for {value!r}")
+
+
+def _comment(spec: ParamSpec, indent: str) -> list[str]:
+    kind = {"str": "string", "bool": "true/false", "int": "integer", "float": "number",
+            "float_array": "list of numbers", "str_array": "list of strings"}[spec.kind]
+    head = f"{spec.name} ({kind}"
+    head += f", {spec.unit})" if spec.unit else ")"
+    if spec.read_only:
+        head += ", read-only"
+    parts = [head + ": " + spec.description]
+    parts.append(f"Allowed: {spec.range_text()}.")
+    if spec.name in TUNING:
+        parts.append("Tuning: " + TUNING[spec.name])
+    lines: list[str] = []
+    width = WIDTH - len(indent) - 2
+    for i, part in enumerate(parts):
+        wrapped = textwrap.wrap(part, width=width, subsequent_indent="  ",
+                                break_on_hyphens=False)
+        lines += [f"{indent}# {w}" for w in wrapped]
+    return lines
+
+
+def generate() -> str:
+    """The default parameter file as text (groups in the registry's order of appearance)."""
+    tree: dict[str, Any] = {}
+    for spec in SPECS:  # nested dicts keep insertion order: a group is written once
+        node = tree
+        *groups, leaf = spec.name.split(".")
+        for g in groups:
+            node = node.setdefault(g, {})
+        node[leaf] = spec
+    out = [HEADER, f"{SECTION}:", "  ros__parameters:"]
+
+    def emit(node: dict[str, Any], indent: str) -> None:
+        for key, item in node.items():
+            if isinstance(item, dict):
+                out.append(f"{indent}{key}:")
+                emit(item, indent + "  ")
+            else:
+                out.extend(_comment(item, indent))
+                out.append(f"{indent}{key}: {yaml_value(item.default)}")
+
+    emit(tree, "    ")
+    return "\n".join(out) + "\n"
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m interaction_estimator.config_file",
+                                     description="Print, write or check the default parameter "
+                                                 "file generated from the settings registry.")
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument("--write", metavar="PATH", help="write the file to PATH")
+    group.add_argument("--check", metavar="PATH",
+                       help="exit 1 if PATH differs from the generated file")
+    args = parser.parse_args(argv)
+    text = generate()
+    if args.write:
+        Path(args.write).write_text(text, encoding="utf-8")
+        return 0
+    if args.check:
+        path = Path(args.check)
+        current = path.read_text(encoding="utf-8") if path.exists() else ""
+        if current != text:
+            print(f"{path} is out of date: regenerate it with python -m "
+                  f"interaction_estimator.config_file --write {path}", file=sys.stderr)
+            return 1
+        return 0
+    sys.stdout.write(text)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
