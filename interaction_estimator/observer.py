@@ -82,7 +82,8 @@ class KalmanMomentumObserver:
     """
 
     def __init__(self, bandwidth: np.ndarray, velocity_noise: float, effort_noise: float,
-                 max_gap: float):
+                 max_gap: float, settle_steps: int = 500):
+        self.settle_steps = int(settle_steps)
         self.gain = np.asarray(bandwidth, dtype=float)
         self.velocity_noise, self.effort_noise = float(velocity_noise), float(effort_noise)
         self.max_gap = float(max_gap)
@@ -97,6 +98,7 @@ class KalmanMomentumObserver:
         self._P = np.zeros((n, 3, 3))
         self._beta = np.zeros(n)
         self._shared: tuple[float, ...] | None = None
+        self._settle = False
         self._w6 = 0.0
 
     def _step_shared(self, t: float, dt: float, momentum: np.ndarray, beta: np.ndarray,
@@ -105,6 +107,28 @@ class KalmanMomentumObserver:
         same for all joints (Q and R both scale with R_i), so one 3x3 recursion in plain floats
         gives every joint's gain. Effort noise enters with the joints' mean R; it is small next
         to the velocity noise through M."""
+        if self._settle:
+            # first interval after a (re)start: run the covariance recursion to its steady
+            # state for this interval first, so that the start does not read velocity noise as
+            # a large external torque (a cold, wide prior did: hundreds of newtons for a few ms)
+            for _ in range(self.settle_steps):
+                self._shared_gain(dt, mean_r)
+            self._settle = False
+        k0, k1, k2 = self._shared_gain(dt, mean_r)
+        a, b = dt, 0.5 * dt * dt
+        x = self._x
+        x0 = x[:, 0] + a * (x[:, 1] + 0.5 * (beta + self._beta)) + b * x[:, 2]
+        x1 = x[:, 1] + a * x[:, 2]
+        y = momentum - x0
+        x[:, 0] = x0 + k0 * y
+        x[:, 1] = x1 + k1 * y
+        x[:, 2] += k2 * y
+        self._t, self._beta = t, beta
+        self.residual = x[:, 1].copy()
+        return self.residual, False
+
+    def _shared_gain(self, dt: float, mean_r: float) -> tuple[float, float, float]:
+        """One predict-update of the shared covariance (units of R_i); returns the gains."""
         p00, p01, p02, p11, p12, p22 = self._shared
         a, b = dt, 0.5 * dt * dt
         r00 = p00 + a * p01 + b * p02
@@ -125,16 +149,7 @@ class KalmanMomentumObserver:
         k0, k1, k2 = n00 / s, n01 / s, n02 / s
         self._shared = (n00 - k0 * n00, n01 - k0 * n01, n02 - k0 * n02, n11 - k1 * n01,
                         n12 - k1 * n02, n22 - k2 * n02)
-        x = self._x
-        x0 = x[:, 0] + a * (x[:, 1] + 0.5 * (beta + self._beta)) + b * x[:, 2]
-        x1 = x[:, 1] + a * x[:, 2]
-        y = momentum - x0
-        x[:, 0] = x0 + k0 * y
-        x[:, 1] = x1 + k1 * y
-        x[:, 2] += k2 * y
-        self._t, self._beta = t, beta
-        self.residual = x[:, 1].copy()
-        return self.residual, False
+        return k0, k1, k2
 
     def _start(self, t: float, momentum: np.ndarray, beta: np.ndarray, r_var: np.ndarray) -> None:
         self._x[:, 0] = momentum
@@ -147,6 +162,7 @@ class KalmanMomentumObserver:
         self._P[:, 2, 2] = (scale * self.gain) ** 2    # (N·m/s)^2
         self._t, self._beta = t, beta
         self._shared = None
+        self._settle = True
         if np.all(self.gain == self.gain[0]):  # covariance in units of R_i, shared by joints
             d = self._P.diagonal(axis1=1, axis2=2) / r_var[:, None]
             self._shared = (1.0, 0.0, 0.0, float(d[:, 1].max()), 0.0, float(d[:, 2].max()))

@@ -98,7 +98,7 @@ def test_kalman_form_equals_filterpy_step_for_step():
     from interaction_estimator.observer import KalmanMomentumObserver
 
     w, sv, se, m = 70.0, 0.004, 0.2, 1.7
-    obs = KalmanMomentumObserver(np.array([w]), sv, se, max_gap=1.0)
+    obs = KalmanMomentumObserver(np.array([w]), sv, se, max_gap=1.0, settle_steps=0)
     rng = np.random.default_rng(9)
     times = np.concatenate([[0.0], np.cumsum(rng.uniform(5e-4, 2e-3, 400))])
     beta = rng.normal(size=len(times))
