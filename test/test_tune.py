@@ -356,3 +356,28 @@ def test_bad_input_is_refused_and_nothing_is_written(kind, runs, bags, tmp_path,
     assert out.read_text() == "earlier file\n"       # untouched
     assert not (tmp_path / "report").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.endswith(".partial")]
+
+
+def test_written_file_loads_in_the_real_node(written, tuned, tmp_path):
+    # The ROS 2 node itself (real rclpy over DDS, loopback only: the harness sets
+    # ROS_AUTOMATIC_DISCOVERY_RANGE=LOCALHOST and its own domain) takes the tuned file with
+    # --params-file, starts, and reports every tuned value as its parameter.
+    from ros_harness import NodeProcess, Peer, next_domain
+
+    result, _ = tuned
+    domain = next_domain()
+    node = NodeProcess(["--params-file", str(written)], domain, tmp_path / "node.log")
+    peer = Peer(domain)
+    try:
+        peer.wait_connected(node)
+        assert node.alive(), node.log()
+        for name, entry in result.entries.items():
+            got = peer.get_parameter(name).value
+            expected = entry.value
+            if isinstance(expected, list):
+                assert list(got) == expected, name   # floats arrive bit for bit
+            else:
+                assert got == expected, name
+    finally:
+        peer.close()
+        node.stop()
