@@ -26,8 +26,10 @@ On top of it (each one cited where it is implemented):
   (Bar-Shalom, Li and Kirubarajan 2001), and change detection by a one-sided CUSUM of the NIS
   (Page 1954), which inflates the covariance.
 
-Memory is bounded (fixed-size windows only) and an update costs a few tens of numpy calls on
-4-vectors and 4x4 matrices; scipy is used only when settings are applied.
+Memory is bounded (fixed-size windows only). An update works on plain Python floats (4-vectors
+and the 10 distinct entries of the symmetric 4x4 covariance, written out): that costs a few
+microseconds, where numpy calls on such small arrays cost about a microsecond each. scipy is used
+only when settings are applied.
 """
 from __future__ import annotations
 
@@ -36,6 +38,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .health import flag_pattern
 from .samples import SampleRejected
 from .settings import Settings, SettingsError
 
@@ -62,6 +65,7 @@ class FilterStep:
     std below filter.converged_std or filter.converged_rel_std * |theta|.
     change: "" or why a change was declared at (or just before) this step.
     samples: updates since the last reset, this one included.
+    pattern: the excited flags as bits 0-3 and the converged flags as bits 4-7 (for Health).
     """
 
     theta: np.ndarray
@@ -77,6 +81,7 @@ class FilterStep:
     converged: np.ndarray
     change: str
     samples: int
+    pattern: int = 0
 
 
 class _WindowMean:
@@ -133,6 +138,8 @@ class _Config:
         self.converged_rel = float(s["filter.converged_rel_std"])
         self.nonnegative = bool(s["filter.nonnegative"])
         self.correlation_correction = bool(s["filter.correlation_correction"])
+        self.excitation_min_list = self.excitation_min.tolist()
+        self.converged_std_list = self.converged_std.tolist()
         if self.nonnegative:
             for i in range(3):
                 if self.initial_mean[i] < 0.0:
@@ -156,6 +163,30 @@ def _nis_bounds_table(n_max: int) -> tuple[list[float], list[float]]:
     lo = chi2.ppf(alpha / 2.0, n) / n
     hi = chi2.ppf(1.0 - alpha / 2.0, n) / n
     return [math.nan] + lo.tolist(), [math.nan] + hi.tolist()
+
+
+def _solve_small(A: list[list[float]], b: list[float]) -> list[float] | None:
+    """Solve A z = b for a small dense A (n <= 3 here) by Gaussian elimination with partial
+    pivoting in plain floats; None when a pivot is exactly zero (A singular)."""
+    n = len(b)
+    M = [row[:] + [b[i]] for i, row in enumerate(A)]
+    for c in range(n):
+        r = max(range(c, n), key=lambda k: abs(M[k][c]))
+        if M[r][c] == 0.0:
+            return None
+        if r != c:
+            M[c], M[r] = M[r], M[c]
+        pivot = M[c]
+        for k in range(c + 1, n):
+            factor = M[k][c] / pivot[c]
+            if factor:
+                row = M[k]
+                for j in range(c, n + 1):
+                    row[j] -= factor * pivot[j]
+    z = [0.0] * n
+    for c in range(n - 1, -1, -1):
+        z[c] = (M[c][n] - sum(M[c][j] * z[j] for j in range(c + 1, n))) / M[c][c]
+    return z
 
 
 class EnvironmentFilter:
@@ -216,12 +247,13 @@ class EnvironmentFilter:
         R = filter.measurement_std^2, q = filter.process_std; windows, CUSUM and sample count
         cleared. The rejected count is kept."""
         c = self._cfg
-        self._theta = c.initial_mean.copy()
-        self._P = np.diag(c.initial_std ** 2)
+        # the state is held in plain floats: a step is a few hundred float operations, much
+        # cheaper in Python than tens of numpy calls on 4-vectors (the views below convert)
+        self._th = c.initial_mean.tolist()                       # theta (4,)
+        self._Pf = np.diag(c.initial_std ** 2).ravel().tolist()  # P (4, 4), row-major
         self._P0_diag = c.initial_std ** 2
         self._R = max(c.measurement_var, c.measurement_var_floor)
-        self._q2 = c.process_var.copy()
-        self._Qm = np.diag(self._q2)
+        self._q2 = c.process_var.tolist()                        # q^2 (4,), per second
         self._t_prev: float | None = None
         self._samples = 0
         self._fading_power = 1.0  # b^k
@@ -229,7 +261,7 @@ class EnvironmentFilter:
         self._pending_change = ""
         self._z_prev = 0.0     # previous normalized innovation
         self._corr = [0.0, 0.0]  # decaying sums of z_k z_(k-1) and z_k^2
-        self._ex_num = np.zeros(4)
+        self._ex_num = [0.0, 0.0, 0.0, 0.0]
         self._ex_den = 0.0
         self._nis_window = _WindowMean(c.nis_window)
         self._match_window = _WindowMean(c.matching_window)
@@ -265,8 +297,7 @@ class EnvironmentFilter:
         else:
             self._R = max(self._R, new.measurement_var_floor)
         if new.process_adaptation == "fixed":
-            self._q2 = new.process_var.copy()
-            self._Qm = np.diag(self._q2)
+            self._q2 = new.process_var.tolist()
         if new.fading != old.fading:
             self._fading_power = new.fading ** self._samples  # keeps d_k = (1-b)/(1-b^(k+1))
         self._cfg = new
@@ -275,14 +306,14 @@ class EnvironmentFilter:
         self._nis_lo, self._nis_hi = _nis_bounds_table(c.nis_window)
 
     def _inflate(self, reason: str) -> None:
-        P = self._P * self._cfg.change_inflation
+        P = np.array(self._Pf).reshape(4, 4) * self._cfg.change_inflation
         d = P.diagonal()
         over = d > self._P0_diag
         if over.any():
             scale = np.ones(4)
             scale[over] = np.sqrt(self._P0_diag[over] / d[over])
             P = P * np.outer(scale, scale)
-        self._P = P
+        self._Pf = P.ravel().tolist()
         self._cusum = 0.0
         self.changes += 1
         self.last_change = reason
@@ -295,12 +326,12 @@ class EnvironmentFilter:
     @property
     def theta(self) -> np.ndarray:
         """(4,) current estimate [kg, N·s/m, N/m, N] (a copy)."""
-        return self._theta.copy()
+        return np.array(self._th)
 
     @property
     def covariance(self) -> np.ndarray:
         """(4, 4) current covariance of theta, SI units squared (a copy)."""
-        return self._P.copy()
+        return np.array(self._Pf).reshape(4, 4)
 
     @property
     def measurement_var(self) -> float:
@@ -310,7 +341,7 @@ class EnvironmentFilter:
     @property
     def process_std(self) -> np.ndarray:
         """(4,) current random-walk intensity [kg/√s, N·s/m/√s, N/m/√s, N/√s]."""
-        return np.sqrt(self._q2)
+        return np.sqrt(np.array(self._q2))
 
     @property
     def samples(self) -> int:
@@ -336,7 +367,7 @@ class EnvironmentFilter:
             self._reject("non_finite_output", f"environment filter: force f is {f!r} N")
         self._reject("non_finite_output",
                      f"environment filter: predicted force h theta overflowed (innovation {y!r} N)"
-                     f" for h = {h.tolist()} and theta = {self._theta.tolist()}")
+                     f" for h = {h.tolist()} and theta = {list(self._th)}")
 
     def update(self, t: float, h: np.ndarray, f: float) -> FilterStep:
         """One filter step.
@@ -351,12 +382,13 @@ class EnvironmentFilter:
         if h.shape != (4,):
             raise ValueError(f"environment filter: regressor h has shape {h.shape}; expected (4,)"
                              " = [x'' m/s^2, x' m/s, x m, 1]")
+        h0, h1, h2, h3 = h.tolist()
         t = float(t)
         f = float(f)
-        theta = self._theta
+        th0, th1, th2, th3 = self._th
         # Innovation first: it is non-finite whenever h or f is (NaN and inf propagate through
         # the dot product), so one test covers all inputs; the slow path names the bad one.
-        y = f - float(h @ theta)
+        y = f - (h0 * th0 + h1 * th1 + h2 * th2 + h3 * th3)
         if not (math.isfinite(y) and math.isfinite(t)):
             self._check_input(t, h, f, y)
         c = self._cfg
@@ -369,36 +401,73 @@ class EnvironmentFilter:
                              f"environment filter: t = {t:.6f} s is older than the previous"
                              f" {self._t_prev:.6f} s")
 
-        # 1. random-walk prediction (F = I)
-        P = self._P + self._Qm * dt if dt > 0.0 else self._P
+        # 1. random-walk prediction (F = I): P += diag(q^2) dt
+        (p00, p01, p02, p03, _, p11, p12, p13, _, _, p22, p23, _, _, _, p33) = self._Pf
+        if dt > 0.0:
+            q = self._q2
+            p00 += q[0] * dt
+            p11 += q[1] * dt
+            p22 += q[2] * dt
+            p33 += q[3] * dt
 
         # 2. excitation: exponentially weighted mean square of each regressor
         decay = math.exp(-dt / c.excitation_window)
-        ex_num = self._ex_num * decay + h * h
+        e0, e1, e2, e3 = self._ex_num
+        e0 = e0 * decay + h0 * h0
+        e1 = e1 * decay + h1 * h1
+        e2 = e2 * decay + h2 * h2
+        e3 = e3 * decay + h3 * h3
         ex_den = self._ex_den * decay + 1.0
-        excitation = np.sqrt(ex_num / ex_den)
-        excited = excitation >= c.excitation_min
+        excitation = (math.sqrt(e0 / ex_den), math.sqrt(e1 / ex_den), math.sqrt(e2 / ex_den),
+                      math.sqrt(e3 / ex_den))
+        m0, m1, m2, m3 = c.excitation_min_list
+        x0, x1, x2, x3 = excited = (excitation[0] >= m0, excitation[1] >= m1,
+                                    excitation[2] >= m2, excitation[3] >= m3)
 
-        # 3. Schmidt-Kalman update, Joseph form (outer products by broadcasting: np.outer
-        # costs several µs more)
-        ph = P @ h
-        hph = float(h @ ph)
+        # 3. Schmidt-Kalman update, Joseph form
+        a0 = p00 * h0 + p01 * h1 + p02 * h2 + p03 * h3   # P h
+        a1 = p01 * h0 + p11 * h1 + p12 * h2 + p13 * h3
+        a2 = p02 * h0 + p12 * h1 + p22 * h2 + p23 * h3
+        a3 = p03 * h0 + p13 * h1 + p23 * h2 + p33 * h3
+        hph = h0 * a0 + h1 * a1 + h2 * a2 + h3 * a3
         R = self._R
         S = hph + R
-        if np.count_nonzero(excited) == 4:
-            K = ph / S
-            P = P - (K[:, None] * K) * S  # = P - P h^T h P / S, exactly symmetric
+        if x0 and x1 and x2 and x3:
+            k0, k1, k2, k3 = a0 / S, a1 / S, a2 / S, a3 / S
+            # P - K K^T S (= P - P h^T h P / S), exactly symmetric
+            p00 -= k0 * a0
+            p01 -= k0 * a1
+            p02 -= k0 * a2
+            p03 -= k0 * a3
+            p11 -= k1 * a1
+            p12 -= k1 * a2
+            p13 -= k1 * a3
+            p22 -= k2 * a2
+            p23 -= k2 * a3
+            p33 -= k3 * a3
         else:
-            K = ph * (excited / S)
-            Kph = K[:, None] * ph
-            P = P - (Kph + Kph.T) + (K[:, None] * K) * S
-        theta = theta + K * y
+            k0 = a0 / S if x0 else 0.0
+            k1 = a1 / S if x1 else 0.0
+            k2 = a2 / S if x2 else 0.0
+            k3 = a3 / S if x3 else 0.0
+            # P - (K (Ph)^T + (Ph) K^T) + S K K^T
+            b0, b1, b2, b3 = S * k0, S * k1, S * k2, S * k3
+            p00 += -(k0 * a0 + a0 * k0) + b0 * k0
+            p01 += -(k0 * a1 + a0 * k1) + b0 * k1
+            p02 += -(k0 * a2 + a0 * k2) + b0 * k2
+            p03 += -(k0 * a3 + a0 * k3) + b0 * k3
+            p11 += -(k1 * a1 + a1 * k1) + b1 * k1
+            p12 += -(k1 * a2 + a1 * k2) + b1 * k2
+            p13 += -(k1 * a3 + a1 * k3) + b1 * k3
+            p22 += -(k2 * a2 + a2 * k2) + b2 * k2
+            p23 += -(k2 * a3 + a2 * k3) + b2 * k3
+            p33 += -(k3 * a3 + a3 * k3) + b3 * k3
+        P = [p00, p01, p02, p03, p01, p11, p12, p13, p02, p12, p22, p23, p03, p13, p23, p33]
+        theta = [th0 + k0 * y, th1 + k1 * y, th2 + k2 * y, th3 + k3 * y]
 
         # 4. non-negative mass, damping, stiffness
-        if c.nonnegative:
-            th = theta.tolist()
-            if th[0] < 0.0 or th[1] < 0.0 or th[2] < 0.0:
-                theta = self._project(theta, P, excited)
+        if c.nonnegative and (theta[0] < 0.0 or theta[1] < 0.0 or theta[2] < 0.0):
+            theta = self._project(theta, P, excited)
 
         # 5.-6. noise adaptation
         nis = y * y / S
@@ -409,7 +478,7 @@ class EnvironmentFilter:
             if c.noise_adaptation != "fixed":
                 self._R = self._adapt_measurement_noise(R, S, hph, nis, d)
             if c.process_adaptation != "fixed" and dt > 0.0:
-                self._adapt_process_noise(K, y, S, d, dt)
+                self._adapt_process_noise((k0, k1, k2, k3), y, S, d, dt)
 
         # 7. NIS average and its chi-square interval
         nis_avg = self._nis_window.push(nis)
@@ -418,14 +487,14 @@ class EnvironmentFilter:
         # 8. CUSUM change detection
         g = self._cusum + nis - c.change_drift
         self._cusum = g if g > 0.0 else 0.0
-        self._theta = theta
-        self._P = P
+        self._th = theta
+        self._Pf = P
         if g > c.change_threshold:
             self._inflate(f"innovation CUSUM {g:.1f} > {c.change_threshold:g}")
         change = self._pending_change
         self._pending_change = ""
 
-        self._ex_num = ex_num
+        self._ex_num = [e0, e1, e2, e3]
         self._ex_den = ex_den
         self._t_prev = t
         self._samples = k + 1
@@ -444,17 +513,26 @@ class EnvironmentFilter:
         if c.correlation_correction and corr[1] > 0.0:
             rho = min(max(corr[0] / corr[1], 0.0), 0.998)
             inflation = (1.0 + rho) / (1.0 - rho)
-        std = np.sqrt(np.maximum(P.diagonal(), 0.0) * inflation)
-        converged = excited & (std < np.maximum(c.converged_std, c.converged_rel * np.abs(theta)))
-        step = FilterStep(theta.copy(), std, y, S, nis, nis_avg,
-                          (self._nis_lo[n], self._nis_hi[n]), R, excitation, excited,
-                          converged, change, k + 1)
+        std = [math.sqrt(P[0] * inflation) if P[0] > 0.0 else 0.0,
+               math.sqrt(P[5] * inflation) if P[5] > 0.0 else 0.0,
+               math.sqrt(P[10] * inflation) if P[10] > 0.0 else 0.0,
+               math.sqrt(P[15] * inflation) if P[15] > 0.0 else 0.0]
+        cs, rel = c.converged_std_list, c.converged_rel
+        converged = [excited[i] and std[i] < max(cs[i], rel * abs(theta[i])) for i in range(4)]
+        numbers = np.array(theta + std + list(excitation))
+        flags = np.array(excited + tuple(converged))
+        pattern = flag_pattern(excited, converged)
+        step = FilterStep(numbers[:4], numbers[4:8], y, S, nis, nis_avg,
+                          (self._nis_lo[n], self._nis_hi[n]), R, numbers[8:], flags[:4],
+                          flags[4:], change, k + 1, pattern)
         self.last = step
         return step
 
-    def _project(self, theta: np.ndarray, P: np.ndarray, excited: np.ndarray) -> np.ndarray:
+    @staticmethod
+    def _project(theta: list[float], P: list[float], excited: tuple[bool, ...]) -> list[float]:
         """Estimate projection onto mass, damping, stiffness >= 0 (Simon and Chia 2002).
 
+        theta (4,) and P (4x4 row-major, 16 floats) as plain floats; returns the new theta.
         Over the excited parameters E, with the violated ones A set to zero, the minimiser of
         (x - theta)^T P_EE^-1 (x - theta) is x_E = theta_E - P_EA P_AA^-1 theta_A (the
         conditional mean given x_A = 0). Constraints that become violated are added and the
@@ -462,38 +540,30 @@ class EnvironmentFilter:
         Not-excited parameters are not moved unless they are themselves negative (possible
         only after a settings change); then they are set to zero.
         """
-        th = theta.tolist()
-        neg = [i for i in range(3) if th[i] < 0.0]
-        if len(neg) == 1 and excited[neg[0]]:  # fast path: one active constraint
-            i = neg[0]
-            p_ii = P[i, i]
-            if p_ii > 0.0:
-                out = theta - P[i] * (excited * (th[i] / p_ii))  # P symmetric: row = column
-                out[i] = 0.0
-                if out[0] >= 0.0 and out[1] >= 0.0 and out[2] >= 0.0:
-                    return out
-        theta = theta.copy()
+        th = list(theta)
         active: list[int] = []
         E = [i for i in range(4) if excited[i]]
         for _ in range(3):
-            new = [i for i in range(3) if theta[i] < 0.0 and i not in active]
+            new = [i for i in range(3) if th[i] < 0.0 and i not in active]
             if not new:
                 break
             for i in new:
                 if not excited[i]:
-                    theta[i] = 0.0
+                    th[i] = 0.0
             active += [i for i in new if excited[i]]
             if not active:
                 break
-            try:
-                corr = P[np.ix_(E, active)] @ np.linalg.solve(P[np.ix_(active, active)],
-                                                              theta[active])
-            except np.linalg.LinAlgError:
-                corr = np.zeros(len(E))
-            theta[E] -= corr
-            theta[active] = 0.0
-        np.maximum(theta[:3], 0.0, out=theta[:3])
-        return theta
+            z = _solve_small([[P[4 * i + j] for j in active] for i in active],
+                             [th[i] for i in active])
+            if z is not None:   # a singular P_AA (LU pivot exactly 0): no correction
+                for e in E:
+                    th[e] -= sum(P[4 * e + a] * zk for a, zk in zip(active, z))
+            for a in active:
+                th[a] = 0.0
+        for i in range(3):
+            if th[i] < 0.0:
+                th[i] = 0.0
+        return th
 
     def _adapt_measurement_noise(self, R: float, S: float, hph: float, nis: float,
                                  d: float) -> float:
@@ -519,7 +589,7 @@ class EnvironmentFilter:
         floor = self._cfg.measurement_var_floor
         return R_new if R_new > floor else floor
 
-    def _adapt_process_noise(self, K: np.ndarray, y: float, S: float, d: float,
+    def _adapt_process_noise(self, K: tuple[float, ...], y: float, S: float, d: float,
                              dt: float) -> None:
         """Diagonal Sage-Husa process-noise estimate (Sage and Husa 1969).
 
@@ -528,7 +598,5 @@ class EnvironmentFilter:
         the intensity q^2 (per second), and floored at zero (the full matrix can lose positive
         semi-definiteness). Parameters that are not excited have K_i = 0 and keep their q.
         """
-        q2 = self._q2 + (d * (y * y - S) / dt) * (K * K)
-        np.maximum(q2, 0.0, out=q2)
-        self._q2 = q2
-        self._Qm = np.diag(q2)
+        g = d * (y * y - S) / dt
+        self._q2 = [max(q + g * k * k, 0.0) for q, k in zip(self._q2, K)]

@@ -3,89 +3,104 @@
 Levels follow diagnostic_msgs/DiagnosticStatus: OK 0, WARN 1, ERROR 2, STALE 3. The verdict is a
 single line a person can read; ``state`` is a short fixed word a controller can switch on:
 ``learning_bias``, ``free_motion``, ``in_contact``, ``converged``, ``contact_lost``.
+
+The judge runs on every sample, so the common cases cost little: the in-contact wording, which
+depends only on which parameters are excited and converged, is built once per pattern and kept.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
-
-import numpy as np
+import math
+from typing import NamedTuple
 
 OK, WARN, ERROR, STALE = 0, 1, 2, 3
 LEVEL_NAMES = {OK: "OK", WARN: "WARN", ERROR: "ERROR", STALE: "STALE"}
 PARAMETERS = ("mass", "damping", "stiffness", "static_force")
+ALL_CONVERGED = 0b1111 << 4
 
 
-@dataclass(slots=True)
-class HealthInputs:
-    """What the stages report for one sample (units in names)."""
-
-    time: float
-    phase: str                    # learning_bias | free | contact
-    startup_remaining: float      # s of bias learning left
-    since_contact_end: float      # s since contact was lost (inf: never in contact)
-    excited: np.ndarray           # (4,) bool
-    converged: np.ndarray         # (4,) bool
-    nis_average: float
-    nis_bounds: tuple[float, float]
-    filter_samples: int
-    jacobian_condition: float
-    condition_limit: float
-    recent_rejects: int           # rejected samples over the last second
-    rate_hz: float                # input rate estimated from stamps, Hz
-    min_rate_hz: float
-    stale_after: float            # s
-    stamp_from_receive: bool
+def flag_pattern(excited, converged) -> int:
+    """Bit pattern of four excited flags (bits 0-3) and four converged flags (bits 4-7)."""
+    bits = 0
+    for i in range(4):
+        if excited[i]:
+            bits |= 1 << i
+        if converged[i]:
+            bits |= 1 << (i + 4)
+    return bits
 
 
-@dataclass(frozen=True)
-class Verdict:
+class Verdict(NamedTuple):
     level: int
     state: str
     message: str
 
 
-def assess(h: HealthInputs) -> Verdict:
-    """The worst applicable finding decides the level; the message names it."""
-    warnings: list[str] = []
-    if h.jacobian_condition > h.condition_limit:
-        warnings.append(f"contact Jacobian near singular (condition {h.jacobian_condition:.0f} > "
-                        f"{h.condition_limit:.0f})")
-    if h.recent_rejects:
-        warnings.append(f"{h.recent_rejects} samples rejected in the last second")
-    if h.min_rate_hz > 0 and 0 < h.rate_hz < h.min_rate_hz:
-        warnings.append(f"input rate {h.rate_hz:.0f} Hz below {h.min_rate_hz:.0f} Hz")
-    if h.stamp_from_receive:
-        warnings.append("stamps are zero: receive time used")
+class Health:
+    """Judges one sample. condition_limit: Jacobian condition number above which the wrench is
+    suspect; min_rate_hz: input rate below which a warning is raised (0: none); stale_after s:
+    time after a contact ended beyond which the held object estimates are STALE."""
 
-    if h.phase == "learning_bias":
-        state = "learning_bias"
-        base = (f"learning torque bias, {h.startup_remaining:.1f} s left: keep the robot clear "
-                "of contact")
-        return Verdict(WARN, state, "; ".join([base] + warnings))
-    if h.phase == "free":
-        if np.isfinite(h.since_contact_end):
-            level = STALE if h.since_contact_end > h.stale_after else WARN
-            msg = (f"contact lost {h.since_contact_end:.1f} s ago: object estimates held from "
-                   "the last contact")
-            return Verdict(max(level, WARN if warnings else OK), "contact_lost",
-                           "; ".join([msg] + warnings))
-        msg = "free motion, no contact yet: wrench valid, no object estimate"
-        return Verdict(WARN if warnings else OK, "free_motion", "; ".join([msg] + warnings))
+    def __init__(self, condition_limit: float, min_rate_hz: float, stale_after: float):
+        self.condition_limit = condition_limit
+        self.min_rate_hz = min_rate_hz
+        self.stale_after = stale_after
+        self._contact_words: dict[int, tuple[str, str]] = {}
 
-    lo, hi = h.nis_bounds
-    if h.filter_samples > 0 and not (lo <= h.nis_average <= hi):
-        warnings.append(f"innovations inconsistent (NIS {h.nis_average:.2f} outside "
-                        f"[{lo:.2f}, {hi:.2f}])")
-    if h.converged.all():
-        state, msg = "converged", "in contact, all four parameters converged"
-    else:
-        state = "in_contact"
-        idle = [p for p, e in zip(PARAMETERS, h.excited) if not e]
-        pending = [p for p, c, e in zip(PARAMETERS, h.converged, h.excited) if e and not c]
-        parts = []
-        if pending:
-            parts.append("converging: " + ", ".join(pending))
-        if idle:
-            parts.append("not excited by the motion: " + ", ".join(idle))
-        msg = "in contact, " + "; ".join(parts) if parts else "in contact"
-    return Verdict(WARN if warnings else OK, state, "; ".join([msg] + warnings))
+    def _in_contact(self, pattern: int) -> tuple[str, str]:
+        words = self._contact_words.get(pattern)
+        if words is None:
+            if pattern & ALL_CONVERGED == ALL_CONVERGED:
+                words = ("converged", "in contact, all four parameters converged")
+            else:
+                idle = [p for i, p in enumerate(PARAMETERS) if not pattern >> i & 1]
+                pending = [p for i, p in enumerate(PARAMETERS)
+                           if pattern >> i & 1 and not pattern >> (i + 4) & 1]
+                parts = []
+                if pending:
+                    parts.append("converging: " + ", ".join(pending))
+                if idle:
+                    parts.append("not excited by the motion: " + ", ".join(idle))
+                words = ("in_contact", "in contact, " + "; ".join(parts) if parts
+                         else "in contact")
+            self._contact_words[pattern] = words
+        return words
+
+    def judge(self, phase: str, startup_remaining: float, since_contact_end: float,
+              pattern: int, nis_average: float, nis_lo: float, nis_hi: float,
+              filter_samples: int, jacobian_condition: float, recent_rejects: int,
+              rate_hz: float, stamp_from_receive: bool) -> Verdict:
+        """The worst applicable finding decides the level; the message names it.
+
+        phase: learning_bias | free | contact. startup_remaining s of bias learning left;
+        since_contact_end s (inf: never in contact); pattern: :func:`flag_pattern` of the
+        parameters' excited and converged flags; nis_average and its interval [nis_lo, nis_hi];
+        filter_samples: updates since the filter's last reset; recent_rejects: samples rejected
+        over the last second; rate_hz: input rate from the stamps."""
+        warnings = ""
+        if jacobian_condition > self.condition_limit:
+            warnings += (f"; contact Jacobian near singular (condition {jacobian_condition:.0f}"
+                         f" > {self.condition_limit:.0f})")
+        if recent_rejects:
+            warnings += f"; {recent_rejects} samples rejected in the last second"
+        if self.min_rate_hz > 0 and 0 < rate_hz < self.min_rate_hz:
+            warnings += f"; input rate {rate_hz:.0f} Hz below {self.min_rate_hz:.0f} Hz"
+        if stamp_from_receive:
+            warnings += "; stamps are zero: receive time used"
+
+        if phase == "contact":
+            if filter_samples > 0 and not (nis_lo <= nis_average <= nis_hi):
+                warnings += (f"; innovations inconsistent (NIS {nis_average:.2f} outside "
+                             f"[{nis_lo:.2f}, {nis_hi:.2f}])")
+            state, msg = self._in_contact(pattern)
+            return Verdict(WARN if warnings else OK, state, msg + warnings)
+        if phase == "learning_bias":
+            return Verdict(WARN, "learning_bias",
+                           f"learning torque bias, {startup_remaining:.1f} s left: keep the robot "
+                           "clear of contact" + warnings)
+        if math.isfinite(since_contact_end):
+            level = STALE if since_contact_end > self.stale_after else WARN
+            return Verdict(level, "contact_lost",
+                           f"contact lost {since_contact_end:.1f} s ago: object estimates held "
+                           "from the last contact" + warnings)
+        return Verdict(WARN if warnings else OK, "free_motion",
+                       "free motion, no contact yet: wrench valid, no object estimate" + warnings)

@@ -9,8 +9,9 @@ JointState carries their angle, which :class:`JointMap` converts.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 import pinocchio as pin
@@ -23,14 +24,14 @@ class ModelError(ValueError):
     """The URDF cannot be used: it does not parse, a frame is missing, a joint is unsupported."""
 
 
-@dataclass(frozen=True)
-class Dynamics:
+class Dynamics(NamedTuple):
     """Dynamics terms at one sample (nv = number of velocity coordinates).
 
     mass_matrix (nv, nv) kg·m² / kg; coriolis_transpose_velocity (nv,) C(q,q')^T q', N·m;
     gravity (nv,) g(q), N·m; jacobian (6, nv) contact-frame Jacobian, world-aligned (rows
     v_x, v_y, v_z, w_x, w_y, w_z); position (3,) contact point in the world frame, m;
-    rotation (3, 3) contact frame orientation in the world frame.
+    rotation (3, 3) contact frame orientation in the world frame. Every array is the
+    caller's own (Pinocchio returns copies), so it may be kept across samples.
     """
 
     mass_matrix: np.ndarray
@@ -60,22 +61,36 @@ class JointMap:
                 "unknown_joint",
                 f"joint state lacks model joints {missing}; it has {list(names)}")
         self.source = np.array([index[j] for j in model.joint_names], dtype=int)  # (nv,)
-        self._simple_q = model._simple_q
-        self._simple_v = model._simple_v
-        self._circle_q = model._circle_q
-        self._circle_v = model._circle_v
-        self._nq = model.nq
+        self._identity = len(names) == model.nv and bool(
+            np.array_equal(self.source, np.arange(model.nv)))
+        # q index -> the velocity index (joint) whose angle fills it; continuous joints' two
+        # entries are then overwritten by (cos, sin)
+        q_from = np.zeros(model.nq, dtype=int)
+        q_from[model._simple_q] = model._simple_v
+        q_from[model._circle_q] = model._circle_v
+        q_from[model._circle_q + 1] = model._circle_v
+        self._q_from = q_from
+        self._circles = tuple(zip(model._circle_q.tolist(), model._circle_v.tolist()))
 
     def apply(self, sample: Sample) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Return (q (nq,), v (nv,), effort (nv,)) in model order."""
-        angle = sample.position[self.source]
-        q = np.empty(self._nq)
-        q[self._simple_q] = angle[self._simple_v]
-        if len(self._circle_q):
-            a = angle[self._circle_v]
-            q[self._circle_q] = np.cos(a)
-            q[self._circle_q + 1] = np.sin(a)
-        return q, sample.velocity[self.source], sample.effort[self.source]
+        """Return (q (nq,), v (nv,), effort (nv,)) in model order (q always a new array)."""
+        if self._identity:  # names already in model order: no reordering
+            angle, v, e = sample.position, sample.velocity, sample.effort
+            v = np.asarray(v, dtype=float)
+            e = np.asarray(e, dtype=float)
+        else:
+            src = self.source
+            angle = sample.position.take(src)
+            v = sample.velocity.take(src).astype(float, copy=False)
+            e = sample.effort.take(src).astype(float, copy=False)
+        q = angle.take(self._q_from)   # every q entry from its joint's angle...
+        for iq, iv in self._circles:   # ...then (cos, sin) for continuous joints
+            a = float(angle[iv])
+            q[iq] = math.cos(a)
+            q[iq + 1] = math.sin(a)
+        if q.dtype != float:
+            q = q.astype(float)
+        return q, v, e
 
 
 class RobotModel:
@@ -157,15 +172,15 @@ class RobotModel:
 
     def dynamics(self, q: np.ndarray, v: np.ndarray) -> Dynamics:
         """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
-        m, d = self.model, self.data
+        m, d, fid = self.model, self.data, self.frame_id
         pin.computeJointJacobians(m, d, q)
-        pin.updateFramePlacement(m, d, self.frame_id)
-        mass = pin.crba(m, d, q)
+        pin.updateFramePlacement(m, d, fid)
+        mass = pin.crba(m, d, q)   # a copy of data.M
         if self._symmetrize:
             mass = np.triu(mass) + np.triu(mass, 1).T
-        coriolis = pin.computeCoriolisMatrix(m, d, q, v)
+        # C^T v as v^T C: one product, no transposed view
+        coriolis_t_v = v.dot(pin.computeCoriolisMatrix(m, d, q, v))
         gravity = pin.computeGeneralizedGravity(m, d, q)
-        jac = pin.getFrameJacobian(m, d, self.frame_id, pin.LOCAL_WORLD_ALIGNED)
-        pose = d.oMf[self.frame_id]
-        return Dynamics(mass.copy(), coriolis.T @ v, gravity.copy(), jac,
-                        pose.translation.copy(), pose.rotation.copy())
+        jac = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
+        pose = d.oMf[fid].homogeneous   # one 4x4 copy: cheaper than translation + rotation
+        return Dynamics(mass, coriolis_t_v, gravity, jac, pose[:3, 3], pose[:3, :3])

@@ -19,7 +19,7 @@ velocity noise straight through), effort noise as about ``sigma_tau * sqrt(K_O d
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -100,13 +100,21 @@ class KalmanMomentumObserver:
         self._shared: tuple[float, ...] | None = None
         self._settle = False
         self._w6 = 0.0
+        self._Z = np.zeros((6, n))   # shared path: rows p, d, e, beta_prev, beta, momentum
+        self._A = np.zeros((3, 6))
 
     def _step_shared(self, t: float, dt: float, momentum: np.ndarray, beta: np.ndarray,
                      mean_r: float) -> tuple[np.ndarray, bool]:
         """Fast path for one bandwidth on every joint: the covariance divided by R_i is the
         same for all joints (Q and R both scale with R_i), so one 3x3 recursion in plain floats
         gives every joint's gain. Effort noise enters with the joints' mean R; it is small next
-        to the velocity noise through M."""
+        to the velocity noise through M.
+
+        The state rows [p, d, e] of all joints, the previous and current beta and the momentum
+        measurement sit in one (6, nv) buffer Z, and predict + update is one product
+        ``[p, d, e]+ = A Z`` with A (3, 6) from dt and the gains:
+        p- = p + dt d + dt^2/2 e + dt/2 (beta_prev + beta), d- = d + dt e, e- = e, then
+        x+ = x- + k (momentum - p-)."""
         if self._settle:
             # first interval after a (re)start: run the covariance recursion to its steady
             # state for this interval first, so that the start does not read velocity noise as
@@ -115,16 +123,19 @@ class KalmanMomentumObserver:
                 self._shared_gain(dt, mean_r)
             self._settle = False
         k0, k1, k2 = self._shared_gain(dt, mean_r)
-        a, b = dt, 0.5 * dt * dt
-        x = self._x
-        x0 = x[:, 0] + a * (x[:, 1] + 0.5 * (beta + self._beta)) + b * x[:, 2]
-        x1 = x[:, 1] + a * x[:, 2]
-        y = momentum - x0
-        x[:, 0] = x0 + k0 * y
-        x[:, 1] = x1 + k1 * y
-        x[:, 2] += k2 * y
-        self._t, self._beta = t, beta
-        self.residual = x[:, 1].copy()
+        a, b, c = dt, 0.5 * dt * dt, 0.5 * dt
+        i0 = 1.0 - k0
+        self._A[:] = ((i0, i0 * a, i0 * b, i0 * c, i0 * c, k0),
+                      (-k1, 1.0 - k1 * a, a - k1 * b, -k1 * c, -k1 * c, k1),
+                      (-k2, -k2 * a, 1.0 - k2 * b, -k2 * c, -k2 * c, k2))
+        Z = self._Z
+        Z[4] = beta
+        Z[5] = momentum
+        x = self._A.dot(Z)
+        Z[:3] = x
+        Z[3] = beta
+        self._t = t
+        self.residual = x[1]
         return self.residual, False
 
     def _shared_gain(self, dt: float, mean_r: float) -> tuple[float, float, float]:
@@ -167,6 +178,10 @@ class KalmanMomentumObserver:
             d = self._P.diagonal(axis1=1, axis2=2) / r_var[:, None]
             self._shared = (1.0, 0.0, 0.0, float(d[:, 1].max()), 0.0, float(d[:, 2].max()))
             self._w6 = float(self.gain[0]) ** 6
+            if self._Z.shape[1] != len(momentum):
+                self._Z = np.zeros((6, len(momentum)))
+            self._Z[:3] = self._x.T
+            self._Z[3] = beta
 
     def step(self, t: float, momentum: np.ndarray, beta: np.ndarray,
              mass_matrix: np.ndarray) -> tuple[np.ndarray, bool]:
@@ -249,10 +264,15 @@ class BiasEstimator:
         """Move b toward -raw_residual (raw_residual (nv,) N·m, computed without bias)."""
         if not self.learn or dt <= 0.0:
             return
-        alpha = 1.0 - np.exp(-dt / self.time_constant)
-        step = np.clip(alpha * (-raw_residual - self.value), -self.max_rate * dt,
-                       self.max_rate * dt)
-        self.value = np.clip(self.value + step, -self.limit, self.limit)
+        alpha = 1.0 - math.exp(-dt / self.time_constant)
+        step = (-alpha) * (raw_residual + self.value)
+        limit = self.max_rate * dt
+        np.minimum(step, limit, out=step)
+        np.maximum(step, -limit, out=step)
+        step += self.value
+        np.minimum(step, self.limit, out=step)
+        np.maximum(step, -self.limit, out=step)
+        self.value = step
         self.last_learned = t
 
     def age(self, t: float) -> float:
@@ -260,8 +280,7 @@ class BiasEstimator:
         return float("inf") if self.last_learned is None else t - self.last_learned
 
 
-@dataclass
-class ContactState:
+class ContactState(NamedTuple):
     in_contact: bool
     level: float   # residual RMS over joints in units of its free-motion noise (dimensionless)
     event: str     # "", "contact_begin" or "contact_end"
@@ -287,6 +306,7 @@ class ContactMonitor:
     def reset(self) -> None:
         self.noise_var = np.full(self.nv, self.noise_floor**2)
         self._weights: np.ndarray | None = None
+        self._inv_var_nv = 1.0 / (self.noise_var * self.nv)  # 1 / (nv sigma_i^2)
         self.in_contact = False
         self._pending_since: float | None = None
 
@@ -295,15 +315,23 @@ class ContactMonitor:
         """True while a level crossing waits out hold_time (a state change may be coming)."""
         return self._pending_since is not None
 
+    def set_noise_var(self, var: np.ndarray) -> None:
+        """Set the per-joint residual noise variances (nv,) N·m^2 (floored at noise_floor^2)."""
+        self.noise_var = np.maximum(np.asarray(var, float), self.noise_floor**2)
+        self._weights = None
+        self._inv_var_nv = 1.0 / (self.noise_var * self.nv)
+
     @property
     def noise_std(self) -> np.ndarray:
         return np.sqrt(self.noise_var)
 
     def learn_noise(self, dt: float, residual: np.ndarray) -> None:
-        alpha = 1.0 - np.exp(-dt / self.noise_time_constant)
-        self.noise_var += alpha * (residual * residual - self.noise_var)
-        np.maximum(self.noise_var, self.noise_floor**2, out=self.noise_var)
+        alpha = 1.0 - math.exp(-dt / self.noise_time_constant)
+        var = self.noise_var
+        var += alpha * (residual * residual - var)
+        np.maximum(var, self.noise_floor**2, out=var)
         self._weights = None
+        self._inv_var_nv = 1.0 / (var * self.nv)
 
     @property
     def weights(self) -> np.ndarray:
@@ -314,7 +342,7 @@ class ContactMonitor:
         return self._weights
 
     def step(self, t: float, residual: np.ndarray) -> ContactState:
-        level = math.sqrt(float(residual @ (residual / self.noise_var)) / self.nv)
+        level = math.sqrt(residual.dot(residual * self._inv_var_nv))
         crossing = level < self.exit_level if self.in_contact else level > self.enter_level
         event = ""
         if crossing:

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .environment import EnvironmentFilter
-from .health import HealthInputs, Verdict, assess
+from .health import ALL_CONVERGED, Health
 from .model import RobotModel
 from .observer import (BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
                        MomentumObserver)
@@ -121,8 +121,7 @@ class Pipeline:
                                  s["contact.noise_time_constant"], s["contact.release_time"])
         old_contact = getattr(self, "contact", None)
         if old_contact is not None:
-            contact.noise_var = np.maximum(old_contact.noise_var, s["contact.noise_floor"] ** 2)
-            contact._weights = None
+            contact.set_noise_var(old_contact.noise_var)
             contact.in_contact = old_contact.in_contact
         self.contact = contact
         self.wrench_map = WrenchMap(s["wrench.mode"] == "wrench", s["wrench.damping"])
@@ -138,11 +137,11 @@ class Pipeline:
         # values read on every sample, looked up once here
         self._noise_tc = s["contact.noise_time_constant"]
         self._forget_after = s["contact.forget_after"]
-        self._condition_limit = s["wrench.condition_limit"]
-        self._min_rate = s["health.min_rate"]
-        self._stale_after = s["health.stale_after"]
+        self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
+                              s["health.stale_after"])
         self._prior = (np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"]),
                        s["filter.measurement_std"])
+        self._no_flags = np.zeros(4, bool)
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -197,7 +196,7 @@ class Pipeline:
         self._startup = max(self.settings["bias.startup"], 0.5)
         return True, f"learning torque bias for {self._startup:.1f} s: keep the robot clear of contact"
 
-    # --- one sample ------------------------------------------------------------------------
+    # --- one sample ---------------------------------------------------------------------
     def process(self, sample: Sample) -> Estimate | None:
         """One sample in, one Estimate out; None when the sample is rejected (and counted)."""
         try:
@@ -210,30 +209,33 @@ class Pipeline:
         if self._t_start is None:
             self._t_start = t
             self._startup = self.settings["bias.startup"]
-        dt = 0.0 if self._t_prev is None else t - self._t_prev
+        t_prev = self._t_prev
+        dt = 0.0 if t_prev is None else t - t_prev
 
-        dyn = self.model.dynamics(q, v)
-        tau = effort - self.friction.torque(v)
-        raw, restarted = self.observer.step(t, dyn.mass_matrix @ v,
-                                            tau + dyn.coriolis_transpose_velocity - dyn.gravity,
-                                            dyn.mass_matrix)
-        residual = raw + self.bias.value
+        mass, coriolis_t_v, gravity, jacobian, position, rotation = self.model.dynamics(q, v)
+        friction = self.friction
+        tau = effort - friction.torque(v) if friction.enabled else effort
+        beta = tau + coriolis_t_v
+        beta -= gravity
+        raw, restarted = self.observer.step(t, mass.dot(v), beta, mass)
+        bias = self.bias
+        residual = raw + bias.value
 
+        contact = self.contact
         elapsed = t - self._t_start
         event = "observer_restarted" if restarted else ""
         if elapsed < self._startup:
             phase = "learning_bias"
-            self.bias.update(t, dt, raw)
+            bias.update(t, dt, raw)
             if elapsed > 0.5 * self._startup:  # learn the noise 4x faster than in free motion
-                self.contact.learn_noise(dt * 4.0 * self._noise_tc / max(self._startup, 1e-3),
-                                         raw + self.bias.value)
+                contact.learn_noise(dt * 4.0 * self._noise_tc / max(self._startup, 1e-3),
+                                    raw + bias.value)
             contact_level = 0.0
         else:
-            state = self.contact.step(t, residual)
-            contact_level = state.level
-            if state.event:
-                event = state.event
-            if state.in_contact:
+            in_contact, contact_level, contact_event = contact.step(t, residual)
+            if contact_event:
+                event = contact_event
+            if in_contact:
                 phase = "contact"
             else:
                 phase = "free"
@@ -241,27 +243,28 @@ class Pipeline:
                 # contact building up, and must not be learned as bias or noise
                 # nor right after a contact ended (it may resume: a held object's force
                 # passing through zero)
-                if (not self.contact.pending and state.level < self.contact.exit_level
+                if (contact._pending_since is None and contact_level < contact.exit_level
                         and t - self._contact_end > self._forget_after):
-                    self.bias.update(t, dt, raw)
-                    residual = raw + self.bias.value
-                    self.contact.learn_noise(dt, residual)
+                    bias.update(t, dt, raw)
+                    residual = raw + bias.value
+                    contact.learn_noise(dt, residual)
 
-        wrench = self.wrench_map.solve(dyn.jacobian, residual, self.contact.weights)
-        if not math.isfinite(wrench.force.sum() + wrench.torque.sum()):
+        force, torque, condition = self.wrench_map.solve(jacobian, residual, contact.weights)
+        if not math.isfinite(force.dot(force) + torque.dot(torque)):
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))
             return None
 
-        point_velocity = dyn.jacobian[:3] @ v
-        u = self.direction.update(dt, dyn.rotation, point_velocity)
-        force_along = float(u @ wrench.force)
-        dx = 0.0 if self._point_prev is None else float(u @ (dyn.position - self._point_prev))
-        self._point_prev = dyn.position
-        velocity_along = float(u @ point_velocity)
+        point_velocity = jacobian[:3].dot(v)
+        u = self.direction.update(dt, rotation, point_velocity)
+        force_along = float(u.dot(force))
+        point_prev = self._point_prev
+        dx = 0.0 if point_prev is None else float(u.dot(position - point_prev))
+        self._point_prev = position
+        velocity_along = float(u.dot(point_velocity))
 
-        kin = self._kinematics(dt)
+        kin = self.kinematics if self.kinematics is not None else self._kinematics(dt)
         step = self.filter.last
         if kin is not None:
             if event == "contact_begin":
@@ -275,63 +278,64 @@ class Pipeline:
                     event = "contact_resumed"
                 self._ever_contact = True
             kin.push(t, dx, velocity_along, force_along)
-            if phase != "contact" and contact_level < self.contact.exit_level:
-                self._quiet_position = kin.position
-            if phase == "contact":
+            if phase != "contact":
+                if contact_level < contact.exit_level:
+                    self._quiet_position = kin.position
+            else:
                 row = kin.aligned_row(dt)
                 if row is not None:
-                    h, f, t_centre = row
                     try:
-                        step = self.filter.update(t_centre, h, f)
+                        step = self.filter.update(row[2], row[0], row[1])
                     except SampleRejected as exc:
                         self._reject(t, exc)
                         return None
                     if step.change:
-                        event = f"change: {step.change}"
+                        event = "change: " + step.change
+            position_along, acceleration_along, lag = kin.position, kin._acc, kin.lag
+        else:
+            position_along = acceleration_along = lag = 0.0
         if event == "contact_end":
             self._contact_end = t
 
         self._t_prev = t
         if dt > 0:
-            self._dt_avg = dt if self._dt_avg == 0 else self._dt_avg + 0.01 * (dt - self._dt_avg)
-        rate = 1.0 / self._dt_avg if self._dt_avg > 0 else 0.0
-        while self._reject_times and self._reject_times[0] < t - 1.0:
-            self._reject_times.popleft()
+            avg = self._dt_avg
+            self._dt_avg = avg = dt if avg == 0 else avg + 0.01 * (dt - avg)
+        else:
+            avg = self._dt_avg
+        rate = 1.0 / avg if avg > 0 else 0.0
+        reject_times = self._reject_times
+        if reject_times:
+            while reject_times and reject_times[0] < t - 1.0:
+                reject_times.popleft()
 
         if step is None:
             theta, std, meas_std = self._prior
-            excited = converged = np.zeros(4, bool)
+            excited = converged = self._no_flags
             nis = nis_avg = 0.0
-            bounds, samples = (0.0, math.inf), 0
+            bounds, samples, pattern = (0.0, math.inf), 0, 0
         else:
             theta, std = step.theta, step.std
             excited, converged = step.excited, step.converged
             nis, nis_avg, bounds = step.nis, step.nis_average, step.nis_bounds
-            meas_std, samples = math.sqrt(step.measurement_var), step.samples
+            meas_std, samples, pattern = math.sqrt(step.measurement_var), step.samples, step.pattern
         if phase != "contact":
-            converged = np.zeros(4, bool)
-        verdict: Verdict = assess(HealthInputs(
-            time=t, phase=phase, startup_remaining=max(self._startup - elapsed, 0.0),
-            since_contact_end=t - self._contact_end if self._ever_contact else math.inf,
-            excited=excited, converged=converged,
-            nis_average=nis_avg, nis_bounds=bounds, filter_samples=samples,
-            jacobian_condition=wrench.condition, condition_limit=self._condition_limit,
-            recent_rejects=len(self._reject_times), rate_hz=rate, min_rate_hz=self._min_rate,
-            stale_after=self._stale_after, stamp_from_receive=sample.stamp_from_receive))
+            converged = self._no_flags
+            pattern &= 0b1111
+        stamp_from_receive = sample.stamp_from_receive
+        level, state, message = self._health.judge(
+            phase, self._startup - elapsed if elapsed < self._startup else 0.0,
+            t - self._contact_end if self._ever_contact else math.inf, pattern, nis_avg,
+            bounds[0], bounds[1], samples, condition, len(reject_times), rate,
+            stamp_from_receive)
         return Estimate(
-            time=t, force=wrench.force, torque=wrench.torque, direction=u.copy(),
-            force_along=force_along, position_along=0.0 if kin is None else kin.position,
-            velocity_along=velocity_along,
-            acceleration_along=0.0 if kin is None else kin.acceleration(),
-            parameters=theta, parameter_std=std, excited=excited, parameter_converged=converged,
-            converged=bool(converged.all()), in_contact=phase == "contact", phase=phase,
-            level=verdict.level, state=verdict.state, message=verdict.message, nis=nis,
-            nis_average=nis_avg, nis_bounds=bounds, measurement_std=meas_std,
-            external_torque=residual, bias=self.bias.value.copy(), bias_age=self.bias.age(t),
-            contact_level=contact_level, jacobian_condition=wrench.condition,
-            observer_restarts=self.observer.restarts, rejected=self.rejects.total, rate_hz=rate,
-            kinematics_lag=0.0 if kin is None else kin.lag, event=event,
-            stamp_from_receive=sample.stamp_from_receive)
+            t, force, torque, u.copy(), force_along, position_along, velocity_along,
+            acceleration_along, theta, std, excited, converged,
+            pattern & ALL_CONVERGED == ALL_CONVERGED, phase == "contact", phase, level, state,
+            message, nis, nis_avg, bounds, meas_std, residual, bias.value.copy(),
+            math.inf if bias.last_learned is None else t - bias.last_learned, contact_level,
+            condition, self.observer.restarts, self.rejects.total, rate, lag, event,
+            stamp_from_receive)
 
     # --- helpers ---------------------------------------------------------------------------
     def _reject(self, t: float, exc: SampleRejected) -> None:
@@ -339,12 +343,12 @@ class Pipeline:
         self._reject_times.append(t)
 
     def _kinematics(self, dt: float) -> AlongKinematics | None:
-        if self.kinematics is None:
-            if dt > 0:
-                self._intervals.append(dt)
-            if len(self._intervals) < _KINEMATICS_WARMUP:
-                return None
-            s = self.settings
-            self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
-                                              float(np.median(self._intervals)), self._gain_mean)
+        """Build AlongKinematics once the nominal interval is known (None until then)."""
+        if dt > 0:
+            self._intervals.append(dt)
+        if len(self._intervals) < _KINEMATICS_WARMUP:
+            return None
+        s = self.settings
+        self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
+                                          float(np.median(self._intervals)), self._gain_mean)
         return self.kinematics

@@ -57,14 +57,12 @@ class RejectCounts:
     counts: dict[str, int] = field(default_factory=lambda: {r: 0 for r in REJECT_REASONS})
     last_reason: str = ""
     last_message: str = ""
+    total: int = 0      # all rejections, the sum of counts (kept, not summed per sample)
 
     def add(self, exc: SampleRejected) -> None:
         self.counts[exc.reason] = self.counts.get(exc.reason, 0) + 1
+        self.total += 1
         self.last_reason, self.last_message = exc.reason, str(exc)
-
-    @property
-    def total(self) -> int:
-        return sum(self.counts.values())
 
 
 class SampleValidator:
@@ -88,8 +86,10 @@ class SampleValidator:
                 "length_mismatch",
                 f"{n} names but {len(s.position)} positions, {len(s.velocity)} velocities, "
                 f"{len(s.effort)} efforts; expected {n} of each")
-        # one sum per array: NaN or inf anywhere makes it non-finite (cheap fast path)
-        if not math.isfinite(s.position.sum() + s.velocity.sum() + s.effort.sum()):
+        # one dot product per array: NaN or inf anywhere makes it non-finite (cheap fast path;
+        # a huge finite value that overflows the square is looked at element by element)
+        pos, vel, eff = s.position, s.velocity, s.effort
+        if not math.isfinite(pos.dot(pos) + vel.dot(vel) + eff.dot(eff)):
             for label, arr in (("position", s.position), ("velocity", s.velocity),
                                ("effort", s.effort)):
                 bad = ~np.isfinite(arr)

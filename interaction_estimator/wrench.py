@@ -14,15 +14,15 @@ the window's centre, which lags by half the window.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from typing import NamedTuple
 
 import numpy as np
 from scipy.linalg.lapack import dsyev
 from scipy.signal import savgol_coeffs
 
 
-@dataclass(frozen=True)
-class Wrench:
+class Wrench(NamedTuple):
     """force (3,) N and torque (3,) N·m (zeros in force mode) the robot applies, world axes;
     condition: condition number of the Jacobian rows used (sigma_max / sigma_min)."""
 
@@ -52,12 +52,16 @@ class WrenchMap:
         jw = jac if weights is None else jac * weights
         # LAPACK's symmetric eigensolver called directly: numpy.linalg.eigh costs ~10x more in
         # Python overhead for a 3x3 matrix; one decomposition gives the solve and the condition.
-        w, vecs, _ = dsyev(jw @ jac.T)
-        f_ext = vecs @ ((vecs.T @ (jw @ external_torque)) / (w + self.damping2))
-        condition = float(np.sqrt(w[-1] / w[0])) if w[0] > 0.0 else float("inf")
+        w, vecs, _ = dsyev(jw.dot(jac.T))
+        w_min, w_max = float(w[0]), float(w[-1])
+        w += self.damping2
+        # F = -f_ext = -V diag(1/(w + lambda^2)) V^T J W tau_ext
+        force = vecs.dot(jw.dot(external_torque).dot(vecs) / w)
+        np.negative(force, out=force)
+        condition = math.sqrt(w_max / w_min) if w_min > 0.0 else math.inf
         if self.full_wrench:
-            return Wrench(-f_ext[:3], -f_ext[3:], condition)
-        return Wrench(-f_ext, self._zero3, condition)
+            return Wrench(force[:3], force[3:], condition)
+        return Wrench(force, self._zero3, condition)
 
 
 class Direction:
@@ -132,6 +136,7 @@ class AlongKinematics:
         # savgol_coeffs with use='dot' gives weights for the window in time order.
         self._deriv = savgol_coeffs(n, polyorder, deriv=1, delta=1.0, use="dot")
         self._smooth = savgol_coeffs(n, polyorder, deriv=0, use="dot")
+        self._coeffs = np.vstack((self._deriv, self._smooth))  # both in one product
         self.gain = observer_gain
         self.nominal_dt = nominal_dt
         self.reset()
@@ -143,22 +148,22 @@ class AlongKinematics:
 
     def reset(self) -> None:
         n = self.n
-        # doubled ring buffers: the window is always the contiguous slice [i, i + n)
-        self._t = np.zeros(2 * n)
-        self._v = np.zeros(2 * n)
-        self._x = np.zeros(2 * n)
-        self._f = np.zeros(2 * n)
+        # one doubled ring buffer, rows t, v, x, f: the window is always the contiguous slice
+        # [i, i + n) of every row
+        self._buf = np.zeros((4, 2 * n))
         self._i = 0
         self._count = 0
         self.position = 0.0
         self._filtered: np.ndarray | None = None
+        self._acc = 0.0        # Savitzky-Golay x'' at the window centre, m/s^2
+        self._vel = 0.0        # Savitzky-Golay smoothed x' at the window centre, m/s
 
     def start_contact(self, origin: float) -> None:
         """Contact onset: x is measured from ``origin`` (m, a past value of the running
         position: where the contact began, before it was detected); the alignment filter
         restarts."""
         self.position -= origin
-        self._x -= origin
+        self._buf[2] -= origin
         self._filtered = None
 
     def push(self, t: float, dx: float, velocity: float, force: float) -> None:
@@ -166,12 +171,18 @@ class AlongKinematics:
         force along u (N)."""
         self.position += dx
         i, n = self._i, self.n
-        for buf, value in ((self._t, t), (self._v, velocity), (self._x, self.position),
-                           (self._f, force)):
-            buf[i] = value
-            buf[i + n] = value
-        self._i = (i + 1) % n
+        column = (t, velocity, self.position, force)
+        buf = self._buf
+        buf[:, i] = column
+        buf[:, i + n] = column
+        i += 1
+        self._i = i if i < n else 0
         self._count += 1
+        if self._count >= n:
+            i = self._i
+            spacing = (buf[0, i + n - 1] - buf[0, i]) / (n - 1)
+            d, v = self._coeffs.dot(buf[1, i:i + n]).tolist()
+            self._acc, self._vel = d / spacing, v
 
     @property
     def ready(self) -> bool:
@@ -179,29 +190,21 @@ class AlongKinematics:
 
     def acceleration(self) -> float:
         """Savitzky-Golay acceleration at the window centre, m/s^2 (0 before the window fills)."""
-        if not self.ready:
-            return 0.0
-        s = slice(self._i, self._i + self.n)
-        t = self._t[s]
-        spacing = (t[-1] - t[0]) / (self.n - 1)
-        return float(self._deriv @ self._v[s]) / spacing
+        return self._acc
 
     def aligned_row(self, dt: float) -> tuple[np.ndarray, float, float] | None:
         """Regressor h = [x'', x', x, 1] at the window centre passed through the
         observer-matching first-order filter, and the force f (N) at the window centre; returns
         (h (4,), f, centre time s), or None until the window is full."""
-        if not self.ready:
+        if self._count < self.n:
             return None
-        s = slice(self._i, self._i + self.n)
-        t = self._t[s]
-        spacing = (t[-1] - t[0]) / (self.n - 1)
         c = self._i + self.half
-        row = np.array([float(self._deriv @ self._v[s]) / spacing,
-                        float(self._smooth @ self._v[s]), self._x[c], 1.0])
+        buf = self._buf
+        row = np.array((self._acc, self._vel, buf[2, c], 1.0))
         if self._filtered is None or self.gain is None:
             self._filtered = row
         else:
-            a = np.exp(-self.gain * dt)
+            a = math.exp(-self.gain * dt)
             self._filtered = a * self._filtered + (1.0 - a) * row
         # the force is the observer's output: already filtered once, so it is taken as it is
-        return self._filtered.copy(), float(self._f[c]), float(self._t[c])
+        return self._filtered.copy(), float(buf[3, c]), float(buf[0, c])
