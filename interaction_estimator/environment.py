@@ -38,7 +38,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .health import flag_pattern
 from .samples import SampleRejected
 from .settings import Settings, SettingsError
 
@@ -513,15 +512,22 @@ class EnvironmentFilter:
         if c.correlation_correction and corr[1] > 0.0:
             rho = min(max(corr[0] / corr[1], 0.0), 0.998)
             inflation = (1.0 + rho) / (1.0 - rho)
-        std = [math.sqrt(P[0] * inflation) if P[0] > 0.0 else 0.0,
-               math.sqrt(P[5] * inflation) if P[5] > 0.0 else 0.0,
-               math.sqrt(P[10] * inflation) if P[10] > 0.0 else 0.0,
-               math.sqrt(P[15] * inflation) if P[15] > 0.0 else 0.0]
-        cs, rel = c.converged_std_list, c.converged_rel
-        converged = [excited[i] and std[i] < max(cs[i], rel * abs(theta[i])) for i in range(4)]
-        numbers = np.array(theta + std + list(excitation))
-        flags = np.array(excited + tuple(converged))
-        pattern = flag_pattern(excited, converged)
+        v0, v1, v2, v3 = P[0], P[5], P[10], P[15]
+        s0 = math.sqrt(v0 * inflation) if v0 > 0.0 else 0.0
+        s1 = math.sqrt(v1 * inflation) if v1 > 0.0 else 0.0
+        s2 = math.sqrt(v2 * inflation) if v2 > 0.0 else 0.0
+        s3 = math.sqrt(v3 * inflation) if v3 > 0.0 else 0.0
+        cs0, cs1, cs2, cs3 = c.converged_std_list
+        rel = c.converged_rel
+        t0, t1, t2, t3 = theta
+        c0 = x0 and s0 < max(cs0, rel * abs(t0))
+        c1 = x1 and s1 < max(cs1, rel * abs(t1))
+        c2 = x2 and s2 < max(cs2, rel * abs(t2))
+        c3 = x3 and s3 < max(cs3, rel * abs(t3))
+        numbers = np.array((t0, t1, t2, t3, s0, s1, s2, s3) + excitation)
+        flags = np.array((x0, x1, x2, x3, c0, c1, c2, c3))
+        pattern = (x0 | x1 << 1 | x2 << 2 | x3 << 3
+                   | c0 << 4 | c1 << 5 | c2 << 6 | c3 << 7)   # as health.flag_pattern
         step = FilterStep(numbers[:4], numbers[4:8], y, S, nis, nis_avg,
                           (self._nis_lo[n], self._nis_hi[n]), R, numbers[8:], flags[:4],
                           flags[4:], change, k + 1, pattern)

@@ -127,29 +127,35 @@ class EstimateTable:
         return t
 
 
-def write_csv(path: Path, cols: Mapping[str, np.ndarray]) -> None:
+# 17 significant digits read back bit-identical (IEEE 754 binary64), like repr, at about half
+# repr's cost (repr searches for the shortest such text)
+_FLOAT_TEXT = "%.17g".__mod__
+
+
+def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 20000) -> None:
     """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats written with
-    ``repr`` (they read back bit-identical), flags and levels as integers (empty where a
-    source did not report them)."""
+    17 significant digits (they read back bit-identical), flags and levels as integers (empty where a
+    source did not report them). Written column-wise in chunks of ``chunk`` rows: each column's
+    text is made by one ``map`` over its values, which is several times faster than formatting
+    row by row, and memory stays bounded by the chunk."""
     n = len(cols["time"])
-    numeric = [c for c in COLUMN_NAMES if c != "state"]
-    state_at = COLUMN_NAMES.index("state")
-    block = np.column_stack([cols[c] for c in numeric]) if n else np.zeros((0, len(numeric)))
-    fmt_parts = ["%s" if c in _INTEGER_COLUMNS else "%r" for c in numeric]
-    fmt_parts.insert(state_at, "%s")
-    fmt = ",".join(fmt_parts) + "\n"
     states = cols["state"]
-    int_idx = [i for i, c in enumerate(numeric) if c in _INTEGER_COLUMNS]
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(COLUMN_NAMES) + "\n")
-        rows = block.tolist()
-        for k in range(n):
-            row = rows[k]
-            for i in int_idx:
-                v = row[i]
-                row[i] = "" if v != v else int(v)  # NaN (not reported) -> empty field
-            row.insert(state_at, states[k])
-            fh.write(fmt % tuple(row))
+        for lo in range(0, n, chunk):
+            hi = min(lo + chunk, n)
+            texts = []
+            for c in COLUMN_NAMES:
+                if c == "state":
+                    texts.append([str(x) for x in states[lo:hi]])
+                    continue
+                values = np.asarray(cols[c][lo:hi], dtype=float).tolist()
+                if c in _INTEGER_COLUMNS:  # NaN (not reported) -> empty field
+                    texts.append(["" if v != v else str(int(v)) for v in values])
+                else:
+                    texts.append(list(map(_FLOAT_TEXT, values)))
+            fh.write("\n".join(map(",".join, zip(*texts))))
+            fh.write("\n")
 
 
 def read_csv(path: Path) -> dict[str, np.ndarray]:

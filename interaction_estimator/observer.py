@@ -102,6 +102,7 @@ class KalmanMomentumObserver:
         self._w6 = 0.0
         self._Z = np.zeros((6, n))   # shared path: rows p, d, e, beta_prev, beta, momentum
         self._A = np.zeros((3, 6))
+        self._A_flat = self._A.ravel()   # a view: A filled from 18 floats in one assignment
 
     def _step_shared(self, t: float, dt: float, momentum: np.ndarray, beta: np.ndarray,
                      mean_r: float) -> tuple[np.ndarray, bool]:
@@ -125,9 +126,9 @@ class KalmanMomentumObserver:
         k0, k1, k2 = self._shared_gain(dt, mean_r)
         a, b, c = dt, 0.5 * dt * dt, 0.5 * dt
         i0 = 1.0 - k0
-        self._A[:] = ((i0, i0 * a, i0 * b, i0 * c, i0 * c, k0),
-                      (-k1, 1.0 - k1 * a, a - k1 * b, -k1 * c, -k1 * c, k1),
-                      (-k2, -k2 * a, 1.0 - k2 * b, -k2 * c, -k2 * c, k2))
+        self._A_flat[:] = (i0, i0 * a, i0 * b, i0 * c, i0 * c, k0,
+                           -k1, 1.0 - k1 * a, a - k1 * b, -k1 * c, -k1 * c, k1,
+                           -k2, -k2 * a, 1.0 - k2 * b, -k2 * c, -k2 * c, k2)
         Z = self._Z
         Z[4] = beta
         Z[5] = momentum

@@ -250,7 +250,7 @@ class Pipeline:
                     contact.learn_noise(dt, residual)
 
         force, torque, condition = self.wrench_map.solve(jacobian, residual, contact.weights)
-        if not math.isfinite(force.dot(force) + torque.dot(torque)):
+        if not math.isfinite(force.dot(force) + torque.dot(torque)):  # NaN/inf anywhere
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))

@@ -37,6 +37,7 @@ class WrenchMap:
     def __init__(self, full_wrench: bool, damping: float):
         self.full_wrench = full_wrench
         self.damping2 = damping * damping
+        self._minus_damping2 = -self.damping2
         self._zero3 = np.zeros(3)
 
     def solve(self, jacobian: np.ndarray, external_torque: np.ndarray,
@@ -54,10 +55,9 @@ class WrenchMap:
         # Python overhead for a 3x3 matrix; one decomposition gives the solve and the condition.
         w, vecs, _ = dsyev(jw.dot(jac.T))
         w_min, w_max = float(w[0]), float(w[-1])
-        w += self.damping2
+        np.subtract(self._minus_damping2, w, out=w)   # -(w + lambda^2): the sign of F below
         # F = -f_ext = -V diag(1/(w + lambda^2)) V^T J W tau_ext
         force = vecs.dot(jw.dot(external_torque).dot(vecs) / w)
-        np.negative(force, out=force)
         condition = math.sqrt(w_max / w_min) if w_min > 0.0 else math.inf
         if self.full_wrench:
             return Wrench(force[:3], force[3:], condition)
