@@ -14,9 +14,11 @@ leading slash or under a namespace, and both are found):
 Ground truth of the object's parameters is a JSON document (:data:`TRUTH_FORMAT`) in one
 std_msgs/String message on ``ground_truth/parameters``; the same text is also stored in the bag's
 metadata (``custom_data``, key :data:`TRUTH_METADATA_KEY`), and either place is read. Its keys:
-``format``, ``parameters`` ({mass kg, damping N·s/m, stiffness N/m, static_force N}), ``units``,
-and optionally ``scenario``, ``description``, ``contact_time`` (s), ``settings`` (recommended
-estimator settings by dotted name), ``seed``, ``effort_side``, ``noise``.
+``format``, ``parameters`` ({mass kg, damping N·s/m, stiffness N/m, static_force N}, or null when
+the recording has no object, such as the free-motion ``commissioning`` scenario), ``units``
+(absent with null parameters), and optionally ``scenario``, ``description``, ``contact_time``
+(s, null without contact), ``settings`` (recommended estimator settings by dotted name),
+``seed``, ``effort_side``, ``noise``.
 
 JointState messages are decoded straight from their CDR bytes (:class:`JointStateDecoder`: the
 stamp, the names once per distinct name list, the three float64 arrays as numpy views), which is
@@ -333,10 +335,11 @@ def float64_multi_array_values(raw: bytes | memoryview) -> tuple[list[str], np.n
 
 @dataclass(frozen=True)
 class GroundTruth:
-    """Ground truth stored in a bag: parameters {name: value} in kg, N·s/m, N/m, N, and the rest
-    of the JSON document (``extra``: scenario, contact_time s, recommended settings, ...)."""
+    """Ground truth stored in a bag: parameters {name: value} in kg, N·s/m, N/m, N (None when
+    the recording has no object: free motion only), and the rest of the JSON document
+    (``extra``: scenario, contact_time s, recommended settings, ...)."""
 
-    parameters: dict[str, float]
+    parameters: dict[str, float] | None
     extra: dict[str, Any] = field(default_factory=dict)
 
     @property
@@ -346,9 +349,11 @@ class GroundTruth:
         return dict(s) if isinstance(s, Mapping) else {}
 
     def to_json(self) -> str:
-        return json.dumps({"format": TRUTH_FORMAT, "parameters": self.parameters,
-                           "units": {"mass": "kg", "damping": "N·s/m", "stiffness": "N/m",
-                                     "static_force": "N"}, **self.extra}, sort_keys=True)
+        units = ({} if self.parameters is None else
+                 {"units": {"mass": "kg", "damping": "N·s/m", "stiffness": "N/m",
+                            "static_force": "N"}})
+        return json.dumps({"format": TRUTH_FORMAT, "parameters": self.parameters, **units,
+                           **self.extra}, sort_keys=True)
 
     @classmethod
     def from_json(cls, text: str, where: str) -> "GroundTruth":
@@ -363,12 +368,14 @@ class GroundTruth:
                            f"{TRUTH_FORMAT!r}")
         params = doc.get("parameters")
         names = ("mass", "damping", "stiffness", "static_force")
+        extra = {k: v for k, v in doc.items() if k not in ("format", "parameters", "units")}
+        if params is None and "parameters" in doc:   # null: a recording without an object
+            return cls(None, extra)
         if not isinstance(params, dict) or not all(
                 isinstance(params.get(n), (int, float)) and not isinstance(params.get(n), bool)
                 for n in names):
             raise BagError(f"{where}: ground truth 'parameters' is {params!r}; expected numbers "
-                           f"for {', '.join(names)}")
-        extra = {k: v for k, v in doc.items() if k not in ("format", "parameters", "units")}
+                           f"for {', '.join(names)}, or null for a recording without an object")
         return cls({n: float(params[n]) for n in names}, extra)
 
 
@@ -755,14 +762,19 @@ def write_simulated_bag(path: str | Path, run: Any, storage: str = "mcap",
     (transient local), ``/joint_states`` (efforts included; stamps = simulation time +
     :data:`SIMULATED_TIME_OFFSET`, since a zero stamp means "unset"),
     ``/ground_truth/wrench`` (true force the robot applies, world frame ``odom``-style URDF
-    root, N) and the ground truth on ``/ground_truth/parameters`` and in the metadata."""
+    root, N; zero throughout for a scenario without an object) and the ground truth on
+    ``/ground_truth/parameters`` and in the metadata (parameters and contact time null when the
+    scenario has no object)."""
     from .model import RobotModel  # only for the root frame name
     root = RobotModel(run.urdf, run.contact_frame).root_frame
-    truth_params = {k: float(run.truth[k]) for k in ("mass", "damping", "stiffness",
-                                                      "static_force")}
+    truth_params = None
+    if run.truth.get("has_object", True):
+        truth_params = {k: float(run.truth[k]) for k in ("mass", "damping", "stiffness",
+                                                          "static_force")}
     t0 = SIMULATED_TIME_OFFSET
+    contact_time = run.truth.get("contact_time", math.nan)
     extra = {"scenario": run.scenario, "description": description,
-             "contact_time": t0 + float(run.truth.get("contact_time", math.nan)),
+             "contact_time": None if contact_time is None else t0 + float(contact_time),
              "time_offset": t0,
              "settings": _jsonable(run.settings), "seed": run.truth.get("seed"),
              "effort_side": run.truth.get("effort_side"), "noise": run.truth.get("noise"),

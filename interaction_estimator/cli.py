@@ -224,10 +224,12 @@ def _simulate(args: argparse.Namespace) -> int:
     except (ValueError, BagError) as exc:
         raise UsageError(str(exc)) from None
     t = run.truth
+    truth = ("no object, no contact (free motion only: bias, friction and noise truth only)"
+             if not t.get("has_object", True) else
+             f"truth mass {t['mass']:.4g} kg, damping {t['damping']:.4g} N·s/m, stiffness "
+             f"{t['stiffness']:.4g} N/m, static force {t['static_force']:.4g} N")
     print(f"wrote {args.out} ({args.storage}): scenario {args.scenario}, "
-          f"{run.time[-1]:.1f} s at {args.rate:g} Hz, {len(run.time)} joint states; truth "
-          f"mass {t['mass']:.4g} kg, damping {t['damping']:.4g} N·s/m, stiffness "
-          f"{t['stiffness']:.4g} N/m, static force {t['static_force']:.4g} N")
+          f"{run.time[-1]:.1f} s at {args.rate:g} Hz, {len(run.time)} joint states; {truth}")
     return EXIT_OK
 
 

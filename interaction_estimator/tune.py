@@ -9,7 +9,11 @@ package's own :class:`~.pipeline.Pipeline` and identifies, from the data:
    bootstrapped: the first pass takes only the start-up phase (``bias.startup`` s, which the
    Pipeline itself assumes is free motion), then passes with the identified values re-segment until
    the free-motion samples no longer change (at most :data:`MAX_SEGMENTATION_PASSES`). Samples within
-   :func:`margin` s of contact, of an observer restart or of the start are left out.
+   :func:`margin` s of contact, of an observer restart or of the start are left out. A bag in
+   which the monitor finds no contact at all (a commissioning run of free motion, such as the
+   simulator's ``commissioning`` scenario, which moves every joint both ways) serves bias,
+   friction and sensor noise only, and the account of the segments says so; at least one bag
+   must have contact, for step 4.
 2. **Bias and friction** per joint from free motion. The observer residual computed without
    bias and friction is, in free motion, ``r_raw = O(-(b + f_v v + f_c tanh(v/eps)))`` where ``O``
    is the observer itself, a linear filter. The regressors are therefore made by running a copy of
@@ -127,7 +131,8 @@ class Recording:
     name: label used in messages (the bag path). samples: joint states in recorded order.
     urdf: the robot description recorded with it, or None. recommended: settings recommended by
     the recording (simulated bags carry them), dotted names. truth: ground-truth object parameters
-    {mass kg, damping N·s/m, stiffness N/m, static_force N} or None (report only).
+    {mass kg, damping N·s/m, stiffness N/m, static_force N} or None (none known, or no object in
+    the recording; report only).
     reference: true force series or None (report only).
     """
 
@@ -149,7 +154,8 @@ def recording_from_run(run: Any, name: str | None = None) -> Recording:
     names = tuple(run.joint_names)
     samples = [Sample(float(t), names, run.position[k], run.velocity[k], run.effort[k])
                for k, t in enumerate(run.time)]
-    truth = {p: float(run.truth[p]) for p in PARAMETER_NAMES}
+    truth = ({p: float(run.truth[p]) for p in PARAMETER_NAMES}
+             if run.truth.get("has_object", True) else None)     # free motion only: no object
     ref = Reference("simulation ground truth", np.asarray(run.time, float),
                     np.asarray(run.true_force, float))
     return Recording(name or f"simulated {run.scenario} (seed {run.truth.get('seed')})",
@@ -165,7 +171,8 @@ def read_bag(path: Path, topics: Sequence[str] = ()) -> Recording:
         truth = bag.truth()
         ref = bag.reference()
     recommended = truth.settings if truth is not None else {}
-    params = dict(truth.parameters) if truth is not None else None
+    params = (dict(truth.parameters) if truth is not None and truth.parameters is not None
+              else None)                                         # None: no object recorded
     reference = (Reference(f"bag topic {ref.topic}", ref.time, ref.force)
                  if ref is not None else None)
     if not samples:
@@ -1124,7 +1131,9 @@ class TuneResult:
     """Everything the tuning found. settings: the base with the tuned values; entries: the tuned
     settings and their comments; identification, noise: the fits; segments: free and contact
     stretches used (bag index, times s); warnings: things the user should know; bags: names;
-    joints: model joint order; base: the base settings; traces: last pass per bag."""
+    joints: model joint order; base: the base settings; traces: last pass per bag;
+    free_only: indices of the bags in which the contact monitor found no contact (free motion
+    only: used for bias, friction and sensor noise, not for the environment filter)."""
 
     settings: Settings
     base: Settings
@@ -1140,6 +1149,7 @@ class TuneResult:
     written: list[str] = field(default_factory=list)
     taps: list[Trace] = field(default_factory=list)
     masks: list[np.ndarray] = field(default_factory=list)
+    free_only: list[int] = field(default_factory=list)
 
     def parameter_file(self, header: Sequence[str]) -> str:
         """The ROS 2 parameter YAML text of the result."""
@@ -1220,8 +1230,12 @@ def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] |
     segments = list(ident.free_segments)
     for b, t in enumerate(traces):
         segments += contact_segments(b, t)
+    free_only = [b for b, t in enumerate(traces) if not (t.phase == CONTACT).any()]
     tapes = [t.tape for t in traces]
     _require_contact(recordings, tapes, traces)
+    if free_only:
+        say("no contact in " + ", ".join(recordings[b].name for b in free_only)
+            + ": free motion only, used for bias, friction and sensor noise")
     say(f"fitting the environment filter's noise to {sum(len(t) for t in tapes)} contact "
         "updates")
     noise = fit_filter_noise(tapes, base, onset_time(base, joints))
@@ -1246,7 +1260,8 @@ def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] |
         warnings.append(f"the bags recommend different values for {differing} (different "
                         "tasks?): not written; set them per task")
     return TuneResult(tuned_settings, base, entries, ident, noise, segments, warnings,
-                      [r.name for r in recordings], joints, passes, traces, written, taps, masks)
+                      [r.name for r in recordings], joints, passes, traces, written, taps, masks,
+                      free_only)
 
 
 PER_JOINT_SETTINGS = ("observer.gain", "bias.initial", "friction.viscous", "friction.coulomb")
@@ -1260,9 +1275,16 @@ def _per_joint_in_model_order(base: Settings, joints: Sequence[str]) -> dict[str
 
 
 def _common_recommendations(recs: Sequence[Recording]) -> dict[str, Any]:
-    """Settings every bag recommends alike (simulated bags recommend their task's direction)."""
-    first = dict(recs[0].recommended)
-    return {k: v for k, v in first.items() if all(r.recommended.get(k) == v for r in recs[1:])}
+    """Settings the bags recommend alike (simulated bags recommend their task's direction). A bag
+    that recommends nothing for a setting has no say on it (a commissioning bag, which has no
+    object, recommends no direction)."""
+    keys = dict.fromkeys(k for r in recs for k in r.recommended)
+    out = {}
+    for k in keys:
+        values = [r.recommended[k] for r in recs if k in r.recommended]
+        if all(v == values[0] for v in values[1:]):
+            out[k] = values[0]
+    return out
 
 
 def _joint_name_warnings(recs: Sequence[Recording], joints: Sequence[str]) -> list[str]:
@@ -1392,7 +1414,8 @@ def build_entries(ident: Identification, noise: NoiseFit, base: Settings,
         [f"tuned: innovation covariance matching (mean NIS = 1) over {noise.updates} contact "
          f"updates ({noise.contact_time:.2f} s; the first {noise.onset:.3f} s of each contact,"
          f" the impact, left out), 95 % interval {_interval(lo, hi)} N"]
-        + ([f"each bag alone: {', '.join(_fmt(v) for v in noise.per_bag_std)} N"]
+        + (["each bag alone: " + ", ".join(f"{_fmt(v)} N" if math.isfinite(v) else "no contact"
+                                            for v in noise.per_bag_std)]
            if len(noise.per_bag_std) > 1 else []))
     entries["filter.noise_adaptation"] = TunedEntry("filter.noise_adaptation", "fixed", [
         "tuned: the measurement noise above was identified from the data; online adaptation "
@@ -1510,11 +1533,19 @@ def file_header(result: TuneResult, base_source: str) -> list[str]:
              "bags: " + ", ".join(result.bags),
              f"free motion used: {result.identification.free_time:.2f} s; contact used: "
              f"{result.noise.contact_time:.2f} s; pipeline passes: {result.passes}",
+             *([free_only_text(result)] if result.free_only else []),
              "entries preceded by 'tuned:' (or 'checked') were identified from (or checked"
              " against) these bags; the others come from "
              "the base; settings not listed keep their defaults"]
     lines += [f"warning: {w}" for w in result.warnings]
     return lines
+
+
+def free_only_text(result: TuneResult) -> str:
+    """One line naming the bags without contact and what they were used for."""
+    names = ", ".join(Path(result.bags[b]).name for b in result.free_only)
+    return (f"bags without contact (free motion only; used for bias, friction and sensor "
+            f"noise, not for the environment filter): {names}")
 
 
 # ============================================================================================
@@ -1529,6 +1560,9 @@ def explain(result: TuneResult) -> str:
     for s in sorted(r.segments, key=lambda s: (s.bag, s.start)):
         out.append(f"  bag {s.bag + 1}  {s.kind:<7} {s.start:9.3f} .. {s.end:9.3f}"
                    f"  ({s.duration:.2f} s)")
+    for b in r.free_only:
+        out.append(f"  bag {b + 1}  no contact: free motion only, used for bias, friction and "
+                   "sensor noise, not for the environment filter")
     out.append(f"free motion: {ident.free_time:.2f} s; contact: {noise.contact_time:.2f} s "
                f"({noise.updates} filter updates)")
     out.append(f"{'joint':<24}{'bias':>10}{'+/-':>8}{'viscous':>10}{'+/-':>8}{'coulomb':>10}"
@@ -1547,7 +1581,8 @@ def explain(result: TuneResult) -> str:
     lo, hi = noise.measurement_interval
     if len(noise.per_bag_std) > 1:
         out.append("measurement std each bag alone: " + ", ".join(
-            f"{v:.3g} N" for v in noise.per_bag_std))
+            f"{v:.3g} N" if b not in r.free_only else "no contact"
+            for b, v in enumerate(noise.per_bag_std)))
     out.append(f"environment filter: measurement std {noise.measurement_std:.4g} N "
                f"(95 %: {_interval(lo, hi)}); mean NIS {noise.nis_base:.3g} at the base values ->"
                f" {noise.nis_tuned:.3g} tuned (fixed noise); innovations decimated by "

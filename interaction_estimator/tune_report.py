@@ -3,12 +3,13 @@
 ``interaction-estimator tune ... --report DIR`` writes ``DIR/tuning_report.html``, one
 self-contained page (inline SVG from matplotlib, inline CSS, no scripts):
 
-* what was held out: with several bags the last one; with one bag the last
-  :data:`~.tune.HELD_OUT_FRACTION` of its contact time;
-* the check settings: the same procedure re-fitted without the held-out data (with several bags:
-  bias, friction and noise from the other bags; with one bag: the environment filter's noise
-  from the contact before the held-out part, bias and friction from the free motion, which
-  precedes it). The segmentation of the main run is reused, so no bag is re-segmented;
+* what was held out: with several bags that have contact, the last of them; with one such bag
+  the last :data:`~.tune.HELD_OUT_FRACTION` of its contact time (bags without contact, free
+  motion only, are never held out: they have nothing to check the filter on);
+* the check settings: the same procedure re-fitted without the held-out data (a whole bag held
+  out: bias, friction and noise from the other bags; part of a bag: the environment filter's
+  noise from the contact before the held-out part, bias and friction from the free motion,
+  which precedes it). The segmentation of the main run is reused, so no bag is re-segmented;
 * the held-out figures for the base ("default") and the check ("tuned") settings: force RMSE
   against the reference, final parameter errors against the ground truth (when the bag has
   them), and the time-averaged normalized innovation squared with its two-sided 95 % chi-square
@@ -75,28 +76,35 @@ class Figures:
 
 
 def choose_held_out(result: TuneResult, recs: Sequence[Recording]) -> HeldOut:
-    if len(recs) > 1:
-        return HeldOut(len(recs) - 1, -math.inf,
-                       f"the last bag, {recs[-1].name}, held out whole")
-    tape = result.traces[0].tape
+    """The last bag with contact held out whole when several have contact, otherwise the end
+    of the one bag's contact (the tuning refuses data with no contact at all)."""
+    with_contact = [b for b in range(len(recs)) if b not in result.free_only
+                    and len(result.traces[b].tape) > 1]
+    if len(with_contact) > 1:
+        b = with_contact[-1]
+        return HeldOut(b, -math.inf, f"the last bag with contact, {recs[b].name}, held out "
+                                     "whole")
+    b = with_contact[0]
+    tape = result.traces[b].tape
     t0, t1 = tape.time[0], tape.time[-1]
     start = t1 - HELD_OUT_FRACTION * (t1 - t0)
-    return HeldOut(0, start, f"the last {100 * HELD_OUT_FRACTION:.0f} % of the contact time of "
-                             f"{recs[0].name}, from {start:.2f} s")
+    return HeldOut(b, start, f"the last {100 * HELD_OUT_FRACTION:.0f} % of the contact time of "
+                             f"{recs[b].name}, from {start:.2f} s")
 
 
 def check_settings(result: TuneResult, recs: Sequence[Recording], held: HeldOut) -> Settings:
     """The tuned settings re-fitted without the held-out data (see the module text)."""
     base = result.base
-    if len(recs) > 1:
-        keep = slice(0, held.index)
-        ident = identify(result.taps[keep], result.masks[keep], base, result.joints)
-        noise = fit_filter_noise([t.tape for t in result.traces[keep]], base,
+    if not math.isfinite(held.start):       # a whole bag held out
+        keep = [b for b in range(len(recs)) if b != held.index]
+        ident = identify([result.taps[b] for b in keep], [result.masks[b] for b in keep], base,
+                         result.joints)
+        noise = fit_filter_noise([result.traces[b].tape for b in keep], base,
                                  result.noise.onset)
-        entries = build_entries(ident, noise, base, result.joints, recs[keep])
+        entries = build_entries(ident, noise, base, result.joints, [recs[b] for b in keep])
         return base.replace({n: e.value for n, e in entries.items()})
-    noise = fit_filter_noise([result.traces[0].tape.subset(held.start)], base,
-                             result.noise.onset)
+    noise = fit_filter_noise([t.tape.subset(held.start) if b == held.index else t.tape
+                              for b, t in enumerate(result.traces)], base, result.noise.onset)
     entries = build_entries(result.identification, noise, base, result.joints, recs)
     filt = {n: e.value for n, e in entries.items() if n.startswith("filter.")}
     return result.settings.replace(filt)
@@ -319,6 +327,10 @@ def segments_table(result: TuneResult) -> str:
     for s in sorted(result.segments, key=lambda s: (s.bag, s.start)):
         rows.append(f"<tr><td>{_e(Path(result.bags[s.bag]).name)}</td><td>{s.kind}</td>"
                     f"<td>{s.start:.3f}</td><td>{s.end:.3f}</td><td>{s.duration:.2f}</td></tr>")
+    for b in result.free_only:
+        rows.append(f"<tr><td>{_e(Path(result.bags[b]).name)}</td><td colspan='4'>no contact: "
+                    "free motion only, used for bias, friction and sensor noise, not for the "
+                    "environment filter</td></tr>")
     return "<table>" + "".join(rows) + "</table>"
 
 

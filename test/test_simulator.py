@@ -54,12 +54,17 @@ def config(model: pin.Model, angles: np.ndarray) -> np.ndarray:
 # --- the catalogue and the argument checks -------------------------------------------------
 
 
-def test_catalogue_has_the_four_invented_scenarios_with_valid_settings():
-    assert {"door", "drawer", "cart", "toolbox"} <= set(sim.SCENARIOS)
+def test_catalogue_has_the_invented_scenarios_with_valid_settings():
+    assert {"door", "drawer", "cart", "toolbox", "commissioning"} <= set(sim.SCENARIOS)
     for name, spec in sim.SCENARIOS.items():
         assert spec.name == name
         assert spec.description and "\n" not in spec.description
-        assert spec.free_time >= 1.5
+        if spec.has_object:
+            assert spec.free_time >= 1.5
+            assert spec.truth_parameters() is not None
+        else:                       # free motion only: nothing to be true about an object
+            assert spec.truth_parameters() is None and not spec.wiggles
+            assert {w.joint for w in spec.joint_motion} == set(sim.JOINT_NAMES)
         assert spec.duration >= spec.min_duration
         # every recommended override is a real setting with an allowed value (the package's
         # own settings registry is the reference for names and ranges)
@@ -223,8 +228,10 @@ def test_toolbox_held_still_weighs_its_weight():
 
 def test_contact_begins_after_free_motion_and_the_cart_takes_the_base_along():
     for name in sim.SCENARIOS:
-        run = clean_run(name)
         spec = sim.SCENARIOS[name]
+        if not spec.has_object:
+            continue                # see the commissioning tests below
+        run = clean_run(name)
         first = np.argmax(run.in_contact)
         assert run.time[first] == pytest.approx(spec.free_time, abs=1e-9)
         assert not run.in_contact[:first].any() and run.in_contact[first:].all()
@@ -333,3 +340,138 @@ def test_sample_rate_and_shapes():
     assert run.contact_frame == "tool_tip"
     # held still at the end: the box's weight again (CGPM standard gravity)
     assert run.true_force_along[-1] == pytest.approx(3.5 * 9.80665, abs=5e-3)
+
+
+# --- the commissioning scenario: free motion only --------------------------------------------
+
+COMMISSIONING_DURATION = 12.0   # s, as the tuning tests use it
+
+
+@functools.lru_cache(maxsize=None)
+def commissioning_run(noise: bool = False) -> sim.SimulatedRun:
+    return sim.simulate("commissioning", duration=COMMISSIONING_DURATION, seed=1,
+                        effort_side="motor", noise=noise)
+
+
+def test_commissioning_moves_every_joint_both_ways_at_several_speeds():
+    run = commissioning_run()
+    v = run.true_velocity
+    dt = run.time[1] - run.time[0]
+    moving = 5 * sim.FRICTION_SMOOTHING_VELOCITY     # the tuning's "moving" threshold
+    assert run.joint_names == sim.JOINT_NAMES and len(run.joint_names) == 10
+    for j, name in enumerate(run.joint_names):
+        peak = float(np.abs(v[:, j]).max())
+        assert peak > 4 * moving, name
+        for sign in (1.0, -1.0):                     # both ways ...
+            speed = sign * v[:, j]
+            slow = (speed > moving) & (speed < 0.5 * peak)
+            fast = speed >= 0.5 * peak
+            # ... at slow and at fast speeds, each for at least 0.3 s (common practice for
+            # friction identification, no source: several speed levels in each direction)
+            assert dt * slow.sum() >= 0.3 and dt * fast.sum() >= 0.3, (name, sign)
+        # it turns round while moving (the heavy base's slowest stroke takes about 11 s:
+        # in these 12 s base_y turns once, the arm joints 6 to 14 times)
+        crossings = np.count_nonzero(np.diff(np.sign(v[np.abs(v[:, j]) > moving, j])))
+        assert crossings >= 1, name
+
+
+def test_commissioning_has_no_object_and_no_contact_force():
+    run = commissioning_run()
+    assert not run.in_contact.any()
+    assert np.all(run.true_force == 0.0)
+    assert np.all(run.true_force_along == 0.0) and np.all(run.true_position_along == 0.0)
+    t = run.truth
+    assert t["has_object"] is False
+    for name in ("mass", "damping", "stiffness", "static_force"):
+        assert name not in t
+    assert t["contact_time"] is None and t["contact_point"] is None and t["direction"] is None
+    # free motion, Newton-Euler: MuJoCo's inverse dynamics of the recorded motion equal the
+    # joint torque itself (no J^T F term) -- MuJoCo as an independent physics engine
+    urdf = run.urdf.replace("<robot name=\"marten_mobile\">", (
+        "<robot name=\"marten_mobile\"><mujoco><compiler discardvisual=\"true\" "
+        "fusestatic=\"false\" balanceinertia=\"false\"/></mujoco>"), 1)
+    model = mujoco.MjSpec.from_string(urdf).compile()
+    model.opt.gravity[:] = [0.0, 0.0, -G0]
+    data = mujoco.MjData(model)
+    joint = [mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n) for n in run.joint_names]
+    dof = [model.jnt_dofadr[i] for i in joint]
+    qpos_adr = [model.jnt_qposadr[i] for i in joint]
+    for k in range(200, len(run.time), 1500):
+        data.qpos[qpos_adr] = run.true_position[k]
+        data.qvel[dof] = run.true_velocity[k]
+        data.qacc[dof] = run.true_acceleration[k]
+        mujoco.mj_inverse(model, data)
+        np.testing.assert_allclose(data.qfrc_inverse[dof], run.true_effort[k], atol=1e-6,
+                                   rtol=1e-8)
+
+
+def test_commissioning_stays_inside_the_robots_limits():
+    run = commissioning_run()
+    model, data = pinocchio_model(run.urdf)
+    # the URDF's own limits (Pinocchio reads them): joints 1, 2 prismatic, 3 continuous
+    lower, upper = model.lowerPositionLimit, model.upperPositionLimit
+    for j in range(10):
+        jm = model.joints[j + 1]
+        if jm.nq == 1:
+            assert lower[jm.idx_q] < run.true_position[:, j].min()
+            assert run.true_position[:, j].max() < upper[jm.idx_q]
+    assert np.all(np.abs(run.true_velocity).max(axis=0) < 0.6 * model.velocityLimit)
+    assert np.all(np.abs(run.true_effort).max(axis=0) < 0.5 * model.effortLimit)
+    spec = sim.SCENARIOS["commissioning"]
+    assert max(s.peak_speed / lim for s, lim in zip(
+        sorted(spec.joint_motion, key=lambda s: sim.JOINT_NAMES.index(s.joint)),
+        model.velocityLimit)) < 0.6
+    # the tool stays above the floor (z = 0 in odom) and away from the base's body
+    fid = model.getFrameId(run.contact_frame)
+    base = model.getFrameId("marten_base")
+    for k in range(0, len(run.time), 50):
+        pin.framesForwardKinematics(model, data, config(model, run.true_position[k]))
+        tool, body = data.oMf[fid].translation, data.oMf[base].translation
+        assert tool[2] > 0.3
+        assert np.hypot(*(tool[:2] - body[:2])) > 0.35 or tool[2] > body[2] + 0.45
+    # at rest at both ends: it starts still and holds still at the end
+    assert np.abs(run.true_velocity[0]).max() == 0.0
+    assert np.abs(run.true_velocity[-int(0.4 / (run.time[1] - run.time[0])):]).max() < 1e-3
+
+
+def test_commissioning_measurements_are_corrupted_like_the_other_scenarios():
+    noisy, drawer = commissioning_run(noise=True), sim.simulate("drawer", duration=4.5, seed=1,
+                                                              effort_side="motor")
+    t = noisy.truth
+    # the same seed draws the same bias as the task scenarios (one robot, one sensor session)
+    np.testing.assert_array_equal(t["bias"], drawer.truth["bias"])
+    fv, fc = np.asarray(t["friction_viscous"]), np.asarray(t["friction_coulomb"])
+    assert np.all(fv > 0) and np.all(fc > 0)
+    # efforts: joint torque + friction f_v v + f_c tanh(v / 0.01) (numpy, from the true
+    # velocity) + bias + white noise of 0.1; the sample variance lies in the chi-square
+    # interval (scipy.stats.chi2, 99.9 %)
+    friction = fv * noisy.true_velocity + fc * np.tanh(noisy.true_velocity / 0.01)
+    noise = noisy.effort - noisy.true_effort - friction - t["bias"]
+    n = noise.size
+    lo, hi = stats.chi2.ppf([0.0005, 0.9995], n - 1) / (n - 1)
+    assert lo * 0.1**2 <= noise.var(ddof=1) <= hi * 0.1**2
+    # 18-bit encoders: whole counts, within half a count of the truth
+    counts = noisy.position / t["position_quantum"]
+    np.testing.assert_allclose(counts, np.round(counts), atol=1e-6)
+
+
+def test_commissioning_bag_says_it_has_no_object(tmp_path, capsys):
+    from interaction_estimator import cli
+    from interaction_estimator.bag import RecordedBag
+    out = tmp_path / "commissioning_bag"
+    assert cli.main(["simulate", "commissioning", "--out", str(out), "--duration", "4.5",
+                     "--rate", "200", "--effort-side", "motor"]) == 0
+    assert "no object, no contact" in capsys.readouterr().out
+    with RecordedBag(out) as bag:
+        truth = bag.truth()
+        ref = bag.reference()
+        assert truth.parameters is None                   # no object: no parameters
+        assert truth.extra["scenario"] == "commissioning"
+        assert truth.extra["contact_time"] is None
+        assert len(truth.extra["bias"]) == 10
+        assert np.all(ref.force == 0.0)                   # the true force: none, throughout
+        assert len(list(bag.samples())) == 4.5 * 200 + 1
+    # listed by the command line like the other scenarios
+    parser = cli.build_parser()
+    sub = next(a for a in parser._actions if a.dest == "command").choices["simulate"]
+    assert "commissioning" in next(a for a in sub._actions if a.dest == "scenario").choices

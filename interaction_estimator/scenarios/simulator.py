@@ -1,4 +1,5 @@
-"""Built-in invented scenarios and their simulator: Marten handles doors, drawers, carts, toolboxes.
+"""Built-in invented scenarios and their simulator: Marten handles doors, drawers, carts, toolboxes,
+and moves freely for commissioning.
 
 Everything here is our own invention: the robot (Marten, see :mod:`.marten`), the objects, their
 numbers and the motions. :func:`simulate` returns arrays (a :class:`SimulatedRun`); the bag writer
@@ -34,6 +35,9 @@ When contact begins (at ``free_time``, on a control tick) the object is placed w
 is, at rest, and the tool's velocity is projected by the matching inelastic-impact equations
 (the same matrix, zero right-hand side), so the run needs no impulse afterwards.
 
+A scenario without an object (``direction_kind="none"``: ``commissioning``) has no KKT rows at
+all: ``M v' + h = tau`` throughout, ``F = 0``, and no contact ever begins.
+
 Integration: semi-implicit (symplectic) Euler, ``v += dt v'`` then ``q = integrate(q, dt v)``
 (``pin.integrate``), internal step ``dt <= 0.5 ms``.
 
@@ -56,6 +60,12 @@ sinusoidal wiggles, touching nothing), then follows the object: a slow opening/p
 lifting motion plus sums of sinusoids, so that acceleration, velocity and displacement are all
 excited; some scenarios end by holding still. The posture reference ``q_ref`` is a spline through
 inverse-kinematics key postures (Pinocchio Jacobians, damped least squares).
+
+Without an object the controller is joint-space computed torque,
+``tau = h + M (q_ref'' + K_q (q_ref - q) + D_q (q_ref' - q'))`` (posture gains as above), on a
+reference in which every joint, base included, follows its own sum of sinusoids
+(:class:`JointSweep`) with its velocity scaled by a plateau envelope (quintic ramps of
+``ramp`` s at the start and before the final ``hold``).
 
 Measurements
 ------------
@@ -126,7 +136,8 @@ _ARM_PREFERRED = np.array([0.0, 0.45, 0.0, 1.35, 0.0, 0.9, 0.0])
 
 @dataclass(frozen=True)
 class Wiggle:
-    """One sinusoid of a path: amplitude (m), frequency (Hz), phase (rad)."""
+    """One sinusoid of a path: amplitude (m, or rad for a joint angle), frequency (Hz), phase
+    (rad)."""
 
     amplitude: float
     frequency: float
@@ -134,53 +145,113 @@ class Wiggle:
 
 
 @dataclass(frozen=True)
+class JointSweep:
+    """Desired motion of one joint in a scenario without an object.
+
+    ``q_ref'(t) = e(t) sum(2 pi f a cos(2 pi f t + phase))`` over ``terms`` (amplitude ``a``
+    rad, or m for the base's prismatic joints; frequency ``f`` Hz; phase rad), ``e`` the run's
+    plateau envelope (see :attr:`ScenarioSpec.ramp`), and ``q_ref(0) = centre`` rad or m: on
+    the plateau the joint follows ``sum(a sin(2 pi f t + phase))`` about a point near the
+    centre (the ramps shift it by at most ``2 sum(a)``).
+    """
+
+    joint: str
+    centre: float
+    terms: tuple[Wiggle, ...]
+
+    @property
+    def peak_speed(self) -> float:
+        """Upper bound of |q_ref'| on the plateau, rad/s or m/s: sum of 2 pi f a."""
+        return sum(2 * math.pi * w.frequency * abs(w.amplitude) for w in self.terms)
+
+
+@dataclass(frozen=True)
 class ScenarioSpec:
     """An invented scenario: the object, its truth values along ``u`` and the robot's task.
 
-    Truth along the manipulation direction: ``mass`` kg, ``damping`` N·s/m, ``stiffness`` N/m,
-    ``static_force`` N, in ``f = mass x'' + damping x' + stiffness x + static_force`` where ``f``
-    is the force the robot applies to the object along ``u``.
+    ``direction_kind``: ``"world"`` (an object along a fixed unit vector ``direction``, world
+    frame), ``"arc"`` (the door: ``direction`` is the opening tangent when closed; it turns with
+    the door) or ``"none"`` (no object at all: free motion only, see ``joint_motion``).
+    ``settings``: recommended overrides of the estimator's settings (dotted names).
+    ``duration`` s, default run length; ``hold`` s of holding still at the end.
 
-    ``direction_kind``: ``"world"`` (``direction`` is a fixed unit vector, world frame) or
-    ``"arc"`` (the door: ``direction`` is the opening tangent when closed; it turns with the
-    door). ``settings``: recommended overrides of the estimator's settings (dotted names).
-    ``free_time`` s of free motion before contact; ``duration`` s, default run length.
+    With an object, truth along the manipulation direction: ``mass`` kg, ``damping`` N·s/m,
+    ``stiffness`` N/m, ``static_force`` N, in ``f = mass x'' + damping x' + stiffness x +
+    static_force`` where ``f`` is the force the robot applies to the object along ``u``;
+    ``free_time`` s of free motion before contact;
     ``contact_point`` m (world) nominal point where the tool meets the object; ``start_offset``
     m, where the tool starts relative to it; ``travel`` m along ``u`` (arc length for the door);
-    ``wiggles`` sinusoids along ``u`` during contact; ``hold`` s of holding still at the end;
+    ``wiggles`` sinusoids along ``u`` during contact;
     ``monotone``: keep the desired motion along ``u`` going forward (friction objects);
     ``base_follows``: the base travels with the object; ``feedforward`` N, controller pre-load
     along ``u`` from contact on; ``physical``: the object's own parameters, units in the keys.
+
+    Without an object (``"none"``) the object fields stay None/empty and there is no truth of
+    object parameters; ``joint_motion`` holds one :class:`JointSweep` per joint of
+    :data:`JOINT_NAMES` and ``ramp`` s is the length of the envelope's quintic ramps at the
+    start and before the final hold.
     """
 
     name: str
     description: str
     duration: float
-    mass: float
-    damping: float
-    stiffness: float
-    static_force: float
-    direction_kind: str
-    direction: tuple[float, float, float]
     settings: dict[str, Any] = field(hash=False)
-    free_time: float
-    contact_point: tuple[float, float, float]
-    start_offset: tuple[float, float, float]
-    travel: float
-    wiggles: tuple[Wiggle, ...]
-    hold: float
-    monotone: bool
-    base_follows: bool
-    feedforward: float
+    direction_kind: str
+    mass: float | None = None
+    damping: float | None = None
+    stiffness: float | None = None
+    static_force: float | None = None
+    direction: tuple[float, float, float] | None = None
+    free_time: float = 0.0
+    contact_point: tuple[float, float, float] | None = None
+    start_offset: tuple[float, float, float] | None = None
+    travel: float = 0.0
+    wiggles: tuple[Wiggle, ...] = ()
+    hold: float = 0.0
+    monotone: bool = False
+    base_follows: bool = False
+    feedforward: float = 0.0
     physical: dict[str, float] = field(default_factory=dict, hash=False)
+    joint_motion: tuple[JointSweep, ...] = ()
+    ramp: float = 0.0
+
+    def __post_init__(self) -> None:
+        # developer checks of the built-in catalogue (not user input)
+        if self.direction_kind not in ("world", "arc", "none"):
+            raise ValueError(f"scenario {self.name!r}: direction_kind {self.direction_kind!r};"
+                             " expected 'world', 'arc' or 'none'")
+        if self.has_object:
+            missing = [n for n in ("mass", "damping", "stiffness", "static_force", "direction",
+                                   "contact_point", "start_offset")
+                       if getattr(self, n) is None]
+            if missing or self.joint_motion:
+                raise ValueError(f"scenario {self.name!r} has an object: it needs {missing}"
+                                 " and no joint_motion")
+        else:
+            names = tuple(s.joint for s in self.joint_motion)
+            if sorted(names) != sorted(JOINT_NAMES) or self.ramp <= 0:
+                raise ValueError(f"scenario {self.name!r} has no object: expected one joint "
+                                 f"sweep for each of {JOINT_NAMES} (got {names}) and a ramp "
+                                 f"> 0 s (got {self.ramp!r})")
+
+    @property
+    def has_object(self) -> bool:
+        """Whether the robot meets an object (False: free motion only, no contact)."""
+        return self.direction_kind != "none"
 
     @property
     def min_duration(self) -> float:
-        """Shortest allowed run, s: free motion, 1.5 s of motion in contact, the final hold."""
+        """Shortest allowed run, s. With an object: free motion, 1.5 s of motion in contact, the
+        final hold. Without: both envelope ramps, 2 s of full motion, the final hold."""
+        if not self.has_object:
+            return 2 * self.ramp + self.hold + 2.0
         return self.free_time + self.hold + 1.5
 
-    def truth_parameters(self) -> dict[str, float]:
-        """``{"mass": kg, "damping": N·s/m, "stiffness": N/m, "static_force": N}``."""
+    def truth_parameters(self) -> dict[str, float] | None:
+        """``{"mass": kg, "damping": N·s/m, "stiffness": N/m, "static_force": N}``; None when
+        the scenario has no object (there are no object parameters to be true)."""
+        if not self.has_object:
+            return None
         return {"mass": self.mass, "damping": self.damping, "stiffness": self.stiffness,
                 "static_force": self.static_force}
 
@@ -260,8 +331,58 @@ def _toolbox() -> ScenarioSpec:
         physical={"gravity_m_s2": STANDARD_GRAVITY})
 
 
+def _commissioning() -> ScenarioSpec:
+    """Every joint back and forth at several speeds, touching nothing (our own numbers).
+
+    Three sinusoids per joint, at frequencies that differ from joint to joint, so that every
+    joint sweeps through slow and fast speeds in both directions. The heavy joints (the base's
+    x, y and yaw, the shoulder, the upper arm and the elbow) move in long, slow strokes (main
+    terms below 0.2 Hz, none above 1 Hz): their speed then changes slowly, which is what
+    separates viscous from Coulomb friction, and their accelerations stay small. The efforts
+    are held over each sample interval while the observer integrates them by the trapezoid
+    rule; from fast motion of a heavy joint this biases the identified viscous friction low,
+    by an amount proportional to the sample interval that grows with the joint's inertia and
+    with how fast its speed changes (seen on the base at 1 kHz without noise: -7 to -12 % with
+    the whole amplitude ramped in over 1 s, about -2 % with this motion; half at 2 kHz).
+    Peak speeds stay below 60 % of the URDF's velocity limits (1.5 m/s base, 2 rad/s yaw and
+    arm; :attr:`JointSweep.peak_speed`); the base stays within 1.2 m and the arm stays near
+    its preferred posture, well inside its joint limits, with the tool above the floor and
+    clear of the base.
+    """
+    def sweep(joint: str, centre: float, *terms: tuple[float, float, float]) -> JointSweep:
+        return JointSweep(joint, centre, tuple(Wiggle(a, f, ph) for a, f, ph in terms))
+
+    a = _ARM_PREFERRED
+    motion = (  # amplitude rad (m), frequency Hz, phase rad
+        sweep("marten_base_x", 0.0, (0.45, 0.10, 0.0), (0.18, 0.17, 1.1), (0.03, 0.31, 2.3)),
+        sweep("marten_base_y", 0.0, (0.40, 0.09, 0.7), (0.18, 0.15, 2.0), (0.03, 0.29, 0.4)),
+        sweep("marten_base_yaw", 0.0, (0.45, 0.08, 0.3), (0.20, 0.19, 1.6), (0.04, 0.43, 2.9)),
+        sweep("marten_shoulder_yaw", a[0], (0.35, 0.13, 1.9), (0.15, 0.31, 0.2),
+              (0.03, 0.67, 1.3)),
+        sweep("marten_shoulder_pitch", a[1], (0.22, 0.15, 0.9), (0.10, 0.34, 2.6),
+              (0.02, 0.71, 0.5)),
+        sweep("marten_upper_arm_roll", a[2], (0.32, 0.17, 2.4), (0.12, 0.41, 0.8),
+              (0.03, 0.93, 1.7)),
+        sweep("marten_elbow_pitch", a[3], (0.28, 0.19, 0.1), (0.10, 0.43, 1.4),
+              (0.025, 0.97, 2.7)),
+        sweep("marten_forearm_roll", a[4], (0.29, 0.33, 1.2), (0.07, 0.89, 2.2),
+              (0.015, 2.03, 0.6)),
+        sweep("marten_wrist_pitch", a[5], (0.28, 0.37, 2.8), (0.06, 0.97, 0.3),
+              (0.013, 2.11, 1.5)),
+        sweep("marten_wrist_roll", a[6], (0.24, 0.41, 0.5), (0.06, 1.07, 1.8),
+              (0.012, 2.31, 2.5)),
+    )
+    return ScenarioSpec(
+        name="commissioning",
+        description="Marten touches nothing and moves every joint, the base's x, y and yaw"
+                    " included, back and forth at several speeds: data for identifying bias,"
+                    " friction and noise (no object, no contact, no object parameters).",
+        duration=20.0, settings={}, direction_kind="none", hold=0.5, ramp=1.0,
+        joint_motion=motion)
+
+
 SCENARIOS: dict[str, ScenarioSpec] = {s.name: s for s in (_door(), _drawer(), _cart(),
-                                                          _toolbox())}
+                                                          _toolbox(), _commissioning())}
 
 
 @dataclass
@@ -274,13 +395,16 @@ class SimulatedRun:
     true_force (N, 3) N: force the robot applies to the object, world frame (zero out of contact).
     true_position_along (N,) m: object displacement along ``u`` from contact onset (arc length
     for the door; 0 before contact). in_contact (N,) bool.
-    truth: parameters (``mass`` kg, ``damping`` N·s/m, ``stiffness`` N/m, ``static_force`` N),
-    ``bias`` (n,) N·m/N, ``friction_viscous`` (n,) N·m·s/rad or N·s/m, ``friction_coulomb`` (n,)
-    N·m/N, ``friction_smoothing_velocity`` rad/s, ``effort_noise`` N·m, ``velocity_noise``
+    truth: ``has_object``; the object parameters (``mass`` kg, ``damping`` N·s/m,
+    ``stiffness`` N/m, ``static_force`` N), absent when ``has_object`` is False (free motion
+    only: there is no object whose parameters could be true), ``bias`` (n,) N·m/N,
+    ``friction_viscous`` (n,) N·m·s/rad or N·s/m, ``friction_coulomb`` (n,) N·m/N,
+    ``friction_smoothing_velocity`` rad/s, ``effort_noise`` N·m, ``velocity_noise``
     rad/s, ``encoder_bits``, ``position_quantum`` (n,) rad/m (noise off: 0 and zeros),
     ``direction`` (N, 3) for the door (the opening tangent; before contact, the closed door's) or
     (3,), ``physical`` (the object's own parameters), ``contact_time`` s, ``contact_point`` (3,) m
-    (where contact began), ``hinge`` (3,) m (door only), ``effort_side``, ``noise``, ``seed``.
+    (where contact began), ``hinge`` (3,) m (door only), ``effort_side``, ``noise``, ``seed``;
+    without an object ``direction``, ``contact_time`` and ``contact_point`` are None.
     urdf: the mobile Marten's URDF text. contact_frame: ``tool_tip``. settings: recommended
     estimator settings (dotted names), including ``effort_side``.
     Extras (exact, uncorrupted): true_force_along (N,) N; true_velocity_along (N,) m/s;
@@ -730,6 +854,68 @@ class _Plan:
         self.q_ref[~free] = spline(sc_c)
         self.v_ref[~free] = spline(sc_c, 1) * (sc <= move)[:, None]
 
+    def torque(self, k: int, robot: _Robot, tm: _Terms, q: np.ndarray, v: np.ndarray,
+               in_contact: bool) -> np.ndarray:
+        """Joint torque (nv,) N·m/N at control tick k: task-space tracking of the tool path
+        plus the null-space posture (see the module text), the pre-load once in contact."""
+        Minv = np.linalg.inv(tm.M)
+        JMi = tm.J @ Minv
+        Lam = np.linalg.inv(JMi @ tm.J.T)
+        vp = tm.J @ v
+        F = (Lam @ (self.acc[k] - tm.gamma) + TASK_STIFFNESS * (self.p[k] - tm.p)
+             + TASK_DAMPING * (self.v[k] - vp))
+        if in_contact:
+            F = F + self.spec.feedforward * self.tangent[k]
+        kq = POSTURE_FREQUENCY**2
+        dq = 2 * POSTURE_DAMPING_RATIO * POSTURE_FREQUENCY
+        diag = np.diag(tm.M)
+        err = pin.difference(robot.model, q, robot.config(self.q_ref[k]))
+        tau_post = diag * (kq * err + dq * (self.v_ref[k] - v))
+        tau_null = tau_post - tm.J.T @ (Lam @ (JMi @ tau_post))
+        return tm.h + tm.J.T @ F + tau_null
+
+
+class _JointPlan:
+    """Desired joint trajectory on the control grid for a scenario without an object, and its
+    computed-torque controller (free motion only)."""
+
+    def __init__(self, spec: ScenarioSpec, robot: _Robot, t_ctrl: np.ndarray,
+                 duration: float):
+        nt, nv = len(t_ctrl), robot.nv
+        e, de, dde = _envelope(t_ctrl, duration - spec.hold, spec.ramp)
+        self.q_ref = np.zeros((nt, nv))
+        self.v_ref = np.zeros((nt, nv))
+        self.a_ref = np.zeros((nt, nv))
+        by_joint = {s.joint: s for s in spec.joint_motion}
+        for j, name in enumerate(JOINT_NAMES):
+            sweep = by_joint[name]
+            w, dw, ddw = np.zeros(nt), np.zeros(nt), np.zeros(nt)
+            for term in sweep.terms:
+                om = 2 * math.pi * term.frequency
+                sn, cs = np.sin(om * t_ctrl + term.phase), np.cos(om * t_ctrl + term.phase)
+                w += term.amplitude * sn
+                dw += term.amplitude * om * cs
+                ddw -= term.amplitude * om**2 * sn
+            # the envelope scales the velocity, not the displacement: while it ramps, speeds
+            # and accelerations stay those of the sinusoids (no fast transient of the whole
+            # amplitude); the position is the integral (trapezoid rule on the control grid)
+            self.v_ref[:, j] = e * dw
+            self.a_ref[:, j] = de * dw + e * ddw
+            self.q_ref[:, j] = sweep.centre + np.concatenate((
+                [0.0], np.cumsum(0.5 * np.diff(t_ctrl) * (self.v_ref[1:, j]
+                                                          + self.v_ref[:-1, j]))))
+        self.a_initial = self.q_ref[0].copy()   # the centres, at rest
+
+    def torque(self, k: int, robot: _Robot, tm: _Terms, q: np.ndarray, v: np.ndarray,
+               in_contact: bool) -> np.ndarray:
+        """Computed torque (Siciliano, Sciavicco, Villani and Oriolo, Robotics: Modelling,
+        Planning and Control, 2009, sec. 8.5.2): ``tau = h + M (a_ref + K_q e + D_q e')``,
+        ``e = q_ref - q``; joint torque (nv,) N·m/N."""
+        kq = POSTURE_FREQUENCY**2
+        dq = 2 * POSTURE_DAMPING_RATIO * POSTURE_FREQUENCY
+        err = pin.difference(robot.model, q, robot.config(self.q_ref[k]))
+        return tm.h + tm.M @ (self.a_ref[k] + kq * err + dq * (self.v_ref[k] - v))
+
 
 def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: float = 1000.0,
              effort_side: str = "link", noise: bool = True) -> SimulatedRun:
@@ -753,16 +939,16 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
     n_samples = int(math.floor(duration * rate + 1e-9)) + 1
     n_ticks = (n_samples - 1) * n_ctrl + 1
     t_ctrl = np.arange(n_ticks) * t_tick
-    k_contact = int(round(spec.free_time / t_tick))
-    t_contact = k_contact * t_tick
-
-    plan = _Plan(spec, robot, t_ctrl, t_contact, duration)
+    plan: _Plan | _JointPlan
+    if spec.has_object:
+        k_contact = int(round(spec.free_time / t_tick))
+        t_contact = k_contact * t_tick
+        plan = _Plan(spec, robot, t_ctrl, t_contact, duration)
+    else:                       # free motion only: contact never begins
+        k_contact, t_contact = -1, math.inf
+        plan = _JointPlan(spec, robot, t_ctrl, duration)
     q = robot.config(plan.a_initial)
     v = np.zeros(nv)
-
-    kq = POSTURE_FREQUENCY**2
-    dq = 2 * POSTURE_DAMPING_RATIO * POSTURE_FREQUENCY
-    eye = np.eye(nv)
     obj = None
 
     rec_q = np.zeros((n_samples, nv))
@@ -774,7 +960,8 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
     rec_xd = np.zeros(n_samples)
     rec_xdd = np.zeros(n_samples)
     rec_f = np.zeros(n_samples)
-    rec_u = np.tile(np.asarray(spec.direction, float), (n_samples, 1))
+    rec_u = np.tile(np.asarray(spec.direction if spec.has_object else (0.0, 0.0, 0.0), float),
+                    (n_samples, 1))
     contact_point = np.full(3, np.nan)
 
     for k in range(n_ticks):
@@ -786,19 +973,7 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
             v = _impact(tm, obj, v)
             tm = _terms(robot, q, v)
         # controller (true state, zero-order hold until the next tick)
-        Minv = np.linalg.inv(tm.M)
-        JMi = tm.J @ Minv
-        Lam = np.linalg.inv(JMi @ tm.J.T)
-        vp = tm.J @ v
-        F = (Lam @ (plan.acc[k] - tm.gamma) + TASK_STIFFNESS * (plan.p[k] - tm.p)
-             + TASK_DAMPING * (plan.v[k] - vp))
-        if obj is not None:
-            F = F + spec.feedforward * plan.tangent[k]
-        diag = np.diag(tm.M)
-        err = pin.difference(robot.model, q, robot.config(plan.q_ref[k]))
-        tau_post = diag * (kq * err + dq * (plan.v_ref[k] - v))
-        tau_null = tau_post - tm.J.T @ (Lam @ (JMi @ tau_post))
-        tau = tm.h + tm.J.T @ F + tau_null
+        tau = plan.torque(k, robot, tm, q, v, obj is not None)
         for i in range(n_sub):
             if i > 0:
                 tm = _terms(robot, q, v)
@@ -844,17 +1019,20 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
         velocity = rec_v.copy()
         position = rec_q.copy()
 
+    parameters = spec.truth_parameters()
     truth: dict[str, Any] = {
-        **spec.truth_parameters(),
+        **(parameters or {}), "has_object": parameters is not None,
         "bias": bias, "friction_viscous": fv, "friction_coulomb": fc,
         "friction_smoothing_velocity": FRICTION_SMOOTHING_VELOCITY,
         "effort_noise": EFFORT_NOISE if noise else 0.0,
         "velocity_noise": VELOCITY_NOISE if noise else 0.0,
         "encoder_bits": ENCODER_BITS if noise else 0,
         "position_quantum": quantum if noise else np.zeros(nv),
-        "direction": rec_u if spec.direction_kind == "arc" else np.asarray(spec.direction, float),
+        "direction": (None if not spec.has_object else rec_u if spec.direction_kind == "arc"
+                      else np.asarray(spec.direction, float)),
         "physical": copy.deepcopy(spec.physical),
-        "contact_time": t_contact, "contact_point": contact_point,
+        "contact_time": t_contact if spec.has_object else None,
+        "contact_point": contact_point if spec.has_object else None,
         "effort_side": effort_side, "noise": bool(noise), "seed": seed,
     }
     if spec.direction_kind == "arc":
