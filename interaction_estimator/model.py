@@ -83,13 +83,12 @@ class JointMap:
             angle = sample.position.take(src)
             v = sample.velocity.take(src).astype(float, copy=False)
             e = sample.effort.take(src).astype(float, copy=False)
-        q = angle.take(self._q_from)   # every q entry from its joint's angle...
-        for iq, iv in self._circles:   # ...then (cos, sin) for continuous joints
+        # every q entry from its joint's angle, then (cos, sin) for continuous joints
+        q = angle.take(self._q_from).astype(float, copy=False)
+        for iq, iv in self._circles:
             a = float(angle[iv])
             q[iq] = math.cos(a)
             q[iq + 1] = math.sin(a)
-        if q.dtype != float:
-            q = q.astype(float)
         return q, v, e
 
 

@@ -86,6 +86,20 @@ def test_continuous_joint_takes_cos_sin():
                                atol=1e-12)
 
 
+def test_model_order_and_integer_arrays_map_like_any_order():
+    # names already in model order take a shortcut (no reordering): integer-valued arrays
+    # (a publisher sending whole radians) must give the same float configuration, checked
+    # against Pinocchio's own integrator from the neutral configuration (as above)
+    model = RobotModel(marten.mobile_urdf(), marten.CONTACT_FRAME)
+    names = model.joint_names
+    angles = np.array([0, 0, 1, 0, 1, 0, 1, -1, 1, 0])
+    q, v, e = model.joint_map(names).apply(Sample(0.0, names, angles, angles, angles))
+    assert q.dtype == v.dtype == e.dtype == np.float64
+    np.testing.assert_allclose(q, pin.integrate(model.model, pin.neutral(model.model),
+                                                angles.astype(float)), atol=1e-12)
+    np.testing.assert_array_equal(v, angles)
+
+
 def test_extra_joints_ignored_missing_refused():
     model = RobotModel(marten.arm_urdf(), "tool_tip")
     names = model.joint_names + ("gripper_finger",)

@@ -91,10 +91,12 @@ def main() -> None:
         wmap.solve(dyn.jacobian, r)
 
     f = per_sample_us(floor, samples)
-    obs.reset()
-    st = per_sample_us(stage, samples, repeat=1)
-    pipe = Pipeline(Settings(), marten.mobile_urdf())
-    pl = per_sample_us(pipe.process, samples, repeat=1)
+    st = pl = float("inf")
+    for _ in range(3):  # stateful stages: a fresh start for each run, the best run kept
+        obs.reset()
+        st = min(st, per_sample_us(stage, samples, repeat=1))
+        pipe = Pipeline(Settings(), marten.mobile_urdf())
+        pl = min(pl, per_sample_us(pipe.process, samples, repeat=1))
     print("Per-sample cost, 10-joint Marten mobile manipulator "
           f"({args.samples} samples, best of runs)")
     print(f"  Pinocchio calls alone        {f:8.1f} us")
