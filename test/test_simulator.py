@@ -249,15 +249,22 @@ def test_contact_begins_after_free_motion_and_the_cart_takes_the_base_along():
 # --- robot dynamics against an independent engine -----------------------------------------
 
 
-def test_robot_dynamics_agree_with_mujoco_inverse_dynamics():
-    """MuJoCo's inverse dynamics of the recorded motion equal the joint torque minus J^T F."""
-    run = clean_run("door")
+def mujoco_of(run):
+    """MuJoCo model and data of a run's URDF, standard gravity. The compiler options keep the
+    URDF's bodies and inertias as written (no fusing, no rebalancing), so MuJoCo models the
+    same rigid bodies as the URDF."""
     urdf = run.urdf.replace("<robot name=\"marten_mobile\">", (
         "<robot name=\"marten_mobile\"><mujoco><compiler discardvisual=\"true\" "
         "fusestatic=\"false\" balanceinertia=\"false\"/></mujoco>"), 1)
     model = mujoco.MjSpec.from_string(urdf).compile()
     model.opt.gravity[:] = [0.0, 0.0, -G0]
-    data = mujoco.MjData(model)
+    return model, mujoco.MjData(model)
+
+
+def test_robot_dynamics_agree_with_mujoco_inverse_dynamics():
+    """MuJoCo's inverse dynamics of the recorded motion equal the joint torque minus J^T F."""
+    run = clean_run("door")
+    model, data = mujoco_of(run)
     dof = [model.jnt_dofadr[mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n)]
            for n in run.joint_names]
     qpos_adr = [model.jnt_qposadr[mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n)]
@@ -387,12 +394,7 @@ def test_commissioning_has_no_object_and_no_contact_force():
     assert t["contact_time"] is None and t["contact_point"] is None and t["direction"] is None
     # free motion, Newton-Euler: MuJoCo's inverse dynamics of the recorded motion equal the
     # joint torque itself (no J^T F term) -- MuJoCo as an independent physics engine
-    urdf = run.urdf.replace("<robot name=\"marten_mobile\">", (
-        "<robot name=\"marten_mobile\"><mujoco><compiler discardvisual=\"true\" "
-        "fusestatic=\"false\" balanceinertia=\"false\"/></mujoco>"), 1)
-    model = mujoco.MjSpec.from_string(urdf).compile()
-    model.opt.gravity[:] = [0.0, 0.0, -G0]
-    data = mujoco.MjData(model)
+    model, data = mujoco_of(run)
     joint = [mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_JOINT, n) for n in run.joint_names]
     dof = [model.jnt_dofadr[i] for i in joint]
     qpos_adr = [model.jnt_qposadr[i] for i in joint]
