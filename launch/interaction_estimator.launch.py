@@ -22,18 +22,18 @@ DEFAULT_PARAMS = ("config", "default.yaml")  # inside the package's share direct
 
 
 def generate_launch_description():
-    import os
-
-    from ament_index_python.packages import get_package_share_directory
     from launch import LaunchDescription
     from launch.actions import DeclareLaunchArgument
     from launch.conditions import LaunchConfigurationEquals, LaunchConfigurationNotEquals
-    from launch.substitutions import LaunchConfiguration
+    from launch.substitutions import LaunchConfiguration, PathJoinSubstitution
     from launch_ros.actions import Node
+    from launch_ros.substitutions import FindPackageShare
 
-    share = get_package_share_directory(PACKAGE)
+    # resolved when launched (not when the description is built): the share directory is
+    # looked up in the ament index of the running ROS 2 installation
+    default_params = PathJoinSubstitution([FindPackageShare(PACKAGE), *DEFAULT_PARAMS])
     arguments = [
-        DeclareLaunchArgument("params_file", default_value=os.path.join(share, *DEFAULT_PARAMS),
+        DeclareLaunchArgument("params_file", default_value=default_params,
                               description="ROS 2 parameter file of the node"),
         DeclareLaunchArgument("namespace", default_value="",
                               description="Namespace of the node and its relative topics"),
