@@ -15,18 +15,9 @@ from typing import NamedTuple
 OK, WARN, ERROR, STALE = 0, 1, 2, 3
 LEVEL_NAMES = {OK: "OK", WARN: "WARN", ERROR: "ERROR", STALE: "STALE"}
 PARAMETERS = ("mass", "damping", "stiffness", "static_force")
+# The parameters' flags as one int (FilterStep.pattern): bit i set when parameter i (mass,
+# damping, stiffness, static_force) is excited, bit i + 4 when it has converged.
 ALL_CONVERGED = 0b1111 << 4
-
-
-def flag_pattern(excited, converged) -> int:
-    """Bit pattern of four excited flags (bits 0-3) and four converged flags (bits 4-7)."""
-    bits = 0
-    for i in range(4):
-        if excited[i]:
-            bits |= 1 << i
-        if converged[i]:
-            bits |= 1 << (i + 4)
-    return bits
 
 
 class Verdict(NamedTuple):
@@ -72,8 +63,8 @@ class Health:
         """The worst applicable finding decides the level; the message names it.
 
         phase: learning_bias | free | contact. startup_remaining s of bias learning left;
-        since_contact_end s (inf: never in contact); pattern: :func:`flag_pattern` of the
-        parameters' excited and converged flags; nis_average and its interval [nis_lo, nis_hi];
+        since_contact_end s (inf: never in contact); pattern: the parameters' excited and
+        converged flags as bits (see ALL_CONVERGED); nis_average and its interval [nis_lo, nis_hi];
         filter_samples: updates since the filter's last reset; recent_rejects: samples rejected
         over the last second; rate_hz: input rate from the stamps."""
         warnings = ""

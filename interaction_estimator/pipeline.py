@@ -141,7 +141,8 @@ class Pipeline:
                               s["health.stale_after"])
         self._prior = (np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"]),
                        s["filter.measurement_std"])
-        self._no_flags = np.zeros(4, bool)
+        self._no_flags = np.zeros(4, bool)   # shared by Estimates: read-only
+        self._no_flags.setflags(write=False)
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -213,8 +214,7 @@ class Pipeline:
         dt = 0.0 if t_prev is None else t - t_prev
 
         mass, coriolis_t_v, gravity, jacobian, position, rotation = self.model.dynamics(q, v)
-        friction = self.friction
-        tau = effort - friction.torque(v) if friction.enabled else effort
+        tau = effort - self.friction.torque(v)
         beta = tau + coriolis_t_v
         beta -= gravity
         raw, restarted = self.observer.step(t, mass.dot(v), beta, mass)
@@ -243,7 +243,7 @@ class Pipeline:
                 # contact building up, and must not be learned as bias or noise
                 # nor right after a contact ended (it may resume: a held object's force
                 # passing through zero)
-                if (contact._pending_since is None and contact_level < contact.exit_level
+                if (not contact.pending and contact_level < contact.exit_level
                         and t - self._contact_end > self._forget_after):
                     bias.update(t, dt, raw)
                     residual = raw + bias.value
@@ -291,7 +291,7 @@ class Pipeline:
                         return None
                     if step.change:
                         event = "change: " + step.change
-            position_along, acceleration_along, lag = kin.position, kin._acc, kin.lag
+            position_along, acceleration_along, lag = kin.position, kin.acceleration(), kin.lag
         else:
             position_along = acceleration_along = lag = 0.0
         if event == "contact_end":
@@ -299,15 +299,11 @@ class Pipeline:
 
         self._t_prev = t
         if dt > 0:
-            avg = self._dt_avg
-            self._dt_avg = avg = dt if avg == 0 else avg + 0.01 * (dt - avg)
-        else:
-            avg = self._dt_avg
-        rate = 1.0 / avg if avg > 0 else 0.0
+            self._dt_avg = dt if self._dt_avg == 0 else self._dt_avg + 0.01 * (dt - self._dt_avg)
+        rate = 1.0 / self._dt_avg if self._dt_avg > 0 else 0.0
         reject_times = self._reject_times
-        if reject_times:
-            while reject_times and reject_times[0] < t - 1.0:
-                reject_times.popleft()
+        while reject_times and reject_times[0] < t - 1.0:
+            reject_times.popleft()
 
         if step is None:
             theta, std, meas_std = self._prior
@@ -329,13 +325,17 @@ class Pipeline:
             bounds[0], bounds[1], samples, condition, len(reject_times), rate,
             stamp_from_receive)
         return Estimate(
-            t, force, torque, u.copy(), force_along, position_along, velocity_along,
-            acceleration_along, theta, std, excited, converged,
-            pattern & ALL_CONVERGED == ALL_CONVERGED, phase == "contact", phase, level, state,
-            message, nis, nis_avg, bounds, meas_std, residual, bias.value.copy(),
-            math.inf if bias.last_learned is None else t - bias.last_learned, contact_level,
-            condition, self.observer.restarts, self.rejects.total, rate, lag, event,
-            stamp_from_receive)
+            time=t, force=force, torque=torque, direction=u.copy(), force_along=force_along,
+            position_along=position_along, velocity_along=velocity_along,
+            acceleration_along=acceleration_along, parameters=theta, parameter_std=std,
+            excited=excited, parameter_converged=converged,
+            converged=pattern & ALL_CONVERGED == ALL_CONVERGED, in_contact=phase == "contact",
+            phase=phase, level=level, state=state, message=message, nis=nis,
+            nis_average=nis_avg, nis_bounds=bounds, measurement_std=meas_std,
+            external_torque=residual, bias=bias.value.copy(), bias_age=bias.age(t),
+            contact_level=contact_level, jacobian_condition=condition,
+            observer_restarts=self.observer.restarts, rejected=self.rejects.total, rate_hz=rate,
+            kinematics_lag=lag, event=event, stamp_from_receive=stamp_from_receive)
 
     # --- helpers ---------------------------------------------------------------------------
     def _reject(self, t: float, exc: SampleRejected) -> None:

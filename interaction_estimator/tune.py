@@ -84,6 +84,9 @@ EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 
 PHASES = ("learning_bias", "free", "contact")
 LEARNING, FREE, CONTACT = 0, 1, 2
+# what a bag without contact (a commissioning run) is used for, in every account of it
+FREE_ONLY_USE = ("free motion only, used for bias, friction and sensor noise, not for the "
+                 "environment filter")
 MAX_SEGMENTATION_PASSES = 3     # Pipeline passes after the first, at most
 MARGIN_EXTRA = 0.15             # s kept clear of contact and restarts, on top of 5 / gain
 MIN_BAG_DURATION = 1.0          # s, shorter bags are refused
@@ -1235,7 +1238,7 @@ def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] |
     _require_contact(recordings, tapes, traces)
     if free_only:
         say("no contact in " + ", ".join(recordings[b].name for b in free_only)
-            + ": free motion only, used for bias, friction and sensor noise")
+            + ": " + FREE_ONLY_USE)
     say(f"fitting the environment filter's noise to {sum(len(t) for t in tapes)} contact "
         "updates")
     noise = fit_filter_noise(tapes, base, onset_time(base, joints))
@@ -1544,8 +1547,7 @@ def file_header(result: TuneResult, base_source: str) -> list[str]:
 def free_only_text(result: TuneResult) -> str:
     """One line naming the bags without contact and what they were used for."""
     names = ", ".join(Path(result.bags[b]).name for b in result.free_only)
-    return (f"bags without contact (free motion only; used for bias, friction and sensor "
-            f"noise, not for the environment filter): {names}")
+    return f"bags without contact ({FREE_ONLY_USE}): {names}"
 
 
 # ============================================================================================
@@ -1561,8 +1563,7 @@ def explain(result: TuneResult) -> str:
         out.append(f"  bag {s.bag + 1}  {s.kind:<7} {s.start:9.3f} .. {s.end:9.3f}"
                    f"  ({s.duration:.2f} s)")
     for b in r.free_only:
-        out.append(f"  bag {b + 1}  no contact: free motion only, used for bias, friction and "
-                   "sensor noise, not for the environment filter")
+        out.append(f"  bag {b + 1}  no contact: {FREE_ONLY_USE}")
     out.append(f"free motion: {ident.free_time:.2f} s; contact: {noise.contact_time:.2f} s "
                f"({noise.updates} filter updates)")
     out.append(f"{'joint':<24}{'bias':>10}{'+/-':>8}{'viscous':>10}{'+/-':>8}{'coulomb':>10}"

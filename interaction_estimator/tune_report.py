@@ -32,8 +32,8 @@ import numpy as np
 
 from .environment import PARAMETER_NAMES, PARAMETER_UNITS
 from .settings import Settings
-from .tune import (CONTACT, HELD_OUT_FRACTION, LEARNING, Recording, Trace, TuneResult,
-                   bag_settings, build_entries, fit_filter_noise, identify, replay_filter,
+from .tune import (CONTACT, FREE_ONLY_USE, HELD_OUT_FRACTION, LEARNING, Recording, Trace,
+                   TuneResult, bag_settings, build_entries, fit_filter_noise, identify, replay_filter,
                    run_pass, steady_mask)
 
 # our colours: base settings, tuned settings, reference, truth, page
@@ -329,8 +329,7 @@ def segments_table(result: TuneResult) -> str:
                     f"<td>{s.start:.3f}</td><td>{s.end:.3f}</td><td>{s.duration:.2f}</td></tr>")
     for b in result.free_only:
         rows.append(f"<tr><td>{_e(Path(result.bags[b]).name)}</td><td colspan='4'>no contact: "
-                    "free motion only, used for bias, friction and sensor noise, not for the "
-                    "environment filter</td></tr>")
+                    f"{_e(FREE_ONLY_USE)}</td></tr>")
     return "<table>" + "".join(rows) + "</table>"
 
 

@@ -361,7 +361,7 @@ def test_command_line_commissioning_bag_and_one_task_with_report(bags, runs, tmp
     assert code == 0
     assert "bag 2  no contact: free motion only" in printed
     text = out.read_text()
-    assert "# bags without contact (free motion only; used for bias, friction and sensor " \
+    assert "# bags without contact (free motion only, used for bias, friction and sensor " \
            "noise, not for the environment filter): commissioning_bag" in text
     assert "each bag alone:" in text and "no contact" in text and "nan" not in text
     settings = load_parameter_file(out)
