@@ -164,28 +164,18 @@ def _nis_bounds_table(n_max: int) -> tuple[list[float], list[float]]:
     return [math.nan] + lo.tolist(), [math.nan] + hi.tolist()
 
 
-def _solve_small(A: list[list[float]], b: list[float]) -> list[float] | None:
-    """Solve A z = b for a small dense A (n <= 3 here) by Gaussian elimination with partial
-    pivoting in plain floats; None when a pivot is exactly zero (A singular)."""
-    n = len(b)
-    M = [row[:] + [b[i]] for i, row in enumerate(A)]
-    for c in range(n):
-        r = max(range(c, n), key=lambda k: abs(M[k][c]))
-        if M[r][c] == 0.0:
-            return None
-        if r != c:
-            M[c], M[r] = M[r], M[c]
-        pivot = M[c]
-        for k in range(c + 1, n):
-            factor = M[k][c] / pivot[c]
-            if factor:
-                row = M[k]
-                for j in range(c, n + 1):
-                    row[j] -= factor * pivot[j]
-    z = [0.0] * n
-    for c in range(n - 1, -1, -1):
-        z[c] = (M[c][n] - sum(M[c][j] * z[j] for j in range(c + 1, n))) / M[c][c]
-    return z
+def _conditional_shift(P: list[float], active: list[int], th: list[float]) -> list[float] | None:
+    """z = P_AA^-1 theta_A for the active constraints A (P 4x4 row-major); None when P_AA is
+    singular. One constraint (the usual case) is a division; more go to numpy.linalg.solve."""
+    if len(active) == 1:
+        a = active[0]
+        p = P[5 * a]
+        return [th[a] / p] if p != 0.0 else None
+    try:
+        return np.linalg.solve(np.array([[P[4 * i + j] for j in active] for i in active]),
+                               np.array([th[i] for i in active])).tolist()
+    except np.linalg.LinAlgError:
+        return None
 
 
 class EnvironmentFilter:
@@ -210,8 +200,8 @@ class EnvironmentFilter:
        for this sub-optimal gain; with every parameter excited it is the ordinary Kalman update.
     4. Non-negativity (filter.nonnegative): if mass, damping or stiffness is negative, the
        estimate is projected onto the constraint, minimising (x - theta)^T P^-1 (x - theta)
-       over the excited parameters with the violated ones set to zero
-       (Simon and Chia, "Kalman filtering with state equality constraints", IEEE TAES 2002;
+       over the excited parameters subject to those bounds (an active-set iteration, see
+       :meth:`_project`; Simon and Chia, "Kalman filtering with state equality constraints", IEEE TAES 2002;
        Simon, "Kalman filtering with state constraints: a survey of linear and nonlinear
        algorithms", IET Control Theory Appl. 2010, estimate projection). P is not changed.
     5. Measurement noise R (filter.noise_adaptation), see :meth:`_adapt_measurement_noise`.
@@ -527,7 +517,7 @@ class EnvironmentFilter:
         numbers = np.array((t0, t1, t2, t3, s0, s1, s2, s3) + excitation)
         flags = np.array((x0, x1, x2, x3, c0, c1, c2, c3))
         pattern = (x0 | x1 << 1 | x2 << 2 | x3 << 3
-                   | c0 << 4 | c1 << 5 | c2 << 6 | c3 << 7)   # as health.flag_pattern
+                   | c0 << 4 | c1 << 5 | c2 << 6 | c3 << 7)   # layout: health.ALL_CONVERGED
         step = FilterStep(numbers[:4], numbers[4:8], y, S, nis, nis_avg,
                           (self._nis_lo[n], self._nis_hi[n]), R, numbers[8:], flags[:4],
                           flags[4:], change, k + 1, pattern)
@@ -538,38 +528,47 @@ class EnvironmentFilter:
     def _project(theta: list[float], P: list[float], excited: tuple[bool, ...]) -> list[float]:
         """Estimate projection onto mass, damping, stiffness >= 0 (Simon and Chia 2002).
 
-        theta (4,) and P (4x4 row-major, 16 floats) as plain floats; returns the new theta.
-        Over the excited parameters E, with the violated ones A set to zero, the minimiser of
-        (x - theta)^T P_EE^-1 (x - theta) is x_E = theta_E - P_EA P_AA^-1 theta_A (the
-        conditional mean given x_A = 0). Constraints that become violated are added and the
-        projection repeated (projections onto nested subspaces in one metric compose).
-        Not-excited parameters are not moved unless they are themselves negative (possible
-        only after a settings change); then they are set to zero.
+        theta (4,) and P (4x4 row-major, 16 floats) as plain floats; returns the new theta:
+        the minimiser of (x - theta)^T P_EE^-1 (x - theta) over the excited parameters E with
+        x_i >= 0 for the excited ones among mass, damping and stiffness. For an active set A
+        (bounds held at zero) the minimiser is x_E = theta_E - P_EA z with z = P_AA^-1 theta_A
+        (the conditional mean given x_A = 0), and the bound a really binds only where z_a < 0
+        (its Lagrange multiplier is -z_a). An active-set iteration (Nocedal and Wright,
+        Numerical Optimization, 2nd ed. 2006, ch. 16.5) adds the most violated bound, releases
+        the one whose multiplier has the wrong sign, and stops at the KKT point; with one
+        violated bound (the usual case) it is one division. Not-excited parameters are not
+        moved unless they are themselves negative (possible only after a settings change);
+        then they are set to zero.
         """
-        th = list(theta)
-        active: list[int] = []
+        th0 = list(theta)
         E = [i for i in range(4) if excited[i]]
-        for _ in range(3):
-            new = [i for i in range(3) if th[i] < 0.0 and i not in active]
-            if not new:
-                break
-            for i in new:
-                if not excited[i]:
-                    th[i] = 0.0
-            active += [i for i in new if excited[i]]
-            if not active:
-                break
-            z = _solve_small([[P[4 * i + j] for j in active] for i in active],
-                             [th[i] for i in active])
-            if z is not None:   # a singular P_AA (LU pivot exactly 0): no correction
-                for e in E:
-                    th[e] -= sum(P[4 * e + a] * zk for a, zk in zip(active, z))
-            for a in active:
-                th[a] = 0.0
         for i in range(3):
-            if th[i] < 0.0:
-                th[i] = 0.0
-        return th
+            if th0[i] < 0.0 and not excited[i]:
+                th0[i] = 0.0
+        x = th0
+        active: list[int] = []
+        for _ in range(8):  # at most 3 bounds: a handful of steps reach the KKT point
+            violated = [i for i in range(3) if excited[i] and i not in active and x[i] < 0.0]
+            if not violated:
+                break
+            active.append(min(violated, key=lambda i: x[i]))
+            while active:
+                z = _conditional_shift(P, active, th0)
+                if z is None:   # a singular P_AA: no correction, the bounds set to zero
+                    x = [0.0 if i in active else v for i, v in enumerate(th0)]
+                    break
+                worst = max(range(len(active)), key=lambda k: z[k])
+                if z[worst] <= 0.0:   # every multiplier >= 0: these bounds bind
+                    x = list(th0)
+                    for e in E:
+                        x[e] -= sum(P[4 * e + a] * zk for a, zk in zip(active, z))
+                    for a in active:
+                        x[a] = 0.0
+                    break
+                active.pop(worst)     # this bound does not bind: release it
+            else:
+                x = th0
+        return [max(v, 0.0) if i < 3 else v for i, v in enumerate(x)]
 
     def _adapt_measurement_noise(self, R: float, S: float, hph: float, nis: float,
                                  d: float) -> float:

@@ -289,6 +289,24 @@ def test_nonnegativity_holds_when_data_pull_damping_negative():
     np.testing.assert_allclose(theta[-1], ref.x, rtol=1e-6, atol=1e-9)
 
 
+@pytest.mark.parametrize("seed", range(10))
+def test_projection_is_the_bounded_least_squares_solution(seed):
+    # Damping and stiffness both negative after an update, with correlated uncertainty: the
+    # multi-constraint path, where a bound may bind or, once another binds, no longer be needed.
+    # Reference: the P^-1-weighted projection onto mass, damping, stiffness >= 0 is the bounded
+    # least-squares problem min |L^T (x - theta)|^2 with P^-1 = L L^T (Simon and Chia 2002),
+    # solved by scipy.optimize.lsq_linear.
+    rng = np.random.default_rng(seed)
+    G = rng.normal(size=(4, 4)) * np.array([1.0, 1.0, 10.0, 2.0])[:, None]
+    P = G @ G.T + np.diag([0.5, 0.5, 50.0, 2.0])
+    theta = np.array([2.0, -0.8, -30.0, 3.0])
+    out = EnvironmentFilter._project(theta.tolist(), P.ravel().tolist(), (True,) * 4)
+    L = np.linalg.cholesky(np.linalg.inv(P))
+    ref = lsq_linear(L.T, L.T @ theta, bounds=([0, 0, 0, -np.inf], [np.inf] * 4),
+                     method="bvls", tol=1e-12)
+    np.testing.assert_allclose(out, ref.x, rtol=1e-9, atol=1e-9)
+
+
 def test_damping_jump_is_detected_and_recovered():
     # A drawer whose damping doubles (a brake engages) at t = 8 s.
     rng = np.random.default_rng(13)
