@@ -34,7 +34,7 @@ only when settings are applied.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -50,8 +50,17 @@ NIS_CONFIDENCE = 0.95  # two-sided probability of the NIS interval (Bar-Shalom e
 _H_LABELS = ("h[0] (x'', m/s^2)", "h[1] (x', m/s)", "h[2] (x, m)", "h[3] (constant 1)")
 
 
-@dataclass
-class FilterStep:
+def _flag_array(bits: int) -> np.ndarray:
+    a = np.array([bool(bits >> i & 1) for i in range(4)])
+    a.setflags(write=False)
+    return a
+
+
+# the (4,) bool arrays of every flag pattern, read-only and shared by the records that carry them
+_FLAGS = tuple(_flag_array(bits) for bits in range(16))
+
+
+class FilterStep(NamedTuple):
     """One record per update; all SI.
 
     theta (4,): estimate [kg, N·s/m, N/m, N]. std (4,): standard deviations, same units.
@@ -61,7 +70,7 @@ class FilterStep:
     updates averaged). measurement_var: R used at this step, N^2.
     excitation (4,): RMS of each regressor [x'' m/s^2, x' m/s, x m, 1] over the excitation window.
     excited (4,) bool: the parameter was updated at this step. converged (4,) bool: excited and
-    std below filter.converged_std or filter.converged_rel_std * |theta|.
+    std below filter.converged_std or filter.converged_rel_std * |theta|. Both read-only (shared).
     change: "" or why a change was declared at (or just before) this step.
     samples: updates since the last reset, this one included.
     pattern: the excited flags as bits 0-3 and the converged flags as bits 4-7 (for Health).
@@ -356,7 +365,7 @@ class EnvironmentFilter:
             self._reject("non_finite_output", f"environment filter: force f is {f!r} N")
         self._reject("non_finite_output",
                      f"environment filter: predicted force h theta overflowed (innovation {y!r} N)"
-                     f" for h = {h.tolist()} and theta = {list(self._th)}")
+                     f" for h = {[float(v) for v in h]} and theta = {list(self._th)}")
 
     def update(self, t: float, h: np.ndarray, f: float) -> FilterStep:
         """One filter step.
@@ -367,11 +376,14 @@ class EnvironmentFilter:
         and SampleRejected('time_backwards') when t is older than the previous update; the
         state is then untouched and :attr:`rejected` counts it.
         """
-        h = np.asarray(h, dtype=float)
-        if h.shape != (4,):
-            raise ValueError(f"environment filter: regressor h has shape {h.shape}; expected (4,)"
-                             " = [x'' m/s^2, x' m/s, x m, 1]")
-        h0, h1, h2, h3 = h.tolist()
+        if type(h) is tuple and len(h) == 4:   # the pipeline's fast path: four floats
+            h0, h1, h2, h3 = h
+        else:
+            h = np.asarray(h, dtype=float)
+            if h.shape != (4,):
+                raise ValueError(f"environment filter: regressor h has shape {h.shape}; "
+                                 "expected (4,) = [x'' m/s^2, x' m/s, x m, 1]")
+            h0, h1, h2, h3 = h.tolist()
         t = float(t)
         f = float(f)
         th0, th1, th2, th3 = self._th
@@ -515,12 +527,12 @@ class EnvironmentFilter:
         c2 = x2 and s2 < max(cs2, rel * abs(t2))
         c3 = x3 and s3 < max(cs3, rel * abs(t3))
         numbers = np.array((t0, t1, t2, t3, s0, s1, s2, s3) + excitation)
-        flags = np.array((x0, x1, x2, x3, c0, c1, c2, c3))
-        pattern = (x0 | x1 << 1 | x2 << 2 | x3 << 3
-                   | c0 << 4 | c1 << 5 | c2 << 6 | c3 << 7)   # layout: health.ALL_CONVERGED
+        excited_bits = x0 | x1 << 1 | x2 << 2 | x3 << 3
+        converged_bits = c0 | c1 << 1 | c2 << 2 | c3 << 3
         step = FilterStep(numbers[:4], numbers[4:8], y, S, nis, nis_avg,
-                          (self._nis_lo[n], self._nis_hi[n]), R, numbers[8:], flags[:4],
-                          flags[4:], change, k + 1, pattern)
+                          (self._nis_lo[n], self._nis_hi[n]), R, numbers[8:],
+                          _FLAGS[excited_bits], _FLAGS[converged_bits], change, k + 1,
+                          excited_bits | converged_bits << 4)   # layout: health.ALL_CONVERGED
         self.last = step
         return step
 
@@ -540,6 +552,20 @@ class EnvironmentFilter:
         moved unless they are themselves negative (possible only after a settings change);
         then they are set to zero.
         """
+        if excited[0] and excited[1] and excited[2] and excited[3]:
+            # the usual case, without the general iteration: all excited and one bound violated;
+            # it binds (z < 0), and if the shift violates no other bound, that is the KKT point
+            neg0, neg1, neg2 = theta[0] < 0.0, theta[1] < 0.0, theta[2] < 0.0
+            if neg0 + neg1 + neg2 == 1:
+                a = 0 if neg0 else (1 if neg1 else 2)
+                p = P[5 * a]
+                if p > 0.0:
+                    z = theta[a] / p
+                    x = [theta[0] - P[a] * z, theta[1] - P[4 + a] * z,
+                         theta[2] - P[8 + a] * z, theta[3] - P[12 + a] * z]
+                    x[a] = 0.0
+                    if x[0] >= 0.0 and x[1] >= 0.0 and x[2] >= 0.0:
+                        return x
         th0 = list(theta)
         E = [i for i in range(4) if excited[i]]
         for i in range(3):

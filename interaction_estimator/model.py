@@ -173,7 +173,8 @@ class RobotModel:
         """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
         m, d, fid = self.model, self.data, self.frame_id
         pin.computeJointJacobians(m, d, q)
-        pin.updateFramePlacement(m, d, fid)
+        # the placement it returns (cheaper than looking it up again in data.oMf)
+        pose = pin.updateFramePlacement(m, d, fid).homogeneous   # (4, 4) copy
         mass = pin.crba(m, d, q)   # a copy of data.M
         if self._symmetrize:
             mass = np.triu(mass) + np.triu(mass, 1).T
@@ -181,5 +182,4 @@ class RobotModel:
         coriolis_t_v = v.dot(pin.computeCoriolisMatrix(m, d, q, v))
         gravity = pin.computeGeneralizedGravity(m, d, q)
         jac = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
-        pose = d.oMf[fid].homogeneous   # one 4x4 copy: cheaper than translation + rotation
         return Dynamics(mass, coriolis_t_v, gravity, jac, pose[:3, 3], pose[:3, :3])

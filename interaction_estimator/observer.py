@@ -268,11 +268,16 @@ class BiasEstimator:
         alpha = 1.0 - math.exp(-dt / self.time_constant)
         step = (-alpha) * (raw_residual + self.value)
         limit = self.max_rate * dt
-        np.minimum(step, limit, out=step)
-        np.maximum(step, -limit, out=step)
+        # each clip only where a bound can bind: sum of squares < bound^2 means every element
+        # is inside (one product instead of two element-wise passes; NaN skips, as it would
+        # pass through the clip too)
+        if step.dot(step) >= limit * limit:
+            np.minimum(step, limit, out=step)
+            np.maximum(step, -limit, out=step)
         step += self.value
-        np.minimum(step, self.limit, out=step)
-        np.maximum(step, -self.limit, out=step)
+        if step.dot(step) >= self.limit * self.limit:
+            np.minimum(step, self.limit, out=step)
+            np.maximum(step, -self.limit, out=step)
         self.value = step
         self.last_learned = t
 
@@ -332,13 +337,13 @@ class ContactMonitor:
         var += alpha * (residual * residual - var)
         np.maximum(var, self.noise_floor**2, out=var)
         self._weights = None
-        self._inv_var_nv = 1.0 / (var * self.nv)
+        self._inv_var_nv = np.reciprocal(var * self.nv)   # 1 / (nv sigma_i^2)
 
     @property
     def weights(self) -> np.ndarray:
         """Per-joint weights 1/sigma_i^2 normalized to mean 1 (nv,), for the wrench map."""
         if self._weights is None:
-            inv = 1.0 / self.noise_var
+            inv = np.reciprocal(self.noise_var)
             self._weights = inv * (len(inv) / inv.sum())
         return self._weights
 

@@ -214,8 +214,8 @@ class Pipeline:
         dt = 0.0 if t_prev is None else t - t_prev
 
         mass, coriolis_t_v, gravity, jacobian, position, rotation = self.model.dynamics(q, v)
-        tau = effort - self.friction.torque(v)
-        beta = tau + coriolis_t_v
+        friction = self.friction
+        beta = (effort - friction.torque(v) if friction.enabled else effort) + coriolis_t_v
         beta -= gravity
         raw, restarted = self.observer.step(t, mass.dot(v), beta, mass)
         bias = self.bias
@@ -250,7 +250,10 @@ class Pipeline:
                     contact.learn_noise(dt, residual)
 
         force, torque, condition = self.wrench_map.solve(jacobian, residual, contact.weights)
-        if not math.isfinite(force.dot(force) + torque.dot(torque)):  # NaN/inf anywhere
+        f0, f1, f2 = force.tolist()
+        # NaN/inf anywhere (an overflowing sum of huge finite values counts as non-finite too)
+        if not math.isfinite(f0 + f1 + f2 + (torque.dot(torque) if torque is not
+                                                self.wrench_map.no_torque else 0.0)):
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))

@@ -38,7 +38,8 @@ class WrenchMap:
         self.full_wrench = full_wrench
         self.damping2 = damping * damping
         self._minus_damping2 = -self.damping2
-        self._zero3 = np.zeros(3)
+        self.no_torque = np.zeros(3)   # the torque of force mode (read-only, shared)
+        self.no_torque.setflags(write=False)
 
     def solve(self, jacobian: np.ndarray, external_torque: np.ndarray,
               weights: np.ndarray | None = None) -> Wrench:
@@ -61,7 +62,7 @@ class WrenchMap:
         condition = math.sqrt(w_max / w_min) if w_min > 0.0 else math.inf
         if self.full_wrench:
             return Wrench(force[:3], force[3:], condition)
-        return Wrench(force, self._zero3, condition)
+        return Wrench(force, self.no_torque, condition)
 
 
 class Direction:
@@ -151,10 +152,11 @@ class AlongKinematics:
         # one doubled ring buffer, rows t, v, x, f: the window is always the contiguous slice
         # [i, i + n) of every row
         self._buf = np.zeros((4, 2 * n))
+        self._rows = tuple(self._buf)   # row views t, v, x, f
         self._i = 0
         self._count = 0
         self.position = 0.0
-        self._filtered: np.ndarray | None = None
+        self._filtered: tuple[float, float, float, float] | None = None
         self._acc = 0.0        # Savitzky-Golay x'' at the window centre, m/s^2
         self._vel = 0.0        # Savitzky-Golay smoothed x' at the window centre, m/s
 
@@ -169,19 +171,21 @@ class AlongKinematics:
     def push(self, t: float, dx: float, velocity: float, force: float) -> None:
         """Add a sample: displacement dx along u since the last sample (m), velocity (m/s),
         force along u (N)."""
-        self.position += dx
+        position = self.position = self.position + dx
         i, n = self._i, self.n
-        column = (t, velocity, self.position, force)
-        buf = self._buf
-        buf[:, i] = column
-        buf[:, i + n] = column
+        # scalar stores into the rows (views of the one buffer): cheaper than a column store
+        bt, bv, bx, bf = self._rows
+        bt[i] = bt[i + n] = t
+        bv[i] = bv[i + n] = velocity
+        bx[i] = bx[i + n] = position
+        bf[i] = bf[i + n] = force
         i += 1
         self._i = i if i < n else 0
         self._count += 1
         if self._count >= n:
             i = self._i
-            spacing = (buf[0, i + n - 1] - buf[0, i]) / (n - 1)
-            d, v = self._coeffs.dot(buf[1, i:i + n]).tolist()
+            spacing = float(bt[i + n - 1] - bt[i]) / (n - 1)   # a float, not numpy.float64:
+            d, v = self._coeffs.dot(bv[i:i + n]).tolist()           # the filter's scalar math
             self._acc, self._vel = d / spacing, v
 
     @property
@@ -192,19 +196,21 @@ class AlongKinematics:
         """Savitzky-Golay acceleration at the window centre, m/s^2 (0 before the window fills)."""
         return self._acc
 
-    def aligned_row(self, dt: float) -> tuple[np.ndarray, float, float] | None:
+    def aligned_row(self, dt: float) -> tuple[tuple[float, float, float, float], float,
+                                               float] | None:
         """Regressor h = [x'', x', x, 1] at the window centre passed through the
         observer-matching first-order filter, and the force f (N) at the window centre; returns
-        (h (4,), f, centre time s), or None until the window is full."""
+        (h: 4 floats, f, centre time s), or None until the window is full."""
         if self._count < self.n:
             return None
         c = self._i + self.half
-        buf = self._buf
-        row = np.array((self._acc, self._vel, buf[2, c], 1.0))
-        if self._filtered is None or self.gain is None:
-            self._filtered = row
-        else:
+        bt, _, bx, bf = self._rows
+        row = (self._acc, self._vel, float(bx[c]), 1.0)
+        if self._filtered is not None and self.gain is not None:
             a = math.exp(-self.gain * dt)
-            self._filtered = a * self._filtered + (1.0 - a) * row
+            b = 1.0 - a
+            h0, h1, h2, h3 = self._filtered
+            row = (a * h0 + b * row[0], a * h1 + b * row[1], a * h2 + b * row[2], a * h3 + b)
+        self._filtered = row
         # the force is the observer's output: already filtered once, so it is taken as it is
-        return self._filtered.copy(), float(buf[3, c]), float(buf[0, c])
+        return row, float(bf[c]), float(bt[c])

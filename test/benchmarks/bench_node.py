@@ -113,10 +113,11 @@ class Driver:
         self.sub = self.node.create_subscription(
             WrenchStamped, f"{namespace}/interaction_estimator/wrench", self._on_wrench,
             OUTPUT_QOS)
-        self.status = None  # the last ~/status (estimator only)
-        self.node.create_subscription(DiagnosticStatus,
-                                      f"{namespace}/interaction_estimator/status",
-                                      self._on_status, OUTPUT_QOS)
+        # ~/status (estimator only) is read once, after the measured window: a subscription
+        # during it would make this process deserialize 50 status messages a second and delay
+        # its own wrench arrival stamps, a load the floor subject does not put on it
+        self.status = None
+        self._namespace = namespace
         self.cycle = cycle
         from rclpy.executors import SingleThreadedExecutor
         self.executor = SingleThreadedExecutor(context=self.context)
@@ -136,6 +137,15 @@ class Driver:
 
     def _on_status(self, msg: DiagnosticStatus) -> None:
         self.status = msg
+
+    def read_status(self, timeout: float = 2.0) -> None:
+        """Subscribe to ~/status and wait (up to ``timeout`` s) for one message."""
+        self.node.create_subscription(DiagnosticStatus,
+                                      f"{self._namespace}/interaction_estimator/status",
+                                      self._on_status, OUTPUT_QOS)
+        end = time.monotonic() + timeout
+        while self.status is None and time.monotonic() < end:
+            time.sleep(0.02)
 
     def wait_matched(self, proc: subprocess.Popen, timeout: float = 60.0) -> bool:
         end = time.monotonic() + timeout
@@ -193,6 +203,8 @@ def measure(name: str, command: list[str], namespace: str, cycle: list[JointStat
         cpu1, wall1 = cpu_seconds(proc.pid), time.monotonic()
         load = os.getloadavg()[0]  # the machine's 1-minute load at the end of the window
         time.sleep(0.5)  # stragglers
+        if name != "floor":
+            driver.read_status()
     finally:
         driver.close()
         stop(proc)
