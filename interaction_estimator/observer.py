@@ -332,9 +332,14 @@ class ContactMonitor:
         return np.sqrt(self.noise_var)
 
     def learn_noise(self, dt: float, residual: np.ndarray) -> None:
+        """Learn from one free-motion residual (nv,) N·m, dt s after the last."""
+        self.learn_power(dt, residual * residual)
+
+    def learn_power(self, dt: float, mean_square: np.ndarray) -> None:
+        """Learn from the mean square (nv,) N·m^2 of the free-motion residual over dt s."""
         alpha = 1.0 - math.exp(-dt / self.noise_time_constant)
         var = self.noise_var
-        var += alpha * (residual * residual - var)
+        var += alpha * (mean_square - var)
         np.maximum(var, self.noise_floor**2, out=var)
         self._weights = None
         self._inv_var_nv = np.reciprocal(var * self.nv)   # 1 / (nv sigma_i^2)

@@ -24,6 +24,7 @@ from .samples import RejectCounts, Sample, SampleRejected, SampleValidator
 from .settings import Settings, per_joint
 from .wrench import AlongKinematics, Direction, WrenchMap
 
+_LEARN_INTERVAL = 0.01  # s: longest interval of quiet samples between noise-level updates
 _KINEMATICS_WARMUP = 10  # samples used to learn the nominal sample interval before building AlongKinematics
 
 
@@ -72,6 +73,30 @@ class Estimate:
     kinematics_lag: float
     event: str
     stamp_from_receive: bool
+
+
+class _QuietPower:
+    """Sum of the squared residual (nv,) N·m^2 over the quiet (free-motion) samples of one
+    noise-learning interval: the noise level is learned from its mean, which is what the
+    per-sample exponential average would have seen, once per interval."""
+
+    __slots__ = ("dt", "count", "square")
+
+    def __init__(self, nv: int):
+        self.square = np.zeros(nv)
+        self.clear()
+
+    def clear(self) -> None:
+        self.dt = 0.0
+        self.count = 0
+        self.square[:] = 0.0
+
+    def add(self, dt: float, residual: np.ndarray) -> float:
+        """One quiet sample, dt s after the previous one; returns the interval so far, s."""
+        self.square += residual * residual
+        self.count += 1
+        self.dt += dt
+        return self.dt
 
 
 class Pipeline:
@@ -136,6 +161,10 @@ class Pipeline:
         self._gain_mean = None if kalman else float(np.mean(gain))
         # values read on every sample, looked up once here
         self._noise_tc = s["contact.noise_time_constant"]
+        # the noise level is learned from the mean square over intervals of quiet samples (see
+        # _QuietPower): its time constant is seconds, so one update per 10 ms learns the same as
+        # one per sample, and the wrench's joint weights change only then
+        self._learn_interval = min(_LEARN_INTERVAL, self._noise_tc / 20.0)
         self._forget_after = s["contact.forget_after"]
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"])
@@ -173,11 +202,12 @@ class Pipeline:
         self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
         self._t_prev: float | None = None
         self._t_start: float | None = None
-        self._point_prev: np.ndarray | None = None
+        self._point_prev: list[float] | None = None   # contact point, m (world)
         self._contact_end: float = -math.inf   # time the last contact ended
         self._ever_contact = False
         self._quiet_position = 0.0
         self._dt_avg = 0.0
+        self._quiet = _QuietPower(self.model.nv)
         self._reject_times: deque[float] = deque(maxlen=1000)
         self._rejected_before = self.rejects.total
         self._last_reject_total = self.rejects.total
@@ -226,10 +256,11 @@ class Pipeline:
         event = "observer_restarted" if restarted else ""
         if elapsed < self._startup:
             phase = "learning_bias"
+            # the noise only in the second half (the bias has settled), 4x faster than when free
             bias.update(t, dt, raw)
-            if elapsed > 0.5 * self._startup:  # learn the noise 4x faster than in free motion
-                contact.learn_noise(dt * 4.0 * self._noise_tc / max(self._startup, 1e-3),
-                                    raw + bias.value)
+            if elapsed > 0.5 * self._startup:
+                if self._quiet.add(dt, raw + bias.value) >= self._learn_interval:
+                    self._learn_noise(4.0 * self._noise_tc / max(self._startup, 1e-3))
             contact_level = 0.0
         else:
             in_contact, contact_level, contact_event = contact.step(t, residual)
@@ -247,7 +278,12 @@ class Pipeline:
                         and t - self._contact_end > self._forget_after):
                     bias.update(t, dt, raw)
                     residual = raw + bias.value
-                    contact.learn_noise(dt, residual)
+                    if self._quiet.add(dt, residual) >= self._learn_interval:
+                        self._learn_noise(1.0)
+                elif self._quiet.count:
+                    # quiet no more (a contact may be building up): learn the samples gathered
+                    # so far at once, as a per-sample average would have, before judging more
+                    self._learn_noise(1.0)
 
         force, torque, condition = self.wrench_map.solve(jacobian, residual, contact.weights)
         f0, f1, f2 = force.tolist()
@@ -261,11 +297,16 @@ class Pipeline:
 
         point_velocity = jacobian[:3].dot(v)
         u = self.direction.update(dt, rotation, point_velocity)
-        force_along = float(u.dot(force))
+        # the three projections on u in plain floats (three-element numpy products cost more)
+        u0, u1, u2 = u.tolist()
+        force_along = u0 * f0 + u1 * f1 + u2 * f2
+        p0, p1, p2 = point = position.tolist()
         point_prev = self._point_prev
-        dx = 0.0 if point_prev is None else float(u.dot(position - point_prev))
-        self._point_prev = position
-        velocity_along = float(u.dot(point_velocity))
+        dx = 0.0 if point_prev is None else (u0 * (p0 - point_prev[0]) + u1 * (p1 - point_prev[1])
+                                             + u2 * (p2 - point_prev[2]))
+        self._point_prev = point
+        v0, v1, v2 = point_velocity.tolist()
+        velocity_along = u0 * v0 + u1 * v1 + u2 * v2
 
         kin = self.kinematics if self.kinematics is not None else self._kinematics(dt)
         step = self.filter.last
@@ -341,6 +382,13 @@ class Pipeline:
             kinematics_lag=lag, event=event, stamp_from_receive=stamp_from_receive)
 
     # --- helpers ---------------------------------------------------------------------------
+    def _learn_noise(self, speed: float) -> None:
+        """The residual's noise level from the quiet samples gathered since the last call
+        (learned ``speed`` times faster than their duration says)."""
+        q = self._quiet
+        self.contact.learn_power(q.dt * speed, q.square / q.count)
+        q.clear()
+
     def _reject(self, t: float, exc: SampleRejected) -> None:
         self.rejects.add(exc)
         self._reject_times.append(t)
