@@ -274,15 +274,20 @@ class EstimatorNode(Node):
     def _on_joint_state(self, msg: JointState) -> None:
         start = time.perf_counter()
         try:
-            receive = self._now_s()
             if self.pipeline is None:
                 self._reject_node(SampleRejected(
                     "no_model", "joint state received before a usable robot model "
                     f"({self._idle_text()})"))
                 return
             if self._efforts_sub is None:
-                self._process(msg, receive, None, start)
+                # the ROS clock is read only where its value is used: a zero stamp, or the
+                # input age of a status about to be published
+                due = self._status_due()
+                receive = (self._now_s() if due or stamp_is_zero(msg.header.stamp)
+                           else math.nan)
+                self._process(msg, receive, None, start, due)
                 return
+            receive = self._now_s()
             t = receive if stamp_is_zero(msg.header.stamp) else stamp_seconds(msg.header.stamp)
             for pair in self._matcher.add_state(t, (msg, receive)):
                 self._process_pair(pair, start)
@@ -315,8 +320,14 @@ class EstimatorNode(Node):
             return
         self._process(state, receive, efforts, start)
 
+    def _status_due(self) -> bool:
+        rate = self.settings["output.status_rate"]
+        return rate == 0.0 or time.monotonic() - self._last_status_time >= 1.0 / rate
+
     def _process(self, msg: JointState, receive: float, efforts: Sequence[float] | None,
-                 start: float) -> None:
+                 start: float, due: bool | None = None) -> None:
+        """One joint state (efforts from ``efforts`` when given); receive: ROS time s, NaN when
+        not read; due: publish a status after it (None: decide now)."""
         pipeline = self.pipeline
         sample = sample_from_joint_state(msg, receive, efforts)
         before = pipeline.rejects.total
@@ -325,7 +336,10 @@ class EstimatorNode(Node):
             if pipeline.rejects.total > before:
                 self._note_pipeline_reject(pipeline)
             return
-        self._input_age = math.nan if sample.stamp_from_receive else receive - sample.time
+        if sample.stamp_from_receive:
+            self._input_age = math.nan
+        elif receive == receive:   # read (not NaN)
+            self._input_age = receive - sample.time
         if est.observer_restarts > self._last_restarts:
             self._last_restarts = est.observer_restarts
             self._throttle.emit("observer_restarted", (
@@ -346,10 +360,8 @@ class EstimatorNode(Node):
                 "non_finite_output", f"estimate at {est.time:.6f} s has a non-finite force or "
                 "parameter; not published"))
         self._latency.add(time.perf_counter() - start)
-        self._last_processed = time.monotonic()
-        rate = self.settings["output.status_rate"]
-        now = time.monotonic()
-        if rate == 0.0 or now - self._last_status_time >= 1.0 / rate:
+        now = self._last_processed = time.monotonic()
+        if self._status_due() if due is None else due:
             self._publish(status_message(est, self._figures(est), self._hardware_id()), now)
 
     # --- rejects and errors ----------------------------------------------------------------

@@ -112,9 +112,12 @@ def efforts_for_state(state: JointState, efforts: JointState,
 
 
 def outputs_finite(est) -> bool:
-    """True when every number the wrench and environment messages would carry is finite."""
-    return bool(np.isfinite(np.concatenate((est.force, est.torque, est.parameters,
-                                            est.parameter_std))).all())
+    """True when every number the wrench and environment messages would carry is finite.
+
+    One sum per array: NaN or infinity anywhere makes it non-finite (a sum of huge finite
+    values that overflows counts as non-finite too, which errs on the safe side)."""
+    return math.isfinite(sum(est.force.tolist()) + sum(est.torque.tolist())
+                         + sum(est.parameters.tolist()) + sum(est.parameter_std.tolist()))
 
 
 def wrench_message(est, frame_id: str, stamp: TimeMsg,

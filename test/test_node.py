@@ -177,6 +177,12 @@ def test_outputs_equal_the_pipeline_and_states_progress(ros, tmp_path):
     for wanted in ("learning_bias", "free_motion", "in_contact", "converged"):
         assert wanted in ref_states  # the scenario is built to reach them (Pipeline reference)
 
+    # the input age (receive time minus stamp) is read for every status published (status_rate
+    # 0: one per sample), the ROS clock only then
+    ages = [values(st)["input_age[s]"] for st in peer.status.messages()
+            if values(st)["state"] in set(ref_states)]
+    assert ages and all(a != "n/a" and math.isfinite(float(a)) for a in ages), ages[:5]
+
     # /diagnostics carries the same status (about 2 Hz here)
     peer.wait_for(lambda: len(peer.diagnostics) >= 2, 10, "two /diagnostics arrays", node)
     sent = {st.message for st in peer.status.messages()}

@@ -6,7 +6,12 @@ by hand to short sequences; a fake clock for the throttle.
 """
 from __future__ import annotations
 
+from types import SimpleNamespace
+
+import numpy as np
+
 from interaction_estimator.node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
+from interaction_estimator.node_messages import outputs_finite
 
 
 def pairs(out):
@@ -63,3 +68,20 @@ def test_latency_meter_mean_and_max():
     for x in (0.001, 0.003, 0.002):
         m.add(x)
     assert m.mean_s == 0.002 and m.take_max() == 0.003 and m.take_max() == 0.0
+
+
+def test_outputs_finite_agrees_with_numpy_isfinite():
+    """Reference: numpy.isfinite over every number the wrench and environment messages carry."""
+    rng = np.random.default_rng(7)
+    for case in range(400):
+        arrays = [rng.normal(scale=10.0 ** rng.integers(-3, 6), size=n) for n in (3, 3, 4, 4)]
+        if case % 2:  # one bad value somewhere
+            a = arrays[rng.integers(4)]
+            a[rng.integers(len(a))] = (np.nan, np.inf, -np.inf)[case % 3]
+        est = SimpleNamespace(force=arrays[0], torque=arrays[1], parameters=arrays[2],
+                              parameter_std=arrays[3])
+        assert outputs_finite(est) == bool(np.isfinite(np.concatenate(arrays)).all()), case
+    # a finite sum that overflows counts as non-finite (documented: errs on the safe side)
+    est = SimpleNamespace(force=np.full(3, 1e308), torque=np.zeros(3), parameters=np.zeros(4),
+                          parameter_std=np.zeros(4))
+    assert not outputs_finite(est)
