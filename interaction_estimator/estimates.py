@@ -66,18 +66,17 @@ _NUMERIC = tuple(n for n in COLUMN_NAMES if n != "state")
 _STATE_CODE = {s: i for i, s in enumerate(STATES)}
 
 
-def estimate_row(e: Any) -> tuple[float, ...]:
+def estimate_row(e: Any) -> list[float]:
     """The numeric columns (all but ``state``) of one Estimate, in :data:`_NUMERIC` order."""
-    f, p, s, u = e.force, e.parameters, e.parameter_std, e.direction
-    c, x = e.parameter_converged, e.excited
     lo, hi = e.nis_bounds
-    return (e.time, f[0], f[1], f[2], e.force_along, e.position_along, e.velocity_along,
-            e.acceleration_along, p[0], p[1], p[2], p[3], s[0], s[1], s[2], s[3],
-            float(e.converged), float(e.in_contact), float(e.level), u[0], u[1], u[2],
+    # tolist(): the arrays' elements as Python numbers in one call each (element indexing
+    # would make numpy scalars one at a time)
+    return [e.time, *e.force.tolist(), e.force_along, e.position_along, e.velocity_along,
+            e.acceleration_along, *e.parameters.tolist(), *e.parameter_std.tolist(),
+            e.converged, e.in_contact, e.level, *e.direction.tolist(),
             e.nis, e.nis_average, lo, hi, e.measurement_std,
-            float(c[0]), float(c[1]), float(c[2]), float(c[3]),
-            float(x[0]), float(x[1]), float(x[2]), float(x[3]),
-            e.contact_level, e.jacobian_condition, e.bias_age, e.kinematics_lag)
+            *e.parameter_converged.tolist(), *e.excited.tolist(),
+            e.contact_level, e.jacobian_condition, e.bias_age, e.kinematics_lag]
 
 
 class EstimateTable:
@@ -132,12 +131,37 @@ class EstimateTable:
 _FLOAT_TEXT = "%.17g".__mod__
 
 
+_INTEGER_TEXT = {float(i): str(i) for i in range(4)}   # flags 0/1 and levels 0-3
+
+
+def _integer_texts(values: np.ndarray) -> list[str]:
+    """Integer column text; NaN (not reported) -> empty field."""
+    out = list(map(_INTEGER_TEXT.get, values.tolist()))
+    if None in out:   # NaN, or an integer outside 0-3
+        out = ["" if v != v else str(int(v)) for v in values.tolist()]
+    return out
+
+
+def _float_texts(values: np.ndarray) -> list[str]:
+    """Float column text, each distinct run of equal values formatted once: many columns hold
+    still for long stretches (parameters out of contact, the direction, NIS bounds)."""
+    n = len(values)
+    if n == 0:
+        return []
+    bits = np.ascontiguousarray(values, dtype=float).view(np.uint64)  # 0.0 and -0.0 differ
+    starts = np.flatnonzero(np.concatenate(([True], bits[1:] != bits[:-1])))
+    if len(starts) > n // 4:   # mostly changing: format every value
+        return list(map(_FLOAT_TEXT, values.tolist()))
+    texts = np.array(list(map(_FLOAT_TEXT, values[starts].tolist())), dtype=object)
+    return texts.repeat(np.diff(np.append(starts, n))).tolist()
+
+
 def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 20000) -> None:
     """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats written with
     17 significant digits (they read back bit-identical), flags and levels as integers (empty where a
     source did not report them). Written column-wise in chunks of ``chunk`` rows: each column's
-    text is made by one ``map`` over its values, which is several times faster than formatting
-    row by row, and memory stays bounded by the chunk."""
+    text is made by one ``map`` over its values (or over its runs of equal values), which is
+    several times faster than formatting row by row, and memory stays bounded by the chunk."""
     n = len(cols["time"])
     states = cols["state"]
     with open(path, "w", encoding="utf-8", newline="") as fh:
@@ -149,11 +173,9 @@ def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 20000) ->
                 if c == "state":
                     texts.append([str(x) for x in states[lo:hi]])
                     continue
-                values = np.asarray(cols[c][lo:hi], dtype=float).tolist()
-                if c in _INTEGER_COLUMNS:  # NaN (not reported) -> empty field
-                    texts.append(["" if v != v else str(int(v)) for v in values])
-                else:
-                    texts.append(list(map(_FLOAT_TEXT, values)))
+                values = np.asarray(cols[c][lo:hi], dtype=float)
+                texts.append(_integer_texts(values) if c in _INTEGER_COLUMNS
+                             else _float_texts(values))
             fh.write("\n".join(map(",".join, zip(*texts))))
             fh.write("\n")
 

@@ -436,3 +436,40 @@ def test_console_script_exit_codes(tmp_path):
     r = subprocess.run([*cmd, "run", "--ros-args", "--params-file", str(bad)],
                        capture_output=True, text=True, timeout=120)
     assert r.returncode == 2 and "unknown setting 'observer.gian'" in r.stderr
+
+
+def test_csv_text_is_every_value_formatted_on_its_own(tmp_path):
+    """Reference: Python's own "%.17g" of each value, row by row (17 significant digits read
+    back bit-identical, IEEE 754 binary64), and float() of that text; the writer formats runs of
+    equal values once, so runs, signed zeros, NaN and infinities are mixed in."""
+    from interaction_estimator.estimates import COLUMN_NAMES, _INTEGER_COLUMNS, write_csv
+    rng = np.random.default_rng(11)
+    n = 5000
+    cols: dict[str, np.ndarray] = {}
+    for i, name in enumerate(COLUMN_NAMES):
+        if name == "state":
+            cols[name] = np.array(["free_motion"] * n, dtype=object)
+        elif name in _INTEGER_COLUMNS:
+            cols[name] = rng.integers(0, 2, n).astype(float)
+            cols[name][rng.integers(n)] = np.nan   # not reported: an empty field
+        elif i % 3:   # long runs of a few values, with 0.0 next to -0.0
+            runs = rng.choice([0.0, -0.0, 1.5, np.nan, np.inf, -np.inf, 1 / 3], 40)
+            cols[name] = np.repeat(runs, n // 40 + 1)[:n]
+        else:
+            cols[name] = rng.normal(size=n) * 10.0 ** rng.integers(-8, 8, n)
+    write_csv(tmp_path / "e.csv", cols, chunk=1234)
+    lines = (tmp_path / "e.csv").read_text().splitlines()
+    assert lines[0] == ",".join(COLUMN_NAMES) and len(lines) == n + 1
+    for k in (0, 1, 617, 1233, 1234, 2500, n - 1):
+        fields = lines[k + 1].split(",")
+        for name, text in zip(COLUMN_NAMES, fields):
+            v = cols[name][k]
+            if name == "state":
+                assert text == v
+            elif name in _INTEGER_COLUMNS:
+                assert text == ("" if v != v else str(int(v))), (name, k)
+            else:
+                assert text == "%.17g" % v, (name, k, text)
+                back = float(text)
+                assert (back != back and v != v) or (back == v and math.copysign(1, back)
+                                                     == math.copysign(1, v)), (name, k)
