@@ -181,7 +181,8 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("contact.noise_floor", 0.05, "N·m",
        "Smallest residual noise level assumed per joint.", 1e-6, 1e3),
     _f("contact.noise_time_constant", 2.0, "s",
-       "Time constant over which the residual's free-motion noise level is learned.",
+       "Time constant over which the residual's free-motion noise level is learned (from the"
+       " mean square of each 10 ms of quiet samples).",
        1e-3, 3600.0),
     # --- wrench ----------------------------------------------------------------------------
     _s("wrench.mode", "force",
