@@ -261,6 +261,12 @@ def main(argv: list[str] | None = None) -> int:
               f"{r['load']:5.2f}")
     print("CPU %: CPU time of the subject's process per wall second (100 = one core); load: the"
           " machine's 1-minute load average at the end of the window (other processes count).")
+    fl, es = results.get("floor", {}), results.get("estimator", {})
+    if "p50" in fl and "p50" in es:
+        print(f"estimator vs floor: answered {es['answered'] * 100:.2f} % (target >= 99.9 %), "
+              f"p50 +{es['p50'] - fl['p50']:.2f} ms (target <= 0.3 ms), p99 "
+              f"{es['p99'] / fl['p99']:.2f}x (target <= 1.5x), CPU {es['cpu']:.1f} % of a core "
+              "(target <= 50 %)")
     if "processing" in results.get("estimator", {}):
         print(f"estimator's own processing time per message (status latency[s], running mean): "
               f"{results['estimator']['processing']:.3f} ms")
