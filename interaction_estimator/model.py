@@ -73,11 +73,13 @@ class JointMap:
         self._circles = tuple(zip(model._circle_q.tolist(), model._circle_v.tolist()))
 
     def apply(self, sample: Sample) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Return (q (nq,), v (nv,), effort (nv,)) in model order (q always a new array)."""
+        """Return (q (nq,), v (nv,), effort (nv,)) in model order: new, writeable, contiguous
+        float arrays (the compiled step is compiled for exactly that kind of array; a read-only
+        view of a message buffer would make it compile again)."""
         if self._identity:  # names already in model order: no reordering
-            angle, v, e = sample.position, sample.velocity, sample.effort
-            v = np.asarray(v, dtype=float)
-            e = np.asarray(e, dtype=float)
+            angle = sample.position
+            v = np.array(sample.velocity, dtype=float)
+            e = np.array(sample.effort, dtype=float)
         else:
             src = self.source
             angle = sample.position.take(src)

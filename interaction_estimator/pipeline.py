@@ -6,6 +6,12 @@ ContactMonitor -> WrenchMap -> Direction and AlongKinematics -> EnvironmentFilte
 The ROS node and the replay command both feed :class:`Sample` records into :meth:`Pipeline.process`
 and turn the returned :class:`Estimate` into messages or file rows; for the same samples and
 settings they get the same numbers. Memory is bounded: no history grows with run length.
+
+Per sample, :meth:`Pipeline.process` validates the sample, maps it onto the model's joints, makes
+the Pinocchio calls, and then runs every stage's arithmetic in one compiled call
+(:func:`~interaction_estimator.pipeline_step.pipeline_step`) on the stages' state, which lives in
+the Pipeline's arrays (the stage objects hold views into them, so their methods see the same
+numbers); the output row becomes the :class:`Estimate` and the health verdict.
 """
 from __future__ import annotations
 
@@ -14,18 +20,26 @@ from collections import deque
 from dataclasses import dataclass
 
 import numpy as np
+import pinocchio as pin
 
-from .environment import EnvironmentFilter
+from . import pipeline_step as ps
+from .environment import (EF_T_PREV, EO_F, EO_H, EO_T, FILTER_CONFIG_SIZE,
+                          FILTER_OUTPUT_SIZE, FILTER_STATE_SIZE, EnvironmentFilter,
+                          change_text)
 from .health import ALL_CONVERGED, Health
 from .model import RobotModel
-from .observer import (BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
+from .observer import (BIAS_SIZE, CONTACT_ROWS, CONTACT_SIZE, OBSERVER_ROWS, OBSERVER_SIZE,
+                       BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
                        MomentumObserver)
 from .samples import RejectCounts, Sample, SampleRejected, SampleValidator
 from .settings import Settings, per_joint
-from .wrench import AlongKinematics, Direction, WrenchMap
+from .wrench import DIRECTION_SIZE, KINEMATICS_SIZE, AlongKinematics, Direction, WrenchMap
 
 _LEARN_INTERVAL = 0.01  # s: longest interval of quiet samples between noise-level updates
 _KINEMATICS_WARMUP = 10  # samples used to learn the nominal sample interval before building AlongKinematics
+_FLAG_ARRAYS = tuple(np.array([bool(bits >> i & 1) for i in range(4)]) for bits in range(16))
+for _a in _FLAG_ARRAYS:   # shared by the Estimates that carry them: read-only
+    _a.setflags(write=False)
 
 
 @dataclass(slots=True)
@@ -75,30 +89,6 @@ class Estimate:
     stamp_from_receive: bool
 
 
-class _QuietPower:
-    """Sum of the squared residual (nv,) N·m^2 over the quiet (free-motion) samples of one
-    noise-learning interval: the noise level is learned from its mean, which is what the
-    per-sample exponential average would have seen, once per interval."""
-
-    __slots__ = ("dt", "count", "square")
-
-    def __init__(self, nv: int):
-        self.square = np.zeros(nv)
-        self.clear()
-
-    def clear(self) -> None:
-        self.dt = 0.0
-        self.count = 0
-        self.square[:] = 0.0
-
-    def add(self, dt: float, residual: np.ndarray) -> float:
-        """One quiet sample, dt s after the previous one; returns the interval so far, s."""
-        self.square += residual * residual
-        self.count += 1
-        self.dt += dt
-        return self.dt
-
-
 class Pipeline:
     """The estimator. ``Pipeline(settings, urdf_text)``; then :meth:`process` per sample.
 
@@ -111,21 +101,38 @@ class Pipeline:
         self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"])
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
+        nv = self.model.nv
+        # the stages' state (see pipeline_step): the stage objects hold views into these
+        self._S = np.zeros(ps.S_SIZE)
+        self._JS = np.zeros((ps.JS_ROWS, nv))
+        self._P3 = np.zeros((nv, 3, 3))
+        self._out = np.zeros(ps.OUT_FIXED + 3 * nv)
+        self._no_kinematics = np.zeros((6, 2))
+        self._last_mass: np.ndarray | None = None
         self._configure(settings)
-        self.filter = EnvironmentFilter(settings)
+        S = self._S
+        self.filter = EnvironmentFilter(
+            settings, st=S[ps.S_FILTER:ps.S_FILTER + FILTER_STATE_SIZE],
+            cf=S[ps.S_FILTER_CONFIG:ps.S_FILTER_CONFIG + FILTER_CONFIG_SIZE],
+            fo=S[ps.S_FILTER_OUTPUT:ps.S_FILTER_OUTPUT + FILTER_OUTPUT_SIZE])
         self.reset()
 
     # --- configuration ---------------------------------------------------------------------
     def _configure(self, s: Settings) -> None:
         joints = self.model.joint_names
+        nv = self.model.nv
+        S, JS = self._S, self._JS
         gain = np.array(per_joint(s, "observer.gain", joints))
         kalman = s["observer.form"] == "kalman"
         old_obs = getattr(self, "observer", None)
         if old_obs is None or isinstance(old_obs, KalmanMomentumObserver) != kalman:
+            storage = dict(sc=S[ps.S_OBSERVER:ps.S_OBSERVER + OBSERVER_SIZE],
+                           rows=JS[ps.J_OBSERVER:ps.J_OBSERVER + OBSERVER_ROWS], cov=self._P3)
             self.observer = (KalmanMomentumObserver(gain, s["observer.velocity_noise"],
                                                     s["observer.effort_noise"],
-                                                    s["observer.max_gap"])
-                             if kalman else MomentumObserver(gain, s["observer.max_gap"]))
+                                                    s["observer.max_gap"], **storage)
+                             if kalman else MomentumObserver(gain, s["observer.max_gap"],
+                                                             **storage))
         else:
             self.observer.gain, self.observer.max_gap = gain, s["observer.max_gap"]
             if kalman:
@@ -135,43 +142,53 @@ class Pipeline:
                                       per_joint(s, "friction.coulomb", joints),
                                       s["friction.smoothing_velocity"],
                                       s["effort_side"] == "motor")
-        bias = BiasEstimator(per_joint(s, "bias.initial", joints), s["bias.time_constant"],
-                             s["bias.max_rate"], s["bias.limit"], s["bias.learn"])
+        JS[ps.J_VISCOUS], JS[ps.J_COULOMB] = self.friction.viscous, self.friction.coulomb
+        S[ps.PS_FRICTION_ON] = self.friction.enabled
+        S[ps.PS_FRICTION_EPS] = self.friction.eps
         old_bias = getattr(self, "bias", None)
-        if old_bias is not None:  # keep what was learned
-            bias.value, bias.last_learned = old_bias.value, old_bias.last_learned
-        self.bias = bias
-        contact = ContactMonitor(self.model.nv, s["contact.enter_level"], s["contact.exit_level"],
-                                 s["contact.hold_time"], s["contact.noise_floor"],
-                                 s["contact.noise_time_constant"], s["contact.release_time"])
+        kept = None if old_bias is None else (old_bias.value.copy(), old_bias.last_learned)
+        self.bias = BiasEstimator(per_joint(s, "bias.initial", joints), s["bias.time_constant"],
+                                  s["bias.max_rate"], s["bias.limit"], s["bias.learn"],
+                                  sc=S[ps.S_BIAS:ps.S_BIAS + BIAS_SIZE], value=JS[ps.J_BIAS])
+        if kept is not None:  # keep what was learned
+            self.bias.value[:], self.bias.last_learned = kept
         old_contact = getattr(self, "contact", None)
-        if old_contact is not None:
-            contact.set_noise_var(old_contact.noise_var)
-            contact.in_contact = old_contact.in_contact
-        self.contact = contact
+        kept = None if old_contact is None else (old_contact.noise_var, old_contact.in_contact)
+        self.contact = ContactMonitor(
+            nv, s["contact.enter_level"], s["contact.exit_level"], s["contact.hold_time"],
+            s["contact.noise_floor"], s["contact.noise_time_constant"], s["contact.release_time"],
+            sc=S[ps.S_CONTACT:ps.S_CONTACT + CONTACT_SIZE],
+            rows=JS[ps.J_CONTACT:ps.J_CONTACT + CONTACT_ROWS])
+        if kept is not None:
+            self.contact.set_noise_var(kept[0])
+            self.contact.in_contact = kept[1]
         self.wrench_map = WrenchMap(s["wrench.mode"] == "wrench", s["wrench.damping"])
+        S[ps.PS_FULL_WRENCH] = self.wrench_map.full_wrench
+        S[ps.PS_DAMPING2] = self.wrench_map.damping2
         old_dir = getattr(self, "direction", None)
+        kept = None if old_dir is None else (old_dir.mode, old_dir.u.copy())
         self.direction = Direction(s["direction.mode"], s["direction.vector"],
                                    s["direction.window"], s["direction.hysteresis"],
-                                   s["direction.min_travel"])
-        if old_dir is not None and old_dir.mode == self.direction.mode == "estimated":
-            self.direction.u = old_dir.u
+                                   s["direction.min_travel"],
+                                   sc=S[ps.S_DIRECTION:ps.S_DIRECTION + DIRECTION_SIZE])
+        if kept is not None and kept[0] == self.direction.mode == "estimated":
+            self.direction.u = kept[1]
         # lag of the force behind tau_ext that the regressor must match: first order 1/K_O;
         # the Kalman form has none for slowly varying forces (None: no matching filter)
         self._gain_mean = None if kalman else float(np.mean(gain))
-        # values read on every sample, looked up once here
-        self._noise_tc = s["contact.noise_time_constant"]
-        # the noise level is learned from the mean square over intervals of quiet samples (see
-        # _QuietPower): its time constant is seconds, so one update per 10 ms learns the same as
-        # one per sample, and the wrench's joint weights change only then
-        self._learn_interval = min(_LEARN_INTERVAL, self._noise_tc / 20.0)
-        self._forget_after = s["contact.forget_after"]
+        # the noise level is learned from the mean square over intervals of quiet samples: its
+        # time constant is seconds, so one update per 10 ms learns the same as one per sample,
+        # and the wrench's joint weights change only then
+        noise_tc = s["contact.noise_time_constant"]
+        S[ps.PS_NOISE_TC] = noise_tc
+        S[ps.PS_LEARN_INTERVAL] = min(_LEARN_INTERVAL, noise_tc / 20.0)
+        S[ps.PS_FORGET_AFTER] = s["contact.forget_after"]
+        S[ps.PS_STARTUP_SETTING] = s["bias.startup"]
+        S[ps.PS_PRIOR_MEAN:ps.PS_PRIOR_MEAN + 4] = s["filter.initial_mean"]
+        S[ps.PS_PRIOR_STD:ps.PS_PRIOR_STD + 4] = s["filter.initial_std"]
+        S[ps.PS_PRIOR_MEASUREMENT_STD] = s["filter.measurement_std"]
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"])
-        self._prior = (np.array(s["filter.initial_mean"]), np.array(s["filter.initial_std"]),
-                       s["filter.measurement_std"])
-        self._no_flags = np.zeros(4, bool)   # shared by Estimates: read-only
-        self._no_flags.setflags(write=False)
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -185,8 +202,7 @@ class Pipeline:
         self.filter.update_settings(settings)
         self.settings = settings
         if changed_kin:
-            self.kinematics = None
-            self._intervals.clear()
+            self._drop_kinematics()
 
     # --- commands --------------------------------------------------------------------------
     def reset(self) -> None:
@@ -198,19 +214,29 @@ class Pipeline:
         self.contact.reset()
         self.direction.reset()
         self.filter.reset("reset")
-        self.kinematics: AlongKinematics | None = None
-        self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
-        self._t_prev: float | None = None
-        self._t_start: float | None = None
-        self._point_prev: list[float] | None = None   # contact point, m (world)
-        self._contact_end: float = -math.inf   # time the last contact ended
-        self._ever_contact = False
-        self._quiet_position = 0.0
-        self._dt_avg = 0.0
-        self._quiet = _QuietPower(self.model.nv)
+        self._drop_kinematics()
+        S = self._S
+        S[ps.PS_T_PREV] = S[ps.PS_T_START] = math.nan
+        S[ps.PS_STARTUP] = S[ps.PS_STARTUP_SETTING]
+        S[ps.PS_CONTACT_END] = -math.inf   # time the last contact ended
+        S[ps.PS_EVER_CONTACT] = S[ps.PS_QUIET_POSITION] = S[ps.PS_DT_AVG] = 0.0
+        S[ps.PS_QUIET_DT] = S[ps.PS_QUIET_COUNT] = S[ps.PS_POINT_VALID] = 0.0
+        self._JS[ps.J_QUIET] = 0.0
         self._reject_times: deque[float] = deque(maxlen=1000)
         self._rejected_before = self.rejects.total
         self._last_reject_total = self.rejects.total
+
+    def _drop_kinematics(self) -> None:
+        """No AlongKinematics until the nominal interval is learned again."""
+        self.kinematics: AlongKinematics | None = None
+        self._kinematics_buffer = self._no_kinematics
+        self._S[ps.S_KINEMATICS:ps.S_KINEMATICS + KINEMATICS_SIZE] = 0.0
+        self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
+
+    @property
+    def _t_prev(self) -> float | None:
+        t = float(self._S[ps.PS_T_PREV])
+        return None if math.isnan(t) else t
 
     def calibrate_bias(self) -> tuple[bool, str]:
         """Start a bias-learning phase of ``bias.startup`` s now (the robot must move freely).
@@ -223,9 +249,10 @@ class Pipeline:
                            "call again")
         if self._t_prev is None:
             return False, "refused: no joint states received yet"
-        self._t_start = self._t_prev
-        self._startup = max(self.settings["bias.startup"], 0.5)
-        return True, f"learning torque bias for {self._startup:.1f} s: keep the robot clear of contact"
+        startup = max(self.settings["bias.startup"], 0.5)
+        self._S[ps.PS_T_START] = self._t_prev
+        self._S[ps.PS_STARTUP] = startup
+        return True, f"learning torque bias for {startup:.1f} s: keep the robot clear of contact"
 
     # --- one sample ---------------------------------------------------------------------
     def process(self, sample: Sample) -> Estimate | None:
@@ -236,170 +263,114 @@ class Pipeline:
         except SampleRejected as exc:
             self._reject(sample.time, exc)
             return None
-        t = sample.time
-        if self._t_start is None:
-            self._t_start = t
-            self._startup = self.settings["bias.startup"]
-        t_prev = self._t_prev
-        dt = 0.0 if t_prev is None else t - t_prev
+        t = float(sample.time)
+        if self.kinematics is None:
+            self._warm_up(t)
+        model = self.model
+        m, d, fid = model.model, model.data, model.frame_id
+        pin.computeJointJacobians(m, d, q)
+        pose = pin.updateFramePlacement(m, d, fid).homogeneous   # (4, 4)
+        mass = pin.crba(m, d, q)
+        if model._symmetrize:
+            mass = np.triu(mass) + np.triu(mass, 1).T
+        coriolis = pin.computeCoriolisMatrix(m, d, q, v)
+        gravity = pin.computeGeneralizedGravity(m, d, q)
+        jacobian = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
+        self._last_mass = mass
+        out = self._out
+        code = ps.pipeline_step(self._S, self._JS, self._P3, self._kinematics_buffer,
+                             self.filter.windows_array, out, t, v, effort, mass, coriolis,
+                             gravity, jacobian, pose)
+        if code != ps.STEP_DONE:
+            return self._step_refused(code, t)
+        o = out.copy()
+        (f0, f1, f2, _, _, _, _, _, _, force_along, position_along, velocity_along,
+         acceleration_along, _, _, _, _, _, _, _, _, nis, nis_avg, nis_lo, nis_hi, meas_std,
+         contact_level, condition, rate, lag, bias_age, phase, event, pattern, samples,
+         startup_remaining, since_contact_end, change, change_g,
+         restarts) = o[:ps.O_RESTARTS + 1].tolist()
+        reject_times = self._reject_times
+        while reject_times and reject_times[0] < t - 1.0:
+            reject_times.popleft()
+        phase_word = ps.PHASES[int(phase)]
+        event_word = (ps.EVENTS[int(event)] if event != ps.EV_CHANGE else
+                      "change: " + change_text(int(change), change_g,
+                                               self.filter._cfg.change_threshold))
+        stamp_from_receive = sample.stamp_from_receive
+        pattern = int(pattern)
+        level, state, message = self._health.judge(
+            phase_word, startup_remaining, since_contact_end, pattern, nis_avg, nis_lo, nis_hi,
+            int(samples), condition, len(reject_times), rate, stamp_from_receive)
+        nv = model.nv
+        return Estimate(
+            time=t, force=o[0:3], torque=o[3:6] if self.wrench_map.full_wrench
+            else self.wrench_map.no_torque, direction=o[6:9], force_along=force_along,
+            position_along=position_along, velocity_along=velocity_along,
+            acceleration_along=acceleration_along, parameters=o[13:17], parameter_std=o[17:21],
+            excited=_FLAG_ARRAYS[pattern & 15], parameter_converged=_FLAG_ARRAYS[pattern >> 4],
+            converged=pattern & ALL_CONVERGED == ALL_CONVERGED, in_contact=phase == 2.0,
+            phase=phase_word, level=level, state=state, message=message, nis=nis,
+            nis_average=nis_avg, nis_bounds=(nis_lo, nis_hi), measurement_std=meas_std,
+            external_torque=o[ps.OUT_FIXED:ps.OUT_FIXED + nv],
+            bias=o[ps.OUT_FIXED + nv:ps.OUT_FIXED + 2 * nv], bias_age=bias_age,
+            contact_level=contact_level, jacobian_condition=condition,
+            observer_restarts=int(restarts), rejected=self.rejects.total, rate_hz=rate,
+            kinematics_lag=lag, event=event_word, stamp_from_receive=stamp_from_receive)
 
-        mass, coriolis_t_v, gravity, jacobian, position, rotation = self.model.dynamics(q, v)
-        friction = self.friction
-        beta = (effort - friction.torque(v) if friction.enabled else effort) + coriolis_t_v
-        beta -= gravity
-        raw, restarted = self.observer.step(t, mass.dot(v), beta, mass)
-        bias = self.bias
-        residual = raw + bias.value
+    # --- what the last sample did inside (for the tuning command) ---------------------------
+    def filter_input(self) -> tuple[float, tuple[float, ...], float, np.ndarray] | None:
+        """The environment filter's update at the last processed sample, or None when the
+        filter was not updated then: (t s, h (4,) [x'' m/s^2, x' m/s, x m, 1], f N, excited
+        (4,) bool)."""
+        out = self._out
+        if out[ps.O_UPDATED] != 1.0:
+            return None
+        fo = self.filter._fo
+        return (float(fo[EO_T]), tuple(fo[EO_H:EO_H + 4].tolist()), float(fo[EO_F]),
+                _FLAG_ARRAYS[int(out[ps.O_PATTERN]) & 15])
 
-        contact = self.contact
-        elapsed = t - self._t_start
-        event = "observer_restarted" if restarted else ""
-        if elapsed < self._startup:
-            phase = "learning_bias"
-            # the noise only in the second half (the bias has settled), 4x faster than when free
-            bias.update(t, dt, raw)
-            if elapsed > 0.5 * self._startup:
-                if self._quiet.add(dt, raw + bias.value) >= self._learn_interval:
-                    self._learn_noise(4.0 * self._noise_tc / max(self._startup, 1e-3))
-            contact_level = 0.0
-        else:
-            in_contact, contact_level, contact_event = contact.step(t, residual)
-            if contact_event:
-                event = contact_event
-            if in_contact:
-                phase = "contact"
-            else:
-                phase = "free"
-                # learn only from quiet free motion: a residual above the exit level may be a
-                # contact building up, and must not be learned as bias or noise
-                # nor right after a contact ended (it may resume: a held object's force
-                # passing through zero)
-                if (not contact.pending and contact_level < contact.exit_level
-                        and t - self._contact_end > self._forget_after):
-                    bias.update(t, dt, raw)
-                    residual = raw + bias.value
-                    if self._quiet.add(dt, residual) >= self._learn_interval:
-                        self._learn_noise(1.0)
-                elif self._quiet.count:
-                    # quiet no more (a contact may be building up): learn the samples gathered
-                    # so far at once, as a per-sample average would have, before judging more
-                    self._learn_noise(1.0)
+    def last_regained(self) -> bool:
+        """True when the last processed sample began a contact after one that had ended (the
+        filter's covariance was inflated, before its update at that sample)."""
+        return bool(self._out[ps.O_REGAINED])
 
-        force, torque, condition = self.wrench_map.solve(jacobian, residual, contact.weights)
-        f0, f1, f2 = force.tolist()
-        # NaN/inf anywhere (an overflowing sum of huge finite values counts as non-finite too)
-        if not math.isfinite(f0 + f1 + f2 + (torque.dot(torque) if torque is not
-                                                self.wrench_map.no_torque else 0.0)):
+    def last_raw_residual(self) -> np.ndarray:
+        """(nv,) N·m: the observer's output at the last processed sample, before the bias."""
+        nv = self.model.nv
+        return self._out[ps.OUT_FIXED + 2 * nv:ps.OUT_FIXED + 3 * nv].copy()
+
+    def last_mass_matrix(self) -> np.ndarray | None:
+        """(nv, nv): M(q) at the last processed sample (None before the first)."""
+        return self._last_mass
+
+    # --- helpers ---------------------------------------------------------------------------
+    def _step_refused(self, code: int, t: float) -> None:
+        if code == ps.STEP_NON_FINITE_WRENCH:
             self.observer.reset()
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))
             return None
-
-        point_velocity = jacobian[:3].dot(v)
-        u = self.direction.update(dt, rotation, point_velocity)
-        # the three projections on u in plain floats (three-element numpy products cost more)
-        u0, u1, u2 = u.tolist()
-        force_along = u0 * f0 + u1 * f1 + u2 * f2
-        p0, p1, p2 = point = position.tolist()
-        point_prev = self._point_prev
-        dx = 0.0 if point_prev is None else (u0 * (p0 - point_prev[0]) + u1 * (p1 - point_prev[1])
-                                             + u2 * (p2 - point_prev[2]))
-        self._point_prev = point
-        v0, v1, v2 = point_velocity.tolist()
-        velocity_along = u0 * v0 + u1 * v1 + u2 * v2
-
-        kin = self.kinematics if self.kinematics is not None else self._kinematics(dt)
-        step = self.filter.last
-        if kin is not None:
-            if event == "contact_begin":
-                if not self._ever_contact or t - self._contact_end > self._forget_after:
-                    # a new contact: x from where the residual last was quiet (the contact
-                    # began there, before the monitor could tell); estimates uncertain again
-                    kin.start_contact(self._quiet_position)
-                    if self._ever_contact:
-                        self.filter.inflate("contact regained")
-                else:
-                    event = "contact_resumed"
-                self._ever_contact = True
-            kin.push(t, dx, velocity_along, force_along)
-            if phase != "contact":
-                if contact_level < contact.exit_level:
-                    self._quiet_position = kin.position
-            else:
-                row = kin.aligned_row(dt)
-                if row is not None:
-                    try:
-                        step = self.filter.update(row[2], row[0], row[1])
-                    except SampleRejected as exc:
-                        self._reject(t, exc)
-                        return None
-                    if step.change:
-                        event = "change: " + step.change
-            position_along, acceleration_along, lag = kin.position, kin.acceleration(), kin.lag
-        else:
-            position_along = acceleration_along = lag = 0.0
-        if event == "contact_end":
-            self._contact_end = t
-
-        self._t_prev = t
-        if dt > 0:
-            self._dt_avg = dt if self._dt_avg == 0 else self._dt_avg + 0.01 * (dt - self._dt_avg)
-        rate = 1.0 / self._dt_avg if self._dt_avg > 0 else 0.0
-        reject_times = self._reject_times
-        while reject_times and reject_times[0] < t - 1.0:
-            reject_times.popleft()
-
-        if step is None:
-            theta, std, meas_std = self._prior
-            excited = converged = self._no_flags
-            nis = nis_avg = 0.0
-            bounds, samples, pattern = (0.0, math.inf), 0, 0
-        else:
-            theta, std = step.theta, step.std
-            excited, converged = step.excited, step.converged
-            nis, nis_avg, bounds = step.nis, step.nis_average, step.nis_bounds
-            meas_std, samples, pattern = math.sqrt(step.measurement_var), step.samples, step.pattern
-        if phase != "contact":
-            converged = self._no_flags
-            pattern &= 0b1111
-        stamp_from_receive = sample.stamp_from_receive
-        level, state, message = self._health.judge(
-            phase, self._startup - elapsed if elapsed < self._startup else 0.0,
-            t - self._contact_end if self._ever_contact else math.inf, pattern, nis_avg,
-            bounds[0], bounds[1], samples, condition, len(reject_times), rate,
-            stamp_from_receive)
-        return Estimate(
-            time=t, force=force, torque=torque, direction=u.copy(), force_along=force_along,
-            position_along=position_along, velocity_along=velocity_along,
-            acceleration_along=acceleration_along, parameters=theta, parameter_std=std,
-            excited=excited, parameter_converged=converged,
-            converged=pattern & ALL_CONVERGED == ALL_CONVERGED, in_contact=phase == "contact",
-            phase=phase, level=level, state=state, message=message, nis=nis,
-            nis_average=nis_avg, nis_bounds=bounds, measurement_std=meas_std,
-            external_torque=residual, bias=bias.value.copy(), bias_age=bias.age(t),
-            contact_level=contact_level, jacobian_condition=condition,
-            observer_restarts=self.observer.restarts, rejected=self.rejects.total, rate_hz=rate,
-            kinematics_lag=lag, event=event, stamp_from_receive=stamp_from_receive)
-
-    # --- helpers ---------------------------------------------------------------------------
-    def _learn_noise(self, speed: float) -> None:
-        """The residual's noise level from the quiet samples gathered since the last call
-        (learned ``speed`` times faster than their duration says)."""
-        q = self._quiet
-        self.contact.learn_power(q.dt * speed, q.square / q.count)
-        q.clear()
+        h0, h1, h2, h3, f, tc = self._out[ps.O_ROW:ps.O_ROW + 6].tolist()
+        try:
+            self.filter._refuse(int(self._out[ps.O_UPDATED]), tc, (h0, h1, h2, h3), f)
+        except SampleRejected as exc:
+            self._reject(t, exc)
+        return None
 
     def _reject(self, t: float, exc: SampleRejected) -> None:
         self.rejects.add(exc)
         self._reject_times.append(t)
 
-    def _kinematics(self, dt: float) -> AlongKinematics | None:
-        """Build AlongKinematics once the nominal interval is known (None until then)."""
+    def _warm_up(self, t: float) -> None:
+        """Learn the nominal interval; build AlongKinematics once it is known."""
+        t_prev = self._t_prev
+        dt = 0.0 if t_prev is None else t - t_prev
         if dt > 0:
             self._intervals.append(dt)
         if len(self._intervals) < _KINEMATICS_WARMUP:
-            return None
+            return
         s = self.settings
-        self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
-                                          float(np.median(self._intervals)), self._gain_mean)
-        return self.kinematics
+        self.kinematics = AlongKinematics(
+            s["kinematics.window"], s["kinematics.polyorder"], float(np.median(self._intervals)),
+            self._gain_mean, sc=self._S[ps.S_KINEMATICS:ps.S_KINEMATICS + KINEMATICS_SIZE])
+        self._kinematics_buffer = self.kinematics.buffer

@@ -59,7 +59,6 @@ temporary file beside the target and renamed: on any error nothing is written.
 from __future__ import annotations
 
 import argparse
-import copy
 import datetime as _dt
 import json
 import math
@@ -74,6 +73,7 @@ import numpy as np
 
 from .environment import PARAMETER_NAMES, PARAMETER_UNITS, EnvironmentFilter
 from .model import ModelError
+from .observer import KalmanMomentumObserver, MomentumObserver
 from .pipeline import Pipeline
 from .samples import Sample
 from .settings import (NODE_NAME, SPEC_BY_NAME, SPECS, Settings, SettingsError, nest,
@@ -185,12 +185,12 @@ def read_bag(path: Path, topics: Sequence[str] = ()) -> Recording:
 
 
 # ============================================================================================
-# taps on the Pipeline's own stages (they delegate; nothing of the Pipeline is changed)
+# taps on the Pipeline's own stages (they read what it exposes; nothing of it is changed)
 
 
 class _ObserverTap:
-    """Wraps the Pipeline's observer: records its output and runs a tiled copy of it on the
-    regressor signals and two unit-noise probes.
+    """Runs a tiled copy of the Pipeline's observer on the regressor signals and two unit-noise
+    probes, stepped after each sample the Pipeline used, with that sample's stamp and M(q).
 
     The copy holds five blocks of nv channels: the signals 1, v, tanh(v/eps) (columns of the
     bias/friction regression), unit velocity noise through M (momentum probe) and unit effort
@@ -202,21 +202,23 @@ class _ObserverTap:
     BLOCKS = 5
 
     def __init__(self, inner: Any, nv: int, eps: float, seed: int = 7):
-        self.inner = inner
         self.nv, self.eps = nv, eps
-        self.copy = copy.deepcopy(inner)
-        self.copy.gain = np.tile(np.asarray(inner.gain, float), self.BLOCKS)
-        self.copy.reset()
+        gain = np.tile(np.asarray(inner.gain, float), self.BLOCKS)
+        if isinstance(inner, KalmanMomentumObserver):
+            self.copy: Any = KalmanMomentumObserver(gain, inner.velocity_noise,
+                                                    inner.effort_noise, inner.max_gap,
+                                                    inner.settle_steps)
+        else:
+            self.copy = MomentumObserver(gain, inner.max_gap)
         self.rng = np.random.default_rng(seed)
         self.velocity = np.zeros(nv)
-        self.stepped = False
         self.raw = np.zeros(nv)
         self.columns = np.zeros((self.BLOCKS, nv))
         self._eye = np.eye(self.BLOCKS)
 
-    def step(self, t: float, momentum: np.ndarray, beta: np.ndarray,
-             mass_matrix: np.ndarray) -> tuple[np.ndarray, bool]:
-        raw, restarted = self.inner.step(t, momentum, beta, mass_matrix)
+    def step(self, t: float, raw: np.ndarray, mass_matrix: np.ndarray) -> None:
+        """After a sample the Pipeline used: raw (nv,) N·m its observer's output without bias,
+        mass_matrix (nv, nv) M(q); :attr:`velocity` (nv,) rad/s is that sample's."""
         nv, v = self.nv, self.velocity
         noise_v = self.rng.standard_normal(nv)
         noise_tau = self.rng.standard_normal(nv)
@@ -225,38 +227,11 @@ class _ObserverTap:
         big_beta = np.concatenate([np.ones(nv), v, np.tanh(v / self.eps), np.zeros(nv),
                                    noise_tau])
         out, _ = self.copy.step(t, big_p, big_beta, np.kron(self._eye, mass_matrix))
-        self.raw = np.array(raw, float)
+        self.raw = raw
         self.columns = np.asarray(out, float).reshape(self.BLOCKS, nv)
-        self.stepped = True
-        return raw, restarted
 
     def reset(self) -> None:
-        self.inner.reset()
         self.copy.reset()
-
-    def __getattr__(self, name: str) -> Any:
-        return getattr(self.inner, name)
-
-
-class _FilterTap:
-    """Wraps the Pipeline's EnvironmentFilter and records its inputs: each update (t s, h (4,),
-    f N) and each covariance inflation, in order, so the filter can be re-run with other noise."""
-
-    def __init__(self, inner: EnvironmentFilter):
-        self.inner = inner
-        self.tape = FilterTape()
-
-    def update(self, t: float, h: np.ndarray, f: float):
-        step = self.inner.update(t, h, f)
-        self.tape.add_update(t, h, f, step.excited)
-        return step
-
-    def inflate(self, reason: str) -> None:
-        self.inner.inflate(reason)
-        self.tape.add_inflation(reason)
-
-    def __getattr__(self, name: str) -> Any:
-        return getattr(self.inner, name)
 
 
 @dataclass
@@ -326,39 +301,47 @@ class Trace:
 
 
 def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) -> Trace:
-    """Feed a recording through a fresh Pipeline (with the filter tap; with the observer tap
-    too when ``taps``). Raises TuneError when no sample fits the URDF."""
+    """Feed a recording through a fresh Pipeline, recording the environment filter's inputs
+    (and, when ``taps``, the observer's responses). Raises TuneError when no sample fits the
+    URDF."""
     pipe = Pipeline(settings, urdf)
     nv = pipe.model.nv
-    obs_tap = None
-    if taps:
-        obs_tap = _ObserverTap(pipe.observer, nv, settings["friction.smoothing_velocity"])
-        pipe.observer = obs_tap
-    filt_tap = _FilterTap(pipe.filter)
-    pipe.filter = filt_tap
+    obs_tap = (_ObserverTap(pipe.observer, nv, settings["friction.smoothing_velocity"])
+               if taps else None)
+    tape = FilterTape()
     n = len(rec.samples)
     cols = _TraceColumns(n, nv, taps)
     restarts = pipe.observer.restarts
     for sample in rec.samples:
         effort = None
         if obs_tap is not None:
-            obs_tap.stepped = False
             try:
                 _, obs_tap.velocity, effort = pipe.model.joint_map(sample.names).apply(sample)
             except Exception:  # the Pipeline rejects and counts it below
                 effort = None
+        rejected = pipe.rejects.total
         est = pipe.process(sample)
         if est is None:
+            if (obs_tap is not None and pipe.rejects.total > rejected
+                    and pipe.rejects.last_reason == "non_finite_output"):
+                obs_tap.reset()   # the Pipeline restarted its observer
             continue
+        if pipe.last_regained():
+            tape.add_inflation("contact regained")
+        update = pipe.filter_input()
+        if update is not None:
+            tape.add_update(*update)
         restarted = pipe.observer.restarts != restarts
         restarts = pipe.observer.restarts
+        if obs_tap is not None:
+            obs_tap.step(est.time, pipe.last_raw_residual(), pipe.last_mass_matrix())
         cols.add(est, restarted, obs_tap, effort)
     if cols.count == 0:
         raise TuneError(
             f"{rec.name}: none of its {n} joint states could be used with this URDF "
             f"({pipe.rejects.last_message}); expected joint states of the robot the URDF "
             f"describes (joints {list(pipe.model.joint_names)})")
-    return cols.trace(filt_tap.tape, pipe.rejects.total, pipe.rejects.last_message)
+    return cols.trace(tape, pipe.rejects.total, pipe.rejects.last_message)
 
 
 class _TraceColumns:
@@ -388,7 +371,7 @@ class _TraceColumns:
         k = self.count
         self.time[k] = est.time
         self.phase[k] = PHASES.index(est.phase)
-        self.restarted[k] = restarted or (tap is not None and not tap.stepped)
+        self.restarted[k] = restarted
         self.force[k] = est.force
         self.force_along[k] = est.force_along
         self.parameters[k] = est.parameters

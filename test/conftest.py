@@ -14,3 +14,12 @@ os.environ.pop("ROS_LOCALHOST_ONLY", None)  # deprecated variable; the range abo
 
 # test-support modules (mujoco_world, ...) import as top-level modules
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+
+def pytest_sessionstart(session):
+    """Compile the estimator's compiled functions (or load them from the cache) once, before any
+    test: a node or replay started by a test as a subprocess then loads them and never spends
+    its time budget compiling (``make setup`` has usually done it already)."""
+    from interaction_estimator.compiled import warm_up
+
+    warm_up()
