@@ -78,3 +78,33 @@ def test_weighted_map_is_generalized_least_squares():
     got = WrenchMap(full_wrench=False, damping=0.0).solve(jac, tau, w)
     ref = np.linalg.lstsq(jac[:3].T / sigma[:, None], tau / sigma, rcond=None)[0]
     np.testing.assert_allclose(got.force, -ref, atol=1e-10)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_jacobi_eigensolver_matches_numpy_eigh(seed):
+    # The wrench map's and the direction's symmetric eigensolver against numpy.linalg.eigh
+    # (LAPACK): eigenvalues, the reconstruction V diag(w) V^T = A, and, on positive definite
+    # matrices up to a condition number of 1e8, the smallest eigenvalue to high relative
+    # accuracy (Demmel and Veselic, SIAM J. Matrix Anal. Appl. 1992: Jacobi's method is
+    # relatively accurate on such matrices when they are well scaled).
+    from interaction_estimator.wrench import symmetric_eigen
+
+    rng = np.random.default_rng(seed)
+    for m in (3, 6):
+        Q, _ = np.linalg.qr(rng.normal(size=(m, m)))
+        w_true = np.logspace(0, -8 * rng.uniform(0.2, 1.0), m)
+        A = (Q * w_true) @ Q.T
+        A = 0.5 * (A + A.T)
+        w, V = np.empty(m), np.empty((m, m))
+        symmetric_eigen(A.copy(), w, V)
+        ref = np.linalg.eigh(A)[0]
+        np.testing.assert_allclose(w[-1], ref[-1], rtol=1e-12)
+        np.testing.assert_allclose(w, ref, rtol=1e-6, atol=1e-15 * ref[-1])
+        np.testing.assert_allclose((V * w) @ V.T, A, atol=1e-13 * ref[-1])
+        np.testing.assert_allclose(V.T @ V, np.eye(m), atol=1e-12)
+    # a symmetric indefinite matrix (the direction's moment matrix is only semi-definite)
+    B = rng.normal(size=(3, 3))
+    B = B + B.T
+    w, V = np.empty(3), np.empty((3, 3))
+    symmetric_eigen(B.copy(), w, V)
+    np.testing.assert_allclose(w, np.linalg.eigh(B)[0], atol=1e-12)

@@ -1,30 +1,32 @@
-"""Per-sample cost of the estimation stages for the 10-joint demo robot (prints, asserts nothing).
+"""Per-sample cost of the whole Pipeline for the 10-joint demo robot (prints, asserts nothing).
 
-Three figures from one run on the same samples:
-  floor      the Pinocchio calls alone (crba, Coriolis matrix, gravity, joint Jacobians, frame
-             placement and Jacobian), as RobotModel.dynamics makes them;
-  stage      model + momentum observer (Kalman form, the default) + wrench map
-             (issue target: <= 3x floor);
-  pipeline   the whole Pipeline.process, filter and health included (target: <= 4x floor).
-Then memory growth of the Pipeline over a long run (target: flat).
+Two figures from the same samples, measured in alternating batches (floor, pipeline, floor, ...)
+so that both see the same load on a shared machine:
+  floor      the Pinocchio calls the Pipeline needs (crba, Coriolis matrix, gravity, joint
+             Jacobians, frame placement and Jacobian) and the joint-name mapping;
+  pipeline   the whole Pipeline.process: validation, the same calls, the compiled step of every
+             stage, health verdict and Estimate (issue target: <= 4x floor).
+The ratio is the median over batch pairs of pipeline time / floor time (each pair ran back to
+back); the per-sample figures are the fastest batches. Then memory growth of the Pipeline over a
+long run (target: flat).
 Usage: python test/benchmarks/bench_pipeline.py [--samples N] [--memory-minutes M]
 """
 from __future__ import annotations
 
 import argparse
+import statistics
 import time
 import tracemalloc
 
 import numpy as np
 import pinocchio as pin
 
+from interaction_estimator.compiled import warm_up
 from interaction_estimator.model import RobotModel
-from interaction_estimator.observer import KalmanMomentumObserver
 from interaction_estimator.pipeline import Pipeline
 from interaction_estimator.samples import Sample
 from interaction_estimator.scenarios import marten
 from interaction_estimator.settings import Settings
-from interaction_estimator.wrench import WrenchMap
 
 
 def make_samples(n: int, rate: float = 1000.0) -> list[Sample]:
@@ -48,28 +50,20 @@ def make_samples(n: int, rate: float = 1000.0) -> list[Sample]:
     return out
 
 
-def per_sample_us(fn, samples, repeat=3) -> float:
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        for s in samples:
-            fn(s)
-        best = min(best, (time.perf_counter() - t0) / len(samples) * 1e6)
-    return best
-
-
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--samples", type=int, default=4000)
     ap.add_argument("--memory-minutes", type=float, default=10.0)
+    ap.add_argument("--batch", type=int, default=200, help="samples per timed batch")
+    ap.add_argument("--rounds", type=int, default=5, help="passes over the samples")
     args = ap.parse_args()
+    warm_up()
     samples = make_samples(args.samples)
     model = RobotModel(marten.mobile_urdf(), marten.CONTACT_FRAME)
     m, d, fid = model.model, model.data, model.frame_id
-    jmap = model.joint_map(samples[0].names)
 
     def floor(s):
-        q, v, _ = jmap.apply(s)
+        q, v, _ = model.joint_map(s.names).apply(s)
         pin.computeJointJacobians(m, d, q)
         pin.updateFramePlacement(m, d, fid)
         pin.crba(m, d, q)
@@ -77,31 +71,34 @@ def main() -> None:
         pin.computeGeneralizedGravity(m, d, q)
         pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
 
-    defaults = Settings()
-    obs = KalmanMomentumObserver(np.full(10, defaults["observer.gain"][0]),
-                                 defaults["observer.velocity_noise"],
-                                 defaults["observer.effort_noise"], defaults["observer.max_gap"])
-    wmap = WrenchMap(False, 1e-3)
-
-    def stage(s):
-        q, v, e = model.joint_map(s.names).apply(s)
-        dyn = model.dynamics(q, v)
-        r, _ = obs.step(s.time, dyn.mass_matrix @ v,
-                        e + dyn.coriolis_transpose_velocity - dyn.gravity, dyn.mass_matrix)
-        wmap.solve(dyn.jacobian, r)
-
-    f = per_sample_us(floor, samples)
-    st = pl = float("inf")
-    for _ in range(3):  # stateful stages: a fresh start for each run, the best run kept
-        obs.reset()
-        st = min(st, per_sample_us(stage, samples, repeat=1))
-        pipe = Pipeline(Settings(), marten.mobile_urdf())
-        pl = min(pl, per_sample_us(pipe.process, samples, repeat=1))
+    clock = time.perf_counter
+    floor_times, pipe_times, ratios = [], [], []
+    for _ in range(args.rounds):   # the Pipeline is stateful: a fresh one per pass
+        process = Pipeline(Settings(), marten.mobile_urdf()).process
+        for i in range(0, len(samples), args.batch):
+            batch = samples[i:i + args.batch]
+            t0 = clock()
+            for s in batch:
+                floor(s)
+            t1 = clock()
+            for s in batch:
+                process(s)
+            t2 = clock()
+            floor_times.append((t1 - t0) / len(batch) * 1e6)
+            pipe_times.append((t2 - t1) / len(batch) * 1e6)
+            ratios.append((t2 - t1) / (t1 - t0))
+    f, pl = min(floor_times), min(pipe_times)
+    ratio = statistics.median(ratios)
     print("Per-sample cost, 10-joint Marten mobile manipulator "
-          f"({args.samples} samples, best of runs)")
-    print(f"  Pinocchio calls alone        {f:8.1f} us")
-    print(f"  model + observer + wrench    {st:8.1f} us   = {st / f:4.1f} x floor  (target <= 3x)")
-    print(f"  whole Pipeline               {pl:8.1f} us   = {pl / f:4.1f} x floor  (target <= 4x)")
+          f"({args.samples} samples x {args.rounds} passes, batches of {args.batch} "
+          "alternating floor and pipeline)")
+    print(f"  Pinocchio calls alone (floor)  {f:8.1f} us   (fastest batch; median "
+          f"{statistics.median(floor_times):.1f})")
+    print(f"  whole Pipeline                 {pl:8.1f} us   (fastest batch; median "
+          f"{statistics.median(pipe_times):.1f})")
+    print(f"  ratio pipeline / floor, median of {len(ratios)} batch pairs: {ratio:4.2f} x "
+          f"(quartiles {np.percentile(ratios, 25):.2f}-{np.percentile(ratios, 75):.2f}; "
+          "target <= 4x)")
     print(f"  -> sustained rate of the whole Pipeline on one core: {1e6 / pl:,.0f} samples/s")
 
     # memory: run the pipeline over simulated minutes at 1 kHz (samples re-stamped in a loop)
