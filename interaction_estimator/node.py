@@ -20,9 +20,11 @@ URDF cannot be used; the parser's message is the status message) and ``waiting_f
 before the first usable joint state, STALE once input has stopped for ``health.stale_after`` s).
 
 Nothing here blocks the executor: the URDF file is read once at start-up; each message costs one
-pipeline step. A message that cannot be used is counted by reason and reported (status
-key-values and a throttled warning); an exception while handling one is caught, counted and
-reported the same way. No non-finite number is ever published.
+pipeline step. Joint states are read from the bytes received, and the outputs are published as
+bytes (:mod:`.node_messages`): rclpy's conversions of message objects cost more than the rest of
+the node's own work per message. A message that cannot be used is counted by reason and
+reported (status key-values and a throttled warning); an exception while handling one is
+caught, counted and reported the same way. No non-finite number is ever published.
 
 Run: ``estimator_node --ros-args --params-file config/default.yaml -r __ns:=/arm``.
 """
@@ -45,6 +47,7 @@ from rclpy.exceptions import ParameterUninitializedException
 from rclpy.node import Node
 from rclpy.parameter import Parameter
 from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy
+from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
@@ -53,13 +56,13 @@ from . import node_params
 from .health import ERROR, STALE, WARN
 from .model import ModelError
 from .node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
-from .node_messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL, NodeFigures,
-                            efforts_for_state, environment_message,
-                            environment_message_template, idle_status, outputs_finite,
-                            sample_from_joint_state, seconds_to_stamp, stamp_is_zero,
-                            stamp_seconds, status_message, wrench_message)
+from .node_messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
+                            EnvironmentEncoder, JointStateReader, NodeFigures, StatusEncoder,
+                            StatusFields, WrenchEncoder, efforts_for_state, idle_fields,
+                            output_numbers, sample_from_joint_state, sample_from_parts,
+                            seconds_to_stamp, stamp_is_zero, stamp_seconds, status_fields)
 from .pipeline import Estimate, Pipeline
-from .samples import RejectCounts, SampleRejected
+from .samples import RejectCounts, Sample, SampleRejected
 from .settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
 
 # Topic and service names, relative (namespaces and remapping apply).
@@ -106,9 +109,12 @@ class EstimatorNode(Node):
         self._last_restarts = 0
         self._last_processed: float | None = None    # monotonic s of the last estimate
         self._last_status_time = -math.inf
-        self._last_status: DiagnosticStatus | None = None
-        self._wrench_msg = WrenchStamped()              # refilled for each publication
-        self._environment_msg = environment_message_template()
+        self._last_status: StatusFields | None = None
+        # JointState read, and outputs written, as CDR bytes (see node_messages)
+        self._reader = JointStateReader()
+        self._wrench_encoder: WrenchEncoder | None = None   # made for the current frame_id
+        self._environment_encoder = EnvironmentEncoder()
+        self._status_encoder = StatusEncoder()
         self._matcher: EffortMatcher[JointState, JointState] = EffortMatcher(
             self.settings["input.stamp_tolerance"], EFFORT_BUFFER)
 
@@ -125,10 +131,14 @@ class EstimatorNode(Node):
                                                       output_qos)
         self._status_pub = self.create_publisher(DiagnosticStatus, STATUS_TOPIC, output_qos)
         self._diagnostics_pub = self.create_publisher(DiagnosticArray, DIAGNOSTICS_TOPIC, 10)
-        self._states_sub = self.create_subscription(JointState, JOINT_STATES_TOPIC,
-                                                    self._on_joint_state, input_qos)
         self._efforts_sub = None
-        if s["input.separate_efforts"]:
+        if not s["input.separate_efforts"]:  # the bytes received, read by JointStateReader
+            self._states_sub = self.create_subscription(JointState, JOINT_STATES_TOPIC,
+                                                        self._on_joint_state_bytes, input_qos,
+                                                        raw=True)
+        else:  # message objects, held for stamp matching
+            self._states_sub = self.create_subscription(JointState, JOINT_STATES_TOPIC,
+                                                        self._on_joint_state, input_qos)
             self._efforts_sub = self.create_subscription(JointState, JOINT_EFFORTS_TOPIC,
                                                          self._on_efforts, input_qos)
         self._description_sub = None
@@ -271,21 +281,42 @@ class EstimatorNode(Node):
     def _now_s(self) -> float:
         return self.get_clock().now().nanoseconds * 1e-9
 
-    def _on_joint_state(self, msg: JointState) -> None:
+    def _reject_no_model(self) -> None:
+        self._reject_node(SampleRejected(
+            "no_model", f"joint state received before a usable robot model ({self._idle_text()})"))
+
+    def _on_joint_state_bytes(self, raw: bytes) -> None:
+        """A JointState as the CDR bytes received (without input.separate_efforts)."""
         start = time.perf_counter()
         try:
             if self.pipeline is None:
-                self._reject_node(SampleRejected(
-                    "no_model", "joint state received before a usable robot model "
-                    f"({self._idle_text()})"))
+                self._reject_no_model()
+                return
+            parts = self._reader.read(raw)
+            if parts is None:  # an encoding the reader does not handle: rclpy reads it
+                self._on_joint_state(deserialize_message(raw, JointState), start)
+                return
+            sec, nanosec = parts[0], parts[1]
+            # the ROS clock is read only where its value is used: a zero stamp, or the input
+            # age of a status about to be published
+            due = self._status_due()
+            receive = self._now_s() if due or (sec == 0 and nanosec == 0) else math.nan
+            self._process(sample_from_parts(parts, receive), sec, nanosec, receive, start, due)
+        except Exception as exc:
+            self._internal_error(exc, "joint state")
+
+    def _on_joint_state(self, msg: JointState, start: float | None = None) -> None:
+        """A JointState message (with input.separate_efforts, or bytes the reader left)."""
+        start = time.perf_counter() if start is None else start
+        try:
+            if self.pipeline is None:
+                self._reject_no_model()
                 return
             if self._efforts_sub is None:
-                # the ROS clock is read only where its value is used: a zero stamp, or the
-                # input age of a status about to be published
                 due = self._status_due()
                 receive = (self._now_s() if due or stamp_is_zero(msg.header.stamp)
                            else math.nan)
-                self._process(msg, receive, None, start, due)
+                self._process_message(msg, receive, None, start, due)
                 return
             receive = self._now_s()
             t = receive if stamp_is_zero(msg.header.stamp) else stamp_seconds(msg.header.stamp)
@@ -318,18 +349,26 @@ class EstimatorNode(Node):
         if efforts is None:
             self._reject_node(SampleRejected("missing_effort", why))
             return
-        self._process(state, receive, efforts, start)
+        self._process_message(state, receive, efforts, start)
 
     def _status_due(self) -> bool:
         rate = self.settings["output.status_rate"]
         return rate == 0.0 or time.monotonic() - self._last_status_time >= 1.0 / rate
 
-    def _process(self, msg: JointState, receive: float, efforts: Sequence[float] | None,
-                 start: float, due: bool | None = None) -> None:
-        """One joint state (efforts from ``efforts`` when given); receive: ROS time s, NaN when
-        not read; due: publish a status after it (None: decide now)."""
+    def _process_message(self, msg: JointState, receive: float,
+                         efforts: Sequence[float] | None, start: float,
+                         due: bool | None = None) -> None:
+        """One JointState message (efforts from ``efforts`` when given)."""
+        stamp = msg.header.stamp
+        self._process(sample_from_joint_state(msg, receive, efforts), stamp.sec, stamp.nanosec,
+                      receive, start, due)
+
+    def _process(self, sample: Sample, sec: int, nanosec: int, receive: float, start: float,
+                 due: bool | None = None) -> None:
+        """One sample; (sec, nanosec): its message's header stamp; receive: ROS time s, NaN
+        when not read; start: perf_counter s at receipt; due: publish a status after it (None:
+        decide now)."""
         pipeline = self.pipeline
-        sample = sample_from_joint_state(msg, receive, efforts)
         before = pipeline.rejects.total
         est = pipeline.process(sample)
         if est is None:
@@ -349,12 +388,18 @@ class EstimatorNode(Node):
         if sample.stamp_from_receive:
             self._throttle.emit("stamp_from_receive", "joint state stamps are zero: the "
                                 "receive time is used instead (less accurate)")
-        if outputs_finite(est):
-            stamp = msg.header.stamp if not sample.stamp_from_receive else seconds_to_stamp(
-                sample.time)
-            self._wrench_pub.publish(wrench_message(est, self._frame_id(), stamp,
-                                                    self._wrench_msg))
-            self._environment_pub.publish(environment_message(est, self._environment_msg))
+        numbers = output_numbers(est)
+        if numbers is not None:
+            force, torque, values, stds = numbers
+            if sample.stamp_from_receive:
+                stamp = seconds_to_stamp(sample.time)
+                sec, nanosec = stamp.sec, stamp.nanosec
+            frame = self._frame_id()
+            encoder = self._wrench_encoder
+            if encoder is None or encoder.frame_id != frame:
+                encoder = self._wrench_encoder = WrenchEncoder(frame)
+            self._wrench_pub.publish(encoder.encode(sec, nanosec, force, torque))
+            self._environment_pub.publish(self._environment_encoder.encode(values, stds))
         else:
             self._reject_node(SampleRejected(
                 "non_finite_output", f"estimate at {est.time:.6f} s has a non-finite force or "
@@ -362,7 +407,7 @@ class EstimatorNode(Node):
         self._latency.add(time.perf_counter() - start)
         now = self._last_processed = time.monotonic()
         if self._status_due() if due is None else due:
-            self._publish(status_message(est, self._figures(est), self._hardware_id()), now)
+            self._publish(status_fields(est, self._figures(est), self._hardware_id()), now)
 
     # --- rejects and errors ----------------------------------------------------------------
     def _reject_node(self, exc: SampleRejected) -> None:
@@ -472,11 +517,11 @@ class EstimatorNode(Node):
 
     def _publish_idle(self) -> None:
         state, level, text = self._idle_state()
-        self._publish(idle_status(state, level, text, self._figures(None), self._hardware_id()),
+        self._publish(idle_fields(state, level, text, self._figures(None), self._hardware_id()),
                       time.monotonic())
 
-    def _publish(self, status: DiagnosticStatus, now: float) -> None:
-        self._status_pub.publish(status)
+    def _publish(self, status: StatusFields, now: float) -> None:
+        self._status_pub.publish(self._status_encoder.encode(status))
         self._last_status, self._last_status_time = status, now
 
     def _on_watch(self) -> None:
@@ -494,7 +539,7 @@ class EstimatorNode(Node):
                 return
             msg = DiagnosticArray()
             msg.header.stamp = self.get_clock().now().to_msg()
-            msg.status = [self._last_status]
+            msg.status = [self._last_status.message_object()]
             self._diagnostics_pub.publish(msg)
         except Exception as exc:
             self._internal_error(exc, "diagnostics publication")

@@ -2,8 +2,11 @@
 
 JointState -> :class:`~interaction_estimator.samples.Sample`, and
 :class:`~interaction_estimator.pipeline.Estimate` -> WrenchStamped, Float64MultiArray and
-DiagnosticStatus. Kept apart from the node so that every field's meaning and unit is written down
-in one place and a test can read the same definitions.
+DiagnosticStatus, as message objects and as the CDR bytes the node actually reads and publishes
+(:class:`JointStateReader`, :class:`WrenchEncoder`, :class:`EnvironmentEncoder`,
+:class:`StatusEncoder`; same content, checked against rclpy's deserializer). Kept apart from the
+node so that every field's meaning and unit is written down in one place and a test can read the
+same definitions.
 
 Time: a stamp is ``sec + nanosec * 1e-9`` seconds (float). A zero stamp means "not stamped": the
 receive time is used instead and the sample is flagged (``stamp_from_receive``).
@@ -16,14 +19,16 @@ written: it becomes ``n/a``. Keys carry their unit in brackets, SI: ``mass[kg]``
 from __future__ import annotations
 
 import math
+import struct
 from array import array
 from dataclasses import dataclass, field
-from typing import Iterable, Mapping, Sequence
+from typing import Iterable, Mapping, NamedTuple, Sequence
 
 import numpy as np
 from builtin_interfaces.msg import Time as TimeMsg
 from diagnostic_msgs.msg import DiagnosticStatus, KeyValue
 from geometry_msgs.msg import WrenchStamped
+from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
@@ -85,6 +90,15 @@ def sample_from_joint_state(msg: JointState, receive_time: float,
     )
 
 
+def sample_from_parts(parts: tuple, receive_time: float) -> Sample:
+    """A Sample from what :meth:`JointStateReader.read` returns (sec, nanosec, names,
+    position, velocity, effort); as :func:`sample_from_joint_state` for the same message."""
+    sec, nanosec, names, position, velocity, effort = parts
+    zero = sec == 0 and nanosec == 0
+    return Sample(receive_time if zero else sec + nanosec * 1e-9, names, position, velocity,
+                  effort, zero)
+
+
 def efforts_for_state(state: JointState, efforts: JointState,
                       model_joints: Iterable[str]) -> tuple[list[float] | None, str]:
     """Efforts of ``efforts`` arranged in the joint order of ``state``.
@@ -111,13 +125,23 @@ def efforts_for_state(state: JointState, efforts: JointState,
     return [float(by_name.get(n, 0.0)) for n in names], ""
 
 
-def outputs_finite(est) -> bool:
-    """True when every number the wrench and environment messages would carry is finite.
+def output_numbers(est) -> tuple[list[float], list[float], list[float], list[float]] | None:
+    """(force N, torque N·m, parameters, their standard deviations) as float lists: every
+    number the wrench and environment messages carry; None when any of them is not finite.
 
     One sum per array: NaN or infinity anywhere makes it non-finite (a sum of huge finite
     values that overflows counts as non-finite too, which errs on the safe side)."""
-    return math.isfinite(sum(est.force.tolist()) + sum(est.torque.tolist())
-                         + sum(est.parameters.tolist()) + sum(est.parameter_std.tolist()))
+    force, torque = est.force.tolist(), est.torque.tolist()
+    values, stds = est.parameters.tolist(), est.parameter_std.tolist()
+    if math.isfinite(sum(force) + sum(torque) + sum(values) + sum(stds)):
+        return force, torque, values, stds
+    return None
+
+
+def outputs_finite(est) -> bool:
+    """True when every number the wrench and environment messages would carry is finite
+    (see :func:`output_numbers`)."""
+    return output_numbers(est) is not None
 
 
 def wrench_message(est, frame_id: str, stamp: TimeMsg,
@@ -168,7 +192,7 @@ def number_text(x: float) -> str:
 
 
 def _flag(b: bool) -> str:
-    return "true" if bool(b) else "false"
+    return "true" if b else "false"
 
 
 @dataclass
@@ -195,20 +219,37 @@ class NodeFigures:
     findings: Sequence[tuple[int, str]] = ()
 
 
-def _node_key_values(fig: NodeFigures) -> list[KeyValue]:
-    kv = [KeyValue(key="rejects_total", value=str(sum(fig.rejects.values())))]
-    kv += [KeyValue(key=f"rejects.{reason}", value=str(n))
-           for reason, n in sorted(fig.rejects.items())]
+class StatusFields(NamedTuple):
+    """The content of one DiagnosticStatus: level (0 OK, 1 WARN, 2 ERROR, 3 STALE), name,
+    message, hardware_id and the key-values as (key, value) text pairs, in order."""
+
+    level: int
+    name: str
+    message: str
+    hardware_id: str
+    pairs: list[tuple[str, str]]
+
+    def message_object(self) -> DiagnosticStatus:
+        """The same status as a diagnostic_msgs/DiagnosticStatus."""
+        return DiagnosticStatus(level=bytes([self.level]), name=self.name, message=self.message,
+                                hardware_id=self.hardware_id,
+                                values=[KeyValue(key=k, value=v) for k, v in self.pairs])
+
+
+def _node_pairs(fig: NodeFigures) -> list[tuple[str, str]]:
+    rejects = fig.rejects
+    kv = [("rejects_total", str(sum(rejects.values())))]
+    kv += [(f"rejects.{reason}", str(n)) for reason, n in sorted(rejects.items())]
     kv += [
-        KeyValue(key="last_reject", value=fig.last_reject),
-        KeyValue(key="errors_total", value=str(fig.errors)),
-        KeyValue(key="latency[s]", value=number_text(fig.latency_s)),
-        KeyValue(key="latency_max[s]", value=number_text(fig.latency_max_s)),
-        KeyValue(key="input_age[s]", value=number_text(fig.input_age_s)),
-        KeyValue(key="model", value=fig.model_name),
-        KeyValue(key="joints", value=str(fig.joints)),
-        KeyValue(key="contact_frame", value=fig.contact_frame),
-        KeyValue(key="frame_id", value=fig.frame_id),
+        ("last_reject", fig.last_reject),
+        ("errors_total", str(fig.errors)),
+        ("latency[s]", number_text(fig.latency_s)),
+        ("latency_max[s]", number_text(fig.latency_max_s)),
+        ("input_age[s]", number_text(fig.input_age_s)),
+        ("model", fig.model_name),
+        ("joints", str(fig.joints)),
+        ("contact_frame", fig.contact_frame),
+        ("frame_id", fig.frame_id),
     ]
     return kv
 
@@ -220,59 +261,274 @@ def _combine(level: int, message: str, findings: Sequence[tuple[int, str]]) -> t
     return level, message
 
 
-def status_message(est, fig: NodeFigures, hardware_id: str) -> DiagnosticStatus:
+# per parameter, in PARAMETER_NAMES order: value, std, excited and converged keys
+_PARAMETER_KEYS = tuple((f"{n}[{u}]", f"{n}_std[{u}]", f"{n}_excited", f"{n}_converged")
+                        for n, u in zip(PARAMETER_NAMES, PARAMETER_UNITS))
+
+
+def status_fields(est, fig: NodeFigures, hardware_id: str) -> StatusFields:
     """The status for one estimate: the pipeline's verdict plus the node's own findings."""
     level, message = _combine(est.level, est.message, fig.findings)
     kv = [
-        KeyValue(key="state", value=est.state),
-        KeyValue(key="time[s]", value=number_text(est.time)),
-        KeyValue(key="converged", value=_flag(est.converged)),
-        KeyValue(key="in_contact", value=_flag(est.in_contact)),
-        KeyValue(key="phase", value=est.phase),
-        KeyValue(key="event", value=est.event),
+        ("state", est.state),
+        ("time[s]", number_text(est.time)),
+        ("converged", _flag(est.converged)),
+        ("in_contact", _flag(est.in_contact)),
+        ("phase", est.phase),
+        ("event", est.event),
     ]
-    for i, (name, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
-        kv += [
-            KeyValue(key=f"{name}[{unit}]", value=number_text(est.parameters[i])),
-            KeyValue(key=f"{name}_std[{unit}]", value=number_text(est.parameter_std[i])),
-            KeyValue(key=f"{name}_excited", value=_flag(est.excited[i])),
-            KeyValue(key=f"{name}_converged", value=_flag(est.parameter_converged[i])),
-        ]
-    u = est.direction
+    for keys, value, std, excited, converged in zip(
+            _PARAMETER_KEYS, est.parameters.tolist(), est.parameter_std.tolist(),
+            est.excited.tolist(), est.parameter_converged.tolist()):
+        kv += [(keys[0], number_text(value)), (keys[1], number_text(std)),
+               (keys[2], _flag(excited)), (keys[3], _flag(converged))]
     kv += [
-        KeyValue(key="force_along[N]", value=number_text(est.force_along)),
-        KeyValue(key="position_along[m]", value=number_text(est.position_along)),
-        KeyValue(key="velocity_along[m/s]", value=number_text(est.velocity_along)),
-        KeyValue(key="acceleration_along[m/s^2]", value=number_text(est.acceleration_along)),
-        KeyValue(key="kinematics_lag[s]", value=number_text(est.kinematics_lag)),
-        KeyValue(key="direction", value=" ".join(number_text(c) for c in u)),
-        KeyValue(key="nis", value=number_text(est.nis)),
-        KeyValue(key="nis_average", value=number_text(est.nis_average)),
-        KeyValue(key="nis_lower", value=number_text(est.nis_bounds[0])),
-        KeyValue(key="nis_upper", value=number_text(est.nis_bounds[1])),
-        KeyValue(key="measurement_std[N]", value=number_text(est.measurement_std)),
-        KeyValue(key="bias_age[s]", value=number_text(est.bias_age)),
-        KeyValue(key="input_rate[Hz]", value=number_text(est.rate_hz)),
-        KeyValue(key="stamp_from_receive", value=_flag(est.stamp_from_receive)),
-        KeyValue(key="observer_restarts", value=str(est.observer_restarts)),
-        KeyValue(key="jacobian_condition", value=number_text(est.jacobian_condition)),
-        KeyValue(key="contact_level", value=number_text(est.contact_level)),
+        ("force_along[N]", number_text(est.force_along)),
+        ("position_along[m]", number_text(est.position_along)),
+        ("velocity_along[m/s]", number_text(est.velocity_along)),
+        ("acceleration_along[m/s^2]", number_text(est.acceleration_along)),
+        ("kinematics_lag[s]", number_text(est.kinematics_lag)),
+        ("direction", " ".join(number_text(c) for c in est.direction.tolist())),
+        ("nis", number_text(est.nis)),
+        ("nis_average", number_text(est.nis_average)),
+        ("nis_lower", number_text(est.nis_bounds[0])),
+        ("nis_upper", number_text(est.nis_bounds[1])),
+        ("measurement_std[N]", number_text(est.measurement_std)),
+        ("bias_age[s]", number_text(est.bias_age)),
+        ("input_rate[Hz]", number_text(est.rate_hz)),
+        ("stamp_from_receive", _flag(est.stamp_from_receive)),
+        ("observer_restarts", str(est.observer_restarts)),
+        ("jacobian_condition", number_text(est.jacobian_condition)),
+        ("contact_level", number_text(est.contact_level)),
     ]
-    kv += _node_key_values(fig)
-    return DiagnosticStatus(level=bytes([level]), name=fig.node_name, message=message,
-                            hardware_id=hardware_id, values=kv)
+    kv += _node_pairs(fig)
+    return StatusFields(level, fig.node_name, message, hardware_id, kv)
+
+
+def idle_fields(state: str, level: int, message: str, fig: NodeFigures,
+                hardware_id: str) -> StatusFields:
+    """A status when there is no estimate: waiting for a model or for input, or a model error."""
+    level, message = _combine(level, message, fig.findings)
+    kv = [("state", state), ("converged", "false")]
+    kv += _node_pairs(fig)
+    return StatusFields(level, fig.node_name, message, hardware_id, kv)
+
+
+def status_message(est, fig: NodeFigures, hardware_id: str) -> DiagnosticStatus:
+    """:func:`status_fields` as a diagnostic_msgs/DiagnosticStatus."""
+    return status_fields(est, fig, hardware_id).message_object()
 
 
 def idle_status(state: str, level: int, message: str, fig: NodeFigures,
                 hardware_id: str) -> DiagnosticStatus:
-    """A status when there is no estimate: waiting for a model or for input, or a model error."""
-    level, message = _combine(level, message, fig.findings)
-    kv = [KeyValue(key="state", value=state), KeyValue(key="converged", value="false")]
-    kv += _node_key_values(fig)
-    return DiagnosticStatus(level=bytes([level]), name=fig.node_name, message=message,
-                            hardware_id=hardware_id, values=kv)
+    """:func:`idle_fields` as a diagnostic_msgs/DiagnosticStatus."""
+    return idle_fields(state, level, message, fig, hardware_id).message_object()
 
 
 def status_values(status: DiagnosticStatus) -> dict[str, str]:
     """The key-values of a status as a dict (for controllers and tests)."""
     return {kv.key: kv.value for kv in status.values}
+
+
+# --- the frequent messages as CDR bytes -------------------------------------------------------
+# rclpy publishes a bytes object as it is (Publisher.publish), and a raw subscription hands the
+# callback the bytes received. Converting message objects to and from rclpy's C structures and
+# serializing them costs more than everything else the node does per message outside the
+# pipeline (test/benchmarks/bench_node_callback.py), so the node reads JointState and writes
+# ~/wrench, ~/environment and ~/status as bytes. Encoding: plain little-endian CDR (XCDR1, what
+# ROS 2's default middleware sends): a 4-byte encapsulation header, then the fields in order,
+# each primitive aligned to its size counted from the end of the header, a string as uint32
+# length (terminating NUL included), its UTF-8 bytes and a NUL, a sequence as uint32 count then
+# its elements. Padding is zero. Each encoder checks its output once against rclpy's own
+# deserializer and, should they ever disagree, hands out message objects instead (publish takes
+# either), so a change of encoding costs speed, never correctness.
+
+_CDR_LE = b"\x00\x01\x00\x00"          # encapsulation: plain CDR, little-endian
+_U32 = struct.Struct("<I")
+_STAMP_AND_LENGTH = struct.Struct("<iII")  # header stamp (sec, nanosec), frame_id length
+_ZEROS = bytes(8)
+_EMPTY = np.zeros(0)
+_EMPTY.setflags(write=False)
+
+
+def _cdr_string(text: str) -> bytes:
+    """A CDR string (starting 4-aligned), without padding after it."""
+    data = text.encode()
+    return _U32.pack(len(data) + 1) + data + b"\x00"
+
+
+def _pad(chunk: bytes, size: int = 4) -> bytes:
+    """``chunk`` (starting ``size``-aligned) followed by zeros up to a multiple of ``size``."""
+    return chunk + _ZEROS[:-len(chunk) % size]
+
+
+def _agrees(raw: bytes, reference) -> bool:
+    """True when rclpy's deserializer reads ``raw`` back as a message equal to ``reference``."""
+    try:
+        return deserialize_message(raw, type(reference)) == reference
+    except Exception:  # any failure to read it back means: do not use the encoder
+        return False
+
+
+class JointStateReader:
+    """sensor_msgs/JointState CDR bytes -> (sec, nanosec, names, position, velocity, effort).
+
+    The names are decoded once per distinct name list (the bytes of the name section are
+    compared with the previous message's); position, velocity and effort are read-only numpy
+    views (n,) float64 on the bytes. :meth:`read` returns None for bytes it does not handle
+    (not little-endian plain CDR, or a layout that does not add up; counted in ``fallbacks``):
+    the caller then deserializes them with rclpy. Values and lengths are not checked here: the
+    pipeline's validator does that and counts what it rejects.
+    """
+
+    def __init__(self) -> None:
+        self._names_bytes = b""
+        self._names: tuple[str, ...] = ()
+        self.fallbacks = 0
+
+    def read(self, buf: bytes):
+        try:
+            if buf[:2] != b"\x00\x01":
+                raise ValueError("not little-endian plain CDR")
+            sec, nanosec, length = _STAMP_AND_LENGTH.unpack_from(buf, 4)
+            if length == 0:
+                raise ValueError("string without its terminator")
+            off = 16 + length
+            off += -off % 4   # the header is 4 bytes: 4-alignment is the same in absolute terms
+            cached = self._names_bytes
+            if cached and buf.startswith(cached, off):
+                names = self._names
+                off += len(cached)
+            else:
+                start = off
+                (count,) = _U32.unpack_from(buf, off)
+                off += 4
+                out = []
+                for _ in range(count):
+                    off += -off % 4
+                    (n,) = _U32.unpack_from(buf, off)
+                    if n == 0 or off + 4 + n > len(buf):
+                        raise ValueError("bad string")
+                    out.append(buf[off + 4:off + 3 + n].decode())
+                    off += 4 + n
+                names = tuple(out)
+                self._names_bytes, self._names = buf[start:off], names
+            arrays = []
+            for _ in range(3):
+                off += -off % 4
+                (n,) = _U32.unpack_from(buf, off)
+                off += 4
+                if n:
+                    off += (4 - off) % 8   # 8-aligned counted from the end of the header
+                    arrays.append(np.frombuffer(buf, "<f8", n, off))  # ValueError if short
+                    off += 8 * n
+                else:
+                    arrays.append(_EMPTY)
+        except (ValueError, struct.error):
+            self.fallbacks += 1
+            return None
+        return sec, nanosec, names, arrays[0], arrays[1], arrays[2]
+
+
+class WrenchEncoder:
+    """~/wrench (geometry_msgs/WrenchStamped) as CDR bytes for one frame_id: the stamp, then
+    force (N) and torque (N·m) the robot applies, as :func:`wrench_message` fills them."""
+
+    def __init__(self, frame_id: str):
+        self.frame_id = frame_id
+        # stamp at 0 (8 bytes), frame_id at 8, the six doubles 8-aligned after it
+        frame = _cdr_string(frame_id)
+        frame += _ZEROS[:-(8 + len(frame)) % 8]
+        self._frame = frame
+        self._pack = struct.Struct(f"<4siI{len(frame)}s6d").pack
+        probe = WrenchStamped()
+        probe.header.stamp.sec, probe.header.stamp.nanosec = 1234567890, 987654321
+        probe.header.frame_id = frame_id
+        values = (1.5, -2.25, 3e-300, -4e300, 0.1, -0.0)
+        w = probe.wrench
+        w.force.x, w.force.y, w.force.z, w.torque.x, w.torque.y, w.torque.z = values
+        self.raw = True
+        self.raw = _agrees(self.encode(1234567890, 987654321, values[:3], values[3:]), probe)
+
+    def encode(self, sec: int, nanosec: int, force: Sequence[float],
+               torque: Sequence[float]) -> bytes | WrenchStamped:
+        """Stamp (sec, nanosec), force (3,) N and torque (3,) N·m as floats."""
+        if self.raw:
+            return self._pack(_CDR_LE, sec, nanosec, self._frame, *force, *torque)
+        msg = WrenchStamped()
+        msg.header.stamp.sec, msg.header.stamp.nanosec = sec, nanosec
+        msg.header.frame_id = self.frame_id
+        w = msg.wrench
+        w.force.x, w.force.y, w.force.z = force
+        w.torque.x, w.torque.y, w.torque.z = torque
+        return msg
+
+
+class EnvironmentEncoder:
+    """~/environment (std_msgs/Float64MultiArray) as CDR bytes: the labelled layout of
+    :func:`environment_message_template`, then the four values and their four standard
+    deviations (see :func:`environment_message`)."""
+
+    def __init__(self) -> None:
+        template = environment_message_template()
+        body = bytearray(_U32.pack(len(template.layout.dim)))
+        for dim in template.layout.dim:
+            body += _pad(_cdr_string(dim.label))
+            body += _U32.pack(dim.size) + _U32.pack(dim.stride)
+        body += _U32.pack(template.layout.data_offset)
+        body += _U32.pack(8)                      # data: 8 doubles, 8-aligned
+        body += _ZEROS[:-len(body) % 8]
+        self._pack = struct.Struct(f"<{4 + len(body)}s8d").pack
+        self._prefix = _CDR_LE + bytes(body)
+        probe = environment_message_template()
+        values = (1.5, -2.25, 3e-300, -4e300, 0.1, -0.0, 7.0, 1e-3)
+        probe.data = array("d", values)
+        self.raw = True
+        self.raw = _agrees(self.encode(values[:4], values[4:]), probe)
+
+    def encode(self, values: Sequence[float],
+               stds: Sequence[float]) -> bytes | Float64MultiArray:
+        """values (4,): mass kg, damping N·s/m, stiffness N/m, static force N; stds (4,)."""
+        if self.raw:
+            return self._pack(self._prefix, *values, *stds)
+        msg = environment_message_template()
+        msg.data = array("d", [*values, *stds])
+        return msg
+
+
+# zeros after a string's UTF-8 bytes: its NUL, then padding to 4, by (byte length mod 4)
+_STRING_TAILS = (b"\x00" * 4, b"\x00" * 3, b"\x00" * 2, b"\x00")
+
+
+class StatusEncoder:
+    """~/status (diagnostic_msgs/DiagnosticStatus) as CDR bytes from :class:`StatusFields`."""
+
+    def __init__(self) -> None:
+        self._keys: dict[str, bytes] = {}   # key -> its padded CDR string (keys are few)
+        probe = StatusFields(WARN, "ns/interaction_estimator", "a message · with UTF-8",
+                             "hw", [("mass[kg]", "1.5"), ("damping[N·s/m]", "n/a"),
+                                    ("last_reject", ""), ("k", "abcd"), ("kk", "abc")])
+        self.raw = True
+        self.raw = _agrees(self.encode(probe), probe.message_object())
+
+    def encode(self, status: StatusFields) -> bytes | DiagnosticStatus:
+        if not self.raw:
+            return status.message_object()
+        pairs = status.pairs
+        parts = [_CDR_LE, bytes((status.level, 0, 0, 0)), _pad(_cdr_string(status.name)),
+                 _pad(_cdr_string(status.message)), _pad(_cdr_string(status.hardware_id)),
+                 _U32.pack(len(pairs))]
+        keys, pack, tails = self._keys, _U32.pack, _STRING_TAILS
+        for key, value in pairs:
+            chunk = keys.get(key)
+            if chunk is None:
+                if len(keys) > 1000:  # bounded, whatever keys come
+                    keys.clear()
+                chunk = keys[key] = _pad(_cdr_string(key))
+            data = value.encode()
+            n = len(data)
+            parts += (chunk, pack(n + 1), data, tails[n & 3])
+        out = b"".join(parts)
+        if pairs:  # no padding after the last string: only its NUL
+            out = out[:len(out) - len(parts[-1]) + 1]
+        return out

@@ -1,17 +1,35 @@
-"""The node's input helpers without ROS: stamp matching and throttled warnings.
+"""The node's input and output helpers without a ROS graph: stamp matching, throttled
+warnings, and the CDR bytes the node reads and publishes.
 
-Reference: the matching rule as documented in EffortMatcher (a state pairs with the effort
+References: the matching rule as documented in EffortMatcher (a state pairs with the effort
 closest in stamp within the tolerance; states that can no longer pair come out with None), applied
-by hand to short sequences; a fake clock for the throttle.
+by hand to short sequences; a fake clock for the throttle; numpy.isfinite; rclpy's own serializer
+and deserializer (rclpy.serialization, the middleware's type support) for the CDR bytes, compared
+with the message objects of node_messages (wrench_message, environment_message, status_message:
+what the node published before it wrote bytes, and what the replay still writes).
 """
 from __future__ import annotations
 
+import math
 from types import SimpleNamespace
 
 import numpy as np
+import pytest
+from builtin_interfaces.msg import Time as TimeMsg
+from diagnostic_msgs.msg import DiagnosticStatus
+from geometry_msgs.msg import WrenchStamped
+from rclpy.serialization import deserialize_message, serialize_message
+from sensor_msgs.msg import JointState
+from std_msgs.msg import Float64MultiArray
 
+from interaction_estimator import node_messages as nm
 from interaction_estimator.node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
 from interaction_estimator.node_messages import outputs_finite
+from interaction_estimator.pipeline import Pipeline
+from interaction_estimator.scenarios import marten
+from interaction_estimator.settings import Settings
+
+from ros_harness import contact_scenario
 
 
 def pairs(out):
@@ -85,3 +103,134 @@ def test_outputs_finite_agrees_with_numpy_isfinite():
     est = SimpleNamespace(force=np.full(3, 1e308), torque=np.zeros(3), parameters=np.zeros(4),
                           parameter_std=np.zeros(4))
     assert not outputs_finite(est)
+
+
+# --- CDR bytes ----------------------------------------------------------------------------------
+def joint_state(sec, nanosec, frame_id, names, position, velocity, effort) -> JointState:
+    msg = JointState()
+    msg.header.stamp.sec, msg.header.stamp.nanosec = sec, nanosec
+    msg.header.frame_id = frame_id
+    msg.name, msg.position, msg.velocity, msg.effort = names, position, velocity, effort
+    return msg
+
+
+def test_joint_state_reader_agrees_with_rclpy():
+    """Reference: rclpy's serializer writes the bytes; the reader must give back what the
+    message held (and the Sample sample_from_joint_state makes of the message object)."""
+    rng = np.random.default_rng(3)
+    reader = nm.JointStateReader()
+    names = ["j1", "joint_two", "the_third_joint", "ä_non_ascii", "x" * 7]
+    cases = []
+    for k in range(300):
+        n = len(names)
+        frame = "f" * int(rng.integers(0, 11))           # every padding after the frame_id
+        these = names if k % 50 else [f"{m}_{k}" for m in names]   # the name list changes
+        lengths = [n, n, n]
+        if k % 7 == 3:  # unequal or empty arrays are read as sent (the pipeline rejects them)
+            lengths = [n, int(rng.integers(0, n + 1)), 0]
+        pos, vel, eff = (rng.normal(size=m).tolist() for m in lengths)
+        if k % 11 == 5 and vel:
+            vel[0] = math.nan
+        sec, nsec = (0, 0) if k % 13 == 0 else (int(rng.integers(0, 2**31)),
+                                                int(rng.integers(0, 10**9)))
+        cases.append(joint_state(sec, nsec, frame, these, pos, vel, eff))
+    cases.append(joint_state(5, 6, "", [], [], [], []))
+    for msg in cases:
+        parts = reader.read(serialize_message(msg))
+        assert parts is not None
+        sec, nsec, names_read, pos, vel, eff = parts
+        assert (sec, nsec) == (msg.header.stamp.sec, msg.header.stamp.nanosec)
+        assert names_read == tuple(msg.name)
+        for got, sent in ((pos, msg.position), (vel, msg.velocity), (eff, msg.effort)):
+            assert got.dtype == np.float64 and got.shape == (len(sent),)
+            np.testing.assert_array_equal(got, np.asarray(sent))  # NaN == NaN here
+        a = nm.sample_from_parts(parts, 42.5)
+        b = nm.sample_from_joint_state(msg, 42.5)
+        assert (a.time, a.names, a.stamp_from_receive) == (b.time, b.names, b.stamp_from_receive)
+        for x, y in ((a.position, b.position), (a.velocity, b.velocity), (a.effort, b.effort)):
+            np.testing.assert_array_equal(x, y)
+    assert reader.fallbacks == 0
+
+
+def test_joint_state_reader_leaves_what_it_does_not_read_to_rclpy():
+    reader = nm.JointStateReader()
+    raw = serialize_message(joint_state(1, 2, "f", ["a"], [1.0], [2.0], [3.0]))
+    assert reader.read(b"\x00\x00" + raw[2:]) is None       # big-endian CDR header
+    assert reader.read(raw[:-4]) is None                      # truncated effort array
+    assert reader.read(raw[:10]) is None                      # truncated header
+    assert reader.fallbacks == 3
+    assert reader.read(raw) is not None and reader.fallbacks == 3
+
+
+def random_estimate(rng) -> SimpleNamespace:
+    return SimpleNamespace(
+        force=rng.normal(scale=50.0, size=3), torque=rng.normal(size=3),
+        parameters=rng.normal(scale=10.0, size=4), parameter_std=rng.random(4))
+
+
+@pytest.mark.parametrize("frame_id", ["", "o", "odom", "world_frame", "ø_frame"])
+def test_wrench_and_environment_bytes_read_back_as_the_messages(frame_id):
+    """Reference: rclpy's deserializer reads the bytes as messages equal to those
+    wrench_message and environment_message fill."""
+    rng = np.random.default_rng(11)
+    wrench, env = nm.WrenchEncoder(frame_id), nm.EnvironmentEncoder()
+    assert wrench.raw and env.raw   # the encoders checked themselves and write bytes
+    for k in range(100):
+        est = random_estimate(rng)
+        sec, nsec = int(rng.integers(0, 2**31)), int(rng.integers(0, 10**9))
+        force, torque, values, stds = nm.output_numbers(est)
+        raw = wrench.encode(sec, nsec, force, torque)
+        assert isinstance(raw, bytes)
+        expected = nm.wrench_message(est, frame_id, TimeMsg(sec=sec, nanosec=nsec))
+        assert deserialize_message(raw, WrenchStamped) == expected
+        raw = env.encode(values, stds)
+        assert deserialize_message(raw, Float64MultiArray) == nm.environment_message(est)
+
+
+def test_encoders_that_disagree_with_rclpy_hand_out_messages():
+    """Should a check fail, the encoders give message objects (publish takes them too) with the
+    same content. Reference: the message objects of node_messages."""
+    rng = np.random.default_rng(5)
+    est = random_estimate(rng)
+    force, torque, values, stds = nm.output_numbers(est)
+    wrench, env = nm.WrenchEncoder("odom"), nm.EnvironmentEncoder()
+    wrench.raw = env.raw = False
+    assert wrench.encode(3, 4, force, torque) == nm.wrench_message(est, "odom",
+                                                                   TimeMsg(sec=3, nanosec=4))
+    assert env.encode(values, stds) == nm.environment_message(est)
+    status = nm.StatusEncoder()
+    status.raw = False
+    fig = nm.NodeFigures(node_name="n")
+    assert status.encode(nm.idle_fields("waiting_for_input", 1, "m", fig, "hw")) == (
+        nm.idle_status("waiting_for_input", 1, "m", fig, "hw"))
+
+
+def test_status_bytes_read_back_as_the_status_message():
+    """Reference: rclpy's deserializer, against status_message / idle_status, for the estimates
+    of a pipeline run through learning, free motion and contact (every status key, numbers,
+    n/a, flags) and for idle statuses."""
+    urdf = marten.mobile_urdf()
+    pipeline = Pipeline(Settings(), urdf)
+    estimates = [pipeline.process(s.sample()) for s in contact_scenario(urdf, 3.0, contact_at=1.2)]
+    estimates = [e for e in estimates if e is not None]
+    assert {"learning_bias", "free_motion", "in_contact"} <= {e.state for e in estimates}
+    encoder = nm.StatusEncoder()
+    assert encoder.raw
+    figs = [nm.NodeFigures(node_name="interaction_estimator"),
+            nm.NodeFigures(node_name="arm/interaction_estimator",
+                           rejects={"non_finite": 2, "no_model": 1},
+                           last_reject="non_finite: effort of joint ä is NaN", errors=1,
+                           latency_s=0.000123, latency_max_s=0.5, input_age_s=0.002,
+                           frame_id="odom", model_name="marten_mobile", joints=10,
+                           contact_frame="tool_tip",
+                           findings=[(1, "input rate 90 Hz far from 100 Hz"), (2, "errors")])]
+    for i, est in enumerate(estimates[::37]):
+        fig = figs[i % 2]
+        raw = encoder.encode(nm.status_fields(est, fig, "marten_mobile"))
+        assert isinstance(raw, bytes)
+        assert deserialize_message(raw, DiagnosticStatus) == nm.status_message(
+            est, fig, "marten_mobile")
+    for fig in figs:
+        raw = encoder.encode(nm.idle_fields("model_error", 2, "bad URDF: ·", fig, ""))
+        assert deserialize_message(raw, DiagnosticStatus) == nm.idle_status(
+            "model_error", 2, "bad URDF: ·", fig, "")

@@ -9,7 +9,13 @@ to each subject in turn, in its own namespace:
 
 Figures per subject: fraction of joint states answered by a wrench, latency from the input stamp
 to the wrench's arrival here (p50, p99, max; both clocks are this machine's), and the CPU time of
-the subject's process (from /proc/<pid>/stat) per second of wall time.
+the subject's process (from /proc/<pid>/stat) per second of wall time and per joint state
+answered.
+
+With ``--source DIR`` (repeatable) the nodes of those copies of the package
+(DIR/interaction_estimator, each named after DIR) are measured instead of this checkout's, and
+``--rounds N`` repeats every subject N times in turn (floor, then each node, then floor again,
+...), so versions are compared under the same load.
 
 Run: .venv/bin/python test/benchmarks/bench_node.py --duration 20
 """
@@ -190,9 +196,9 @@ def stop(proc: subprocess.Popen) -> None:
 
 
 def measure(name: str, command: list[str], namespace: str, cycle: list[JointState],
-            seconds: float, rate: float) -> dict[str, float]:
+            seconds: float, rate: float, cwd: Path = REPO) -> dict[str, float]:
     log = open(f"/tmp/bench_node_{name}_{os.getpid()}.log", "wb")
-    proc = subprocess.Popen(command, stdout=log, stderr=subprocess.STDOUT, cwd=REPO)
+    proc = subprocess.Popen(command, stdout=log, stderr=subprocess.STDOUT, cwd=cwd)
     driver = Driver(namespace, cycle)
     try:
         if not driver.wait_matched(proc):
@@ -214,7 +220,8 @@ def measure(name: str, command: list[str], namespace: str, cycle: list[JointStat
     latency = np.array([window[s] - s for s in sent if s in window], dtype=float) * 1e-6
     answered = len(latency) / len(sent)
     out = {"sent": len(sent), "answered": answered, "load": load,
-           "cpu": (cpu1 - cpu0) / (wall1 - wall0) * 100.0}
+           "cpu": (cpu1 - cpu0) / (wall1 - wall0) * 100.0,
+           "cpu_per_answer": (cpu1 - cpu0) / max(len(latency), 1) * 1e6}
     if driver.status is not None:  # the node's own figure: receive -> published, mean
         kv = {v.key: v.value for v in driver.status.values}
         if kv.get("latency[s]", "n/a") != "n/a":
@@ -225,51 +232,76 @@ def measure(name: str, command: list[str], namespace: str, cycle: list[JointStat
     return out
 
 
+def estimator_command(rate: float, namespace: str) -> list[str]:
+    from interaction_estimator.scenarios import marten
+    return [sys.executable, "-m", "interaction_estimator.node", "--ros-args", "-r",
+            f"__ns:={namespace}", "-p", f"robot_description_file:={marten.MOBILE_URDF}", "-p",
+            "input.expected_rate:=" + str(float(rate))]
+
+
+def print_row(name: str, r: dict[str, float]) -> None:
+    if "error" in r:
+        print(f"{name:<12} did not connect (see /tmp/bench_node_*_{os.getpid()}.log)",
+              flush=True)
+        return
+    lat = (f"{r['p50']:8.2f} {r['p99']:8.2f} {r['max']:8.1f}" if "p50" in r
+           else f"{'-':>8} {'-':>8} {'-':>8}")
+    proc = f"{r['processing']:8.3f}" if "processing" in r else f"{'-':>8}"
+    print(f"{name:<12} {r['sent']:>7d} {r['answered'] * 100:8.2f}% {lat} {r['cpu']:6.1f} "
+          f"{r['cpu_per_answer']:7.0f} {proc} {r['load']:5.2f}", flush=True)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--duration", type=float, default=60.0,
                         help="measured seconds per subject (default 60)")
     parser.add_argument("--rate", type=float, default=1000.0,
                         help="joint-state rate, Hz (default 1000)")
+    parser.add_argument("--source", action="append", default=[], metavar="DIR",
+                        help="measure the node of the package in DIR/interaction_estimator "
+                             "instead of this checkout's (repeatable; named after DIR)")
+    parser.add_argument("--rounds", type=int, default=1,
+                        help="measure every subject this many times, interleaved (default 1)")
     args = parser.parse_args(argv)
-    from interaction_estimator.scenarios import marten
     cycle = joint_states_cycle(4.0, args.rate)
-    py = sys.executable
+    # name -> (command, namespace, working directory: python -m imports the package from it)
     subjects = {
-        "floor": ([py, __file__, "--floor", "--ros-args", "-r", "__ns:=/bench_floor"],
-                  "/bench_floor"),
-        "estimator": ([py, "-m", "interaction_estimator.node", "--ros-args", "-r",
-                       "__ns:=/bench_estimator", "-p",
-                       f"robot_description_file:={marten.MOBILE_URDF}", "-p",
-                       "input.expected_rate:=" + str(float(args.rate))], "/bench_estimator"),
+        "floor": ([sys.executable, __file__, "--floor", "--ros-args", "-r",
+                   "__ns:=/bench_floor"], "/bench_floor", REPO),
     }
+    if not args.source:
+        subjects["estimator"] = (estimator_command(args.rate, "/bench_estimator"),
+                                 "/bench_estimator", REPO)
+    for i, source in enumerate(args.source):
+        path = Path(source).resolve()
+        name = path.name[:12]
+        namespace = f"/bench_source_{i}"
+        subjects[name] = (estimator_command(args.rate, namespace), namespace, path)
     print(f"bench_node: Marten mobile (10 joints), {args.rate:.0f} Hz, {args.duration:.0f} s "
           f"measured per subject after {WARMUP_S:.0f} s warm-up; {os.cpu_count()} cores; "
           f"domain {os.environ['ROS_DOMAIN_ID']}, discovery range LOCALHOST", flush=True)
-    results = {}
-    for name, (command, namespace) in subjects.items():
-        results[name] = measure(name, command, namespace, cycle, args.duration, args.rate)
-    print(f"{'subject':<10} {'sent':>7} {'answered':>9} {'p50 ms':>8} {'p99 ms':>8} "
-          f"{'max ms':>8} {'CPU %':>6} {'load':>5}")
-    for name, r in results.items():
-        if "error" in r:
-            print(f"{name:<10} did not connect (see /tmp/bench_node_{name}_{os.getpid()}.log)")
+    print(f"{'subject':<12} {'sent':>7} {'answered':>9} {'p50 ms':>8} {'p99 ms':>8} "
+          f"{'max ms':>8} {'CPU %':>6} {'CPU us':>7} {'proc ms':>8} {'load':>5}", flush=True)
+    results: dict[str, list[dict[str, float]]] = {name: [] for name in subjects}
+    for _ in range(args.rounds):
+        for name, (command, namespace, cwd) in subjects.items():
+            r = measure(name, command, namespace, cycle, args.duration, args.rate, cwd)
+            results[name].append(r)
+            print_row(name, r)
+    print("CPU %: CPU time of the subject's process per wall second (100 = one core); CPU us: "
+          "that CPU time per joint state answered (comparable when some are lost); proc ms: "
+          "the node's own processing time per message (its status latency[s], running mean); "
+          "load: the machine's 1-minute load average at the end of the window (other processes "
+          "count).")
+    for name in subjects:
+        if name == "floor":
             continue
-        lat = (f"{r['p50']:8.2f} {r['p99']:8.2f} {r['max']:8.1f}" if "p50" in r
-               else f"{'-':>8} {'-':>8} {'-':>8}")
-        print(f"{name:<10} {r['sent']:>7d} {r['answered'] * 100:8.2f}% {lat} {r['cpu']:6.1f} "
-              f"{r['load']:5.2f}")
-    print("CPU %: CPU time of the subject's process per wall second (100 = one core); load: the"
-          " machine's 1-minute load average at the end of the window (other processes count).")
-    fl, es = results.get("floor", {}), results.get("estimator", {})
-    if "p50" in fl and "p50" in es:
-        print(f"estimator vs floor: answered {es['answered'] * 100:.2f} % (target >= 99.9 %), "
-              f"p50 +{es['p50'] - fl['p50']:.2f} ms (target <= 0.3 ms), p99 "
-              f"{es['p99'] / fl['p99']:.2f}x (target <= 1.5x), CPU {es['cpu']:.1f} % of a core "
-              "(target <= 50 %)")
-    if "processing" in results.get("estimator", {}):
-        print(f"estimator's own processing time per message (status latency[s], running mean): "
-              f"{results['estimator']['processing']:.3f} ms")
+        for fl, es in zip(results["floor"], results[name]):
+            if "p50" in fl and "p50" in es:
+                print(f"{name} vs floor: answered {es['answered'] * 100:.2f} % (target >= 99.9 "
+                      f"%), p50 +{es['p50'] - fl['p50']:.2f} ms (target <= 0.3 ms), p99 "
+                      f"{es['p99'] / fl['p99']:.2f}x (target <= 1.5x), CPU {es['cpu']:.1f} % "
+                      "of a core (target <= 50 %)")
     return 0
 
 

@@ -17,6 +17,7 @@ PLAN = {
     "bench_pipeline.py": ["--samples", "4000", "--memory-minutes", "10"],
     "bench_environment.py": [],
     "bench_accuracy.py": [],
+    "bench_node_callback.py": [],
     "bench_node.py": ["--duration", "60"],
     "bench_replay.py": ["--minutes", "10"],
 }
