@@ -53,6 +53,7 @@ from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
 
 from . import node_params
+from .compiled import CACHE_DIR, warm_up
 from .health import ERROR, STALE, WARN
 from .model import ModelError
 from .node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
@@ -623,6 +624,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             warning = node_params.unmatched_file_warning(path, node.get_fully_qualified_name())
             if warning:
                 node.get_logger().warning(warning)
+        # the compiled arithmetic loaded (or, on a machine's first run, compiled) before the
+        # first joint state, not while handling it
+        node.get_logger().info(f"compiled arithmetic ready in {warm_up():.1f} s "
+                               f"(cache {CACHE_DIR})")
         executor = make_executor()
         executor.add_node(node)
         while rclpy.ok():
