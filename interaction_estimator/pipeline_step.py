@@ -69,7 +69,8 @@ PS_FRICTION_EPS = _P + 20   # rad/s, friction.smoothing_velocity
 PS_PRIOR_MEAN = _P + 21     # 21..24 filter.initial_mean
 PS_PRIOR_STD = _P + 25      # 25..28 filter.initial_std
 PS_PRIOR_MEASUREMENT_STD = _P + 29  # N, filter.measurement_std
-S_SIZE = _P + 30
+PS_LAST_VALID = _P + 30     # s, stamp of the last sample that passed validation (NaN: none)
+S_SIZE = _P + 31
 
 # --- JS: per-joint rows ----------------------------------------------------------------------
 J_OBSERVER = 0              # OBSERVER_ROWS rows
@@ -123,7 +124,7 @@ PHASES = ("learning_bias", "free", "contact")
 EV_NONE, EV_RESTARTED, EV_BEGIN, EV_END, EV_RESUMED, EV_CHANGE = 0, 1, 2, 3, 4, 5
 EVENTS = ("", "observer_restarted", "contact_begin", "contact_end", "contact_resumed")
 
-STEP_DONE, STEP_NON_FINITE_WRENCH, STEP_FILTER_REFUSED = 0, 1, 2
+STEP_DONE, STEP_NON_FINITE_WRENCH, STEP_FILTER_REFUSED, STEP_INVALID_SAMPLE = 0, 1, 2, 3
 
 
 @kernel
@@ -157,14 +158,35 @@ def _gather_quiet(S, JS, dt, residual):
 
 
 @kernel
-def pipeline_step(S, JS, P3, KB, W, out, t, v, effort, M, C, g, J, H):
-    """One sample through every stage (see the module docstring). t: stamp, s; v, effort (nv,)
-    in model order; M (nv, nv), C (nv, nv) Coriolis matrix, g (nv,), J (6, nv) world-aligned
-    contact Jacobian, H (4, 4) contact-frame pose, all from Pinocchio.
+def _valid(S, t, q, v, effort):
+    """The checks of samples.SampleValidator that need the numbers (finite stamp, positions,
+    velocities and efforts; stamp after the last valid one); on success the stamp is kept."""
+    last = S[PS_LAST_VALID]
+    if not math.isfinite(t) or t <= last:
+        return False
+    for x in q:
+        if not math.isfinite(x):
+            return False
+    for j in range(v.shape[0]):
+        if not (math.isfinite(v[j]) and math.isfinite(effort[j])):
+            return False
+    S[PS_LAST_VALID] = t
+    return True
 
-    Returns STEP_DONE (``out`` filled), STEP_NON_FINITE_WRENCH (the wrench came out non-finite)
-    or STEP_FILTER_REFUSED (the filter refused its input, out[O_ROW:O_ROW + 6], with the code
-    in out[O_UPDATED])."""
+
+@kernel
+def pipeline_step(S, JS, P3, KB, W, out, t, q, v, effort, M, C, g, J, H):
+    """One sample through every stage (see the module docstring). t: stamp, s; q (nq,)
+    configuration, v, effort (nv,) in model order; M (nv, nv), C (nv, nv) Coriolis matrix,
+    g (nv,), J (6, nv) world-aligned contact Jacobian, H (4, 4) contact-frame pose, all from
+    Pinocchio.
+
+    Returns STEP_DONE (``out`` filled), STEP_INVALID_SAMPLE (a non-finite number or a stamp
+    not after the last valid one: nothing changed; samples.SampleValidator says which),
+    STEP_NON_FINITE_WRENCH (the wrench came out non-finite) or STEP_FILTER_REFUSED (the filter
+    refused its input, out[O_ROW:O_ROW + 6], with the code in out[O_UPDATED])."""
+    if not _valid(S, t, q, v, effort):
+        return STEP_INVALID_SAMPLE
     nv = v.shape[0]
     obs = S[S_OBSERVER:S_OBSERVER + OBSERVER_SIZE]
     bias_sc = S[S_BIAS:S_BIAS + BIAS_SIZE]
