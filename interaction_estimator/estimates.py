@@ -12,6 +12,7 @@ acceleration_along, mass, damping, stiffness, static_force``, the four ``*_std``
 from __future__ import annotations
 
 import math
+import struct
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Sequence
@@ -79,15 +80,22 @@ def estimate_row(e: Any) -> list[float]:
             e.contact_level, e.jacobian_condition, e.bias_age, e.kinematics_lag]
 
 
+# one row of the table as bytes: native float64, as numpy stores it
+_ROW = struct.Struct(f"={len(_NUMERIC)}d")
+
+
 class EstimateTable:
     """Rows of estimates, kept as a growing float array plus the state words.
 
     ``append(estimate)`` per processed sample; ``columns()`` -> {name: array (N,)} (``state``
     as an array of str). Missing columns (the node's messages do not carry them all) are NaN.
+    A row is written into the array by one ``struct.pack_into`` of its numbers (half the cost
+    of numpy converting the list).
     """
 
     def __init__(self, capacity: int = 1024):
         self._data = np.empty((max(capacity, 16), len(_NUMERIC)))
+        self._bytes = memoryview(self._data).cast("B")
         self._states: list[str] = []
         self._n = 0
 
@@ -95,16 +103,22 @@ class EstimateTable:
         return self._n
 
     def append(self, e: Any) -> None:
+        """One row from an Estimate (:func:`estimate_row`, and its state word)."""
         self.append_values(estimate_row(e), e.state)
 
     def append_values(self, row: Sequence[float], state: str) -> None:
-        if self._n == len(self._data):
+        """One row: the numeric columns in :data:`_NUMERIC` order, and the state word."""
+        n = self._n
+        if n == len(self._data):
             grown = np.empty((2 * len(self._data), self._data.shape[1]))
-            grown[:self._n] = self._data
-            self._data = grown
-        self._data[self._n] = row
+            grown[:n] = self._data
+            self._data, self._bytes = grown, memoryview(grown).cast("B")
+        try:
+            _ROW.pack_into(self._bytes, n * _ROW.size, *row)
+        except struct.error:   # a value that is no Python number: as numpy converts it
+            self._data[n] = row
         self._states.append(state)
-        self._n += 1
+        self._n = n + 1
 
     def columns(self) -> dict[str, np.ndarray]:
         data = self._data[:self._n]
@@ -126,58 +140,255 @@ class EstimateTable:
         return t
 
 
-# 17 significant digits read back bit-identical (IEEE 754 binary64), like repr, at about half
-# repr's cost (repr searches for the shortest such text)
+# --------------------------------------------------------------------------------------------
+# CSV text
+#
+# Every float is written as Python's "%.17g" writes it: 17 significant digits, correctly rounded
+# (ties to even), which read back bit-identical (IEEE 754 binary64). Python's correctly rounded
+# conversion costs about 1 us per value, which made the CSV the largest cost of a replay after
+# the pipeline; _g17_bytes makes the same text for a whole column with numpy arithmetic that is
+# exact (an error-free product, Dekker 1971), and hands the few values it does not cover (NaN,
+# infinities, zeros, |x| < 1e-6 or >= 1e17) to Python's own "%.17g".
+
 _FLOAT_TEXT = "%.17g".__mod__
+_SPLIT = 134217729.0                                   # 2**27 + 1, Veltkamp's splitting factor
+_POW10 = np.array([float(10 ** k) for k in range(23)])  # exact in binary64 up to 1e22
+_POW10_HI = _POW10 * _SPLIT - (_POW10 * _SPLIT - _POW10)
+_POW10_LO = _POW10 - _POW10_HI
+_E_MIN, _E_MAX = -6, 16       # decimal exponents handled by numpy (10**(16 - e) is exact)
+_WIDTH = 24                   # longest "%.17g" text: -d.dddddddddddddddde-ddd
+# Each value's characters are gathered from a 32-byte source row: bytes 0-13 the constant
+# characters below, byte 14 a zero byte (the padding after a text), byte 15 the first digit,
+# bytes 16-31 the other 16 digits (four groups of four, made by table as little-endian 32-bit
+# words). Texts are zero padded to a common width; the CSV rows are the fields side by side,
+# separators included, with the zero bytes deleted (no text holds one).
+_CONST = b"-.e+0123456789"
+_PAD = 14
+_FIRST = 15
+_CONST_WORDS = np.frombuffer(_CONST + b"\0\0", "<u4")            # (4,)
+_QUAD = np.frombuffer(b"".join(b"%04d" % i for i in range(10000)), "<u4")
+_QUAD_ZEROS = np.array([len(s) - len(s.rstrip("0")) for s in ("%04d" % i for i in range(10000))],
+                       np.int64)                                   # trailing zeros per group
 
 
-_INTEGER_TEXT = {float(i): str(i) for i in range(4)}   # flags 0/1 and levels 0-3
+def _layout(negative: bool, e: int, nd: int) -> list[int]:
+    """Source bytes (see :data:`_CONST`, :data:`_FIRST`) of the "%.17g" text of a
+    value with that sign, decimal exponent ``e`` (value = d.ddd... * 10**e) and ``nd``
+    significant digits left after dropping trailing zeros (the "g" style: exponent form when
+    e < -4 or e >= 17, else positional, no trailing zeros, no lone point)."""
+    def c(ch: str) -> int:
+        return _CONST.index(ch.encode())
 
+    def digits(a: int, b: int) -> list[int]:
+        return list(range(_FIRST + a, _FIRST + b))
 
-def _integer_texts(values: np.ndarray) -> list[str]:
-    """Integer column text; NaN (not reported) -> empty field."""
-    out = list(map(_INTEGER_TEXT.get, values.tolist()))
-    if None in out:   # NaN, or an integer outside 0-3
-        out = ["" if v != v else str(int(v)) for v in values.tolist()]
+    out = [c("-")] if negative else []
+    if -4 <= e < 17:
+        if e >= 0:
+            out += digits(0, e + 1)
+            if nd > e + 1:
+                out += [c(".")] + digits(e + 1, nd)
+        else:
+            out += [c("0"), c(".")] + [c("0")] * (-e - 1) + digits(0, nd)
+    else:
+        out += digits(0, 1) + ([c(".")] + digits(1, nd) if nd > 1 else [])
+        out += [c("e"), c("-" if e < 0 else "+")] + [c(ch) for ch in "%02d" % abs(e)]
     return out
 
 
-def _float_texts(values: np.ndarray) -> list[str]:
-    """Float column text, each distinct run of equal values formatted once: many columns hold
-    still for long stretches (parameters out of contact, the direction, NIS bounds)."""
+def _layouts() -> tuple[np.ndarray, np.ndarray]:
+    count = 2 * (_E_MAX - _E_MIN + 1) * 18
+    idx = np.full((count, _WIDTH), _PAD, np.int32)
+    lens = np.zeros(count, np.intp)
+    for neg in (0, 1):
+        for e in range(_E_MIN, _E_MAX + 1):
+            for nd in range(1, 18):
+                code = (neg * (_E_MAX - _E_MIN + 1) + e - _E_MIN) * 18 + nd
+                cols = _layout(bool(neg), e, nd)
+                idx[code, :len(cols)] = cols
+                lens[code] = len(cols)
+    return idx, lens
+
+
+_LAYOUT_IDX, _LAYOUT_LEN = _layouts()
+
+
+def _scaled(a: np.ndarray, e: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """a * 10**(16 - e) rounded to an integer, ties to even (a > 0, -6 <= e <= 16), and
+    whether that exact product lies below 1e16 or at or above 1e17 (e then is wrong by one).
+
+    The product is exact as hi + lo (Dekker's two-product; 10**k is exact for k <= 22); hi is
+    a whole number wherever the product is in range (>= 2**53)."""
+    k = 16 - e
+    ph, pl = _POW10_HI[k], _POW10_LO[k]
+    hi = a * _POW10[k]
+    c = a * _SPLIT
+    ah = c - (c - a)
+    al = a - ah
+    lo = al * pl - (((hi - ah * ph) - al * ph) - ah * pl)
+    low = (hi < 1e16) | ((hi == 1e16) & (lo < 0))
+    high = (hi > 1e17) | ((hi == 1e17) & (lo >= 0))
+    whole = np.floor(lo)
+    frac = lo - whole
+    d = hi.astype(np.int64) + whole.astype(np.int64)
+    d += (frac > 0.5) | ((frac == 0.5) & ((d & 1) == 1))
+    return d, low, high
+
+
+def _trailing_zeros(groups: Sequence[np.ndarray]) -> np.ndarray:
+    """Trailing zeros of the 16 digits held in four groups of four (n,) each."""
+    tz = _QUAD_ZEROS[groups[3]]
+    more = groups[3] == 0
+    for g in (groups[2], groups[1], groups[0]):
+        tz += more * _QUAD_ZEROS[g]
+        more &= g == 0
+    return tz
+
+
+def _text_bytes(texts: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
+    """Texts as a (n, w) uint8 matrix (zero padded) and their lengths (n,) in bytes."""
+    enc = [t.encode() for t in texts]
+    arr = np.array(enc, dtype=bytes) if enc else np.zeros(0, "S1")
+    w = max(arr.dtype.itemsize, 1)
+    return (arr.view(np.uint8).reshape(len(enc), w),
+            np.fromiter(map(len, enc), np.intp, len(enc)))
+
+
+def _g17_bytes(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The text of ``"%.17g" % v`` for each v of x (float64 (n,)), as a (n, w) uint8 matrix
+    (zero padded) and lengths (n,)."""
+    n = len(x)
+    a = np.abs(x)
+    fast = (a >= 1e-6) & (a < 1e17)           # False for NaN
+    a[~fast] = 1.0
+    e = np.floor(np.log10(a)).astype(np.int64)
+    np.clip(e, _E_MIN, _E_MAX, out=e)
+    d, low, high = _scaled(a, e)
+    wrong = np.flatnonzero(low | high)        # log10 rounded across a power of ten
+    if len(wrong):
+        e[wrong] += np.where(high[wrong], 1, -1)
+        out_of_range = (e[wrong] < _E_MIN) | (e[wrong] > _E_MAX)
+        fast[wrong[out_of_range]] = False
+        e[wrong[out_of_range]] = 0
+        redo = wrong[~out_of_range]
+        d[redo], low2, high2 = _scaled(a[redo], e[redo])
+        fast[redo[low2 | high2]] = False      # cannot happen; Python formats it if it does
+    carry = d == 10 ** 17                     # rounded up to the next power of ten
+    if carry.any():
+        d[carry] = 10 ** 16
+        e[carry] += 1
+        over = carry & (e > _E_MAX)
+        fast[over] = False
+        e[over] = 0
+    slow = np.flatnonzero(~fast)
+    d[slow] = 10 ** 16
+    # the 17 digits: the first, then four groups of four by table
+    upper = d // 100_000_000
+    lower = (d - upper * 100_000_000).astype(float)
+    upper = upper.astype(float)
+    first = np.floor(upper / 1e8)
+    rest = upper - first * 1e8
+    g1 = np.floor(rest / 1e4)
+    g3 = np.floor(lower / 1e4)
+    groups = [g.astype(np.intp) for g in (g1, rest - g1 * 1e4, g3, lower - g3 * 1e4)]
+    src = np.empty((n, 8), "<u4")
+    src[:, :4] = _CONST_WORDS
+    src[:, 3] |= (first.astype(np.uint32) + 48) << 24
+    for j, g in enumerate(groups):
+        src[:, 4 + j] = _QUAD[g]
+    nd = 17 - _trailing_zeros(groups)         # digits left without trailing zeros
+    code = (np.signbit(x) * (_E_MAX - _E_MIN + 1) + (e - _E_MIN)) * 18 + nd
+    lens = _LAYOUT_LEN[code]
+    width = int(lens.max()) if n else 1
+    flat = _LAYOUT_IDX[code, :width]
+    flat += (np.arange(n, dtype=np.int32) * 32)[:, None]   # in place: a new array costs more
+    out = src.view(np.uint8).ravel().take(flat)
+    if len(slow):
+        texts, tlens = _text_bytes(list(map(_FLOAT_TEXT, x[slow].tolist())))
+        if texts.shape[1] > width:
+            out = np.concatenate([out, np.zeros((n, texts.shape[1] - width), np.uint8)], 1)
+            width = texts.shape[1]
+        out[slow] = 0
+        out[slow, :texts.shape[1]] = texts
+        lens[slow] = tlens
+    return out, lens
+
+
+def _float_bytes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Float column text (:func:`_g17_bytes`), each run of equal values formatted once when
+    runs are long (parameters out of contact, the direction, NIS bounds hold still)."""
     n = len(values)
-    if n == 0:
-        return []
-    bits = np.ascontiguousarray(values, dtype=float).view(np.uint64)  # 0.0 and -0.0 differ
+    bits = values.view(np.uint64)            # compared by bit pattern: 0.0 and -0.0 differ
     starts = np.flatnonzero(np.concatenate(([True], bits[1:] != bits[:-1])))
-    if len(starts) > n // 4:   # mostly changing: format every value
-        return list(map(_FLOAT_TEXT, values.tolist()))
-    texts = np.array(list(map(_FLOAT_TEXT, values[starts].tolist())), dtype=object)
-    return texts.repeat(np.diff(np.append(starts, n))).tolist()
+    if len(starts) > n // 4:
+        return _g17_bytes(values)
+    out, lens = _g17_bytes(values[starts])
+    run = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, n)))
+    return out[run], lens[run]
 
 
-def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 20000) -> None:
-    """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats written with
-    17 significant digits (they read back bit-identical), flags and levels as integers (empty where a
-    source did not report them). Written column-wise in chunks of ``chunk`` rows: each column's
-    text is made by one ``map`` over its values (or over its runs of equal values), which is
-    several times faster than formatting row by row, and memory stays bounded by the chunk."""
+def _integer_bytes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Integer column text (flags 0/1, levels 0-3); NaN (not reported) -> empty field."""
+    small = (values >= 0) & (values <= 3) & (values == np.floor(values))
+    nan = np.isnan(values)
+    out = (np.where(small, values, 0).astype(np.uint8) + 48)[:, None]
+    out[nan] = 0
+    lens = np.ones(len(values), np.intp)
+    lens[nan] = 0
+    other = np.flatnonzero(~small & ~nan)
+    if len(other):
+        texts, tlens = _text_bytes([str(int(v)) for v in values[other].tolist()])
+        out = np.concatenate([out, np.zeros((len(values), texts.shape[1] - 1), np.uint8)], 1)
+        out[other, :texts.shape[1]] = texts
+        lens[other] = tlens
+    return out, lens
+
+
+def _word_bytes(words: Sequence[Any]) -> tuple[np.ndarray, np.ndarray]:
+    """Text column (the state word): each distinct word encoded once."""
+    words = list(words)
+    code = {w: i for i, w in enumerate(set(words))}
+    out, lens = _text_bytes([str(w) for w in code])
+    index = np.fromiter(map(code.__getitem__, words), np.intp, len(words))
+    return out[index], lens[index]
+
+
+def _join_fields(fields: Sequence[tuple[np.ndarray, np.ndarray]]) -> bytes:
+    """Rows of comma-separated fields, each row ended by a newline, from the fields' zero-padded
+    byte matrices: side by side with the separators, then the zero bytes deleted."""
+    m = len(fields[0][1])
+    total = sum(f.shape[1] + 1 for f, _ in fields)
+    text = np.empty((m, total), np.uint8)
+    at = 0
+    for j, (f, _) in enumerate(fields):
+        w = f.shape[1]
+        text[:, at:at + w] = f
+        text[:, at + w] = ord("\n") if j == len(fields) - 1 else ord(",")
+        at += w + 1
+    return text.tobytes().translate(None, b"\0")
+
+
+def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 8192) -> None:
+    """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats as Python's
+    ``"%.17g"`` writes them (17 significant digits: they read back bit-identical), flags and
+    levels as integers (empty where a source did not report them). Written column-wise in
+    chunks of ``chunk`` rows, the text of each column made by numpy for all its values at once
+    (or for its runs of equal values); memory stays bounded by the chunk."""
     n = len(cols["time"])
     states = cols["state"]
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        fh.write(",".join(COLUMN_NAMES) + "\n")
+    with open(path, "wb") as fh:
+        fh.write((",".join(COLUMN_NAMES) + "\n").encode())
         for lo in range(0, n, chunk):
             hi = min(lo + chunk, n)
-            texts = []
+            fields = []
             for c in COLUMN_NAMES:
                 if c == "state":
-                    texts.append([str(x) for x in states[lo:hi]])
+                    fields.append(_word_bytes(states[lo:hi]))
                     continue
-                values = np.asarray(cols[c][lo:hi], dtype=float)
-                texts.append(_integer_texts(values) if c in _INTEGER_COLUMNS
-                             else _float_texts(values))
-            fh.write("\n".join(map(",".join, zip(*texts))))
-            fh.write("\n")
+                values = np.ascontiguousarray(cols[c][lo:hi], dtype=float)
+                fields.append(_integer_bytes(values) if c in _INTEGER_COLUMNS
+                              else _float_bytes(values))
+            fh.write(_join_fields(fields))
 
 
 def read_csv(path: Path) -> dict[str, np.ndarray]:
@@ -239,7 +450,7 @@ def force_errors(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> 
     rows, refs = match_reference(cols, ref)
     est = np.column_stack([cols["force_x"], cols["force_y"], cols["force_z"]])[rows]
     err = np.linalg.norm(est - ref.force[refs], axis=1)
-    learning = np.array([s == "learning_bias" for s in cols["state"][rows]], bool)
+    learning = np.asarray(cols["state"], dtype=object)[rows] == "learning_bias"
     contact = cols["in_contact"][rows] > 0.5
     after = ~learning
 
@@ -290,12 +501,12 @@ def summarize(cols: Mapping[str, np.ndarray], *, truth: Mapping[str, float] | No
         params[p] = entry
     all_t = _first_time(cols["converged"], t) if n else None
     duration = float(t[-1] - t[0]) if n > 1 else 0.0
-    states = list(cols["state"])
+    states = np.asarray(cols["state"], dtype=object)
     time_in_state: dict[str, float] = {}
     if n > 1:
         dts = np.diff(t, append=t[-1])
         for s in STATES:
-            mask = np.array([x == s for x in states])
+            mask = states == s
             if mask.any():
                 time_in_state[s] = float(dts[mask].sum())
     run: dict[str, Any] = {

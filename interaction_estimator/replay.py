@@ -290,8 +290,15 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
     process = pipeline.process
     read = 0
     first_t = None
-    for sample in bag.samples(settings["input.stamp_tolerance"],
-                              True if settings["input.separate_efforts"] else None):
+    samples = bag.samples(settings["input.stamp_tolerance"],
+                          True if settings["input.separate_efforts"] else None)
+    if on_estimate is None and progress is None:   # nothing else to do per sample
+        for read, sample in enumerate(samples, 1):
+            est = process(sample)
+            if est is not None:
+                append(est)
+        return table, read
+    for sample in samples:
         if read == 0:
             first_t = sample.time
         read += 1

@@ -9,8 +9,9 @@ the normalized innovation squared (NIS) average with its 95 % bounds.
 Every number in the tables comes from the summary dictionary that is also written as
 summary.json: each cell carries ``data-key`` (its dotted path in the summary) and ``data-value``
 (the exact JSON value), and shows the value rounded for reading. Plots are drawn with
-matplotlib's SVG backend; long runs are thinned per pixel column (minimum and maximum kept) so
-the file stays small.
+matplotlib's SVG backend; long runs are thinned (per span of samples the first one, the
+minimum and the maximum are kept) so that the file stays small, and the figure's caption then
+says so.
 """
 from __future__ import annotations
 
@@ -141,26 +142,34 @@ def run_table(summary: Mapping[str, Any]) -> str:
 def _thin(t: np.ndarray, *ys: np.ndarray, points: int = _MAX_POINTS
           ) -> tuple[np.ndarray, ...]:
     """Keep at most about ``points`` samples: per bucket the first sample plus, for the first
-    series, its minimum and maximum (so short spikes stay visible)."""
+    series, its minimum and maximum (so short spikes stay visible; NaN ignored, buckets
+    without a finite value keep their first sample only)."""
     n = len(t)
     if n <= points:
         return (t, *ys)
-    buckets = points // 3
-    edges = np.linspace(0, n, buckets + 1).astype(int)
-    keep = []
-    y0 = ys[0] if ys else None
-    for a, b in zip(edges[:-1], edges[1:]):
-        if b <= a:
-            continue
-        keep.append(a)
-        if y0 is not None:
-            seg = y0[a:b]
-            if np.isfinite(seg).any():
-                keep.append(a + int(np.nanargmin(seg)))
-                keep.append(a + int(np.nanargmax(seg)))
-    keep.append(n - 1)
-    idx = np.unique(np.array(keep))
+    starts = np.unique(np.linspace(0, n, points // 3 + 1).astype(int)[:-1])
+    keep = [starts, [n - 1]]
+    if ys:
+        y = ys[0]
+        sizes = np.diff(np.append(starts, n))
+        bucket = np.repeat(np.arange(len(starts)), sizes)
+        finite = np.logical_or.reduceat(np.isfinite(y), starts)
+        for extreme in (np.fmin.reduceat(y, starts), np.fmax.reduceat(y, starts)):
+            at = np.flatnonzero(y == extreme[bucket])    # first occurrence per bucket
+            first = at[np.concatenate(([True], bucket[at[1:]] != bucket[at[:-1]]))]
+            keep.append(first[finite[bucket[first]]])
+    idx = np.unique(np.concatenate(keep))
     return (t[idx], *(y[idx] for y in ys))
+
+
+def thinning_note(n: int, tables: bool = True, points: int = _MAX_POINTS) -> str:
+    """The sentence a figure's caption gets when :func:`_thin` drew its lines from only some of
+    their ``n`` samples (empty when it drew them all); ``tables``: add that the tables do not."""
+    if n <= points:
+        return ""
+    return (f" Lines thinned for drawing: of the {n:,} samples, each of {points // 3} equal "
+            "spans keeps its first sample and its smallest and largest value (about "
+            f"{points:,} points per line)." + (" The tables use every sample." if tables else ""))
 
 
 def _figure(rows: int, cols: int, height: float, bottom: float = 0.5, hspace: float = 0.45):
@@ -248,14 +257,19 @@ def parameter_figure(cols: Mapping[str, np.ndarray], summary: Mapping[str, Any])
     return _svg(fig)
 
 
-def _runs(values: Sequence[Any]) -> list[tuple[int, int, Any]]:
-    """(start, end, value) of each run of equal values."""
-    out, start = [], 0
-    for i in range(1, len(values) + 1):
-        if i == len(values) or values[i] != values[start]:
-            out.append((start, i, values[start]))
-            start = i
-    return out
+def _runs(codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(start (k,), end (k,)) of each run of equal values of ``codes`` (n,): end exclusive."""
+    n = len(codes)
+    change = np.flatnonzero(codes[1:] != codes[:-1]) + 1
+    return np.concatenate(([0], change)), np.concatenate((change, [n]))
+
+
+def _level_names(level: np.ndarray) -> np.ndarray:
+    """Level names (n,) from the level column (n,): OK, WARN, ERROR, STALE, or ? where the
+    value is not a level."""
+    code = np.trunc(np.where(np.isfinite(level), level, -1.0))
+    code = np.where((code >= 0) & (code < len(LEVEL_NAMES)), code, len(LEVEL_NAMES))
+    return np.array([*LEVEL_NAMES, "?"], dtype=object)[code.astype(int)]
 
 
 def health_figure(cols: Mapping[str, np.ndarray]) -> str:
@@ -264,20 +278,21 @@ def health_figure(cols: Mapping[str, np.ndarray]) -> str:
     fig, axes = _figure(1, 1, 2.1, bottom=0.95)
     ax = axes[0, 0]
     end = np.append(t[1:], t[-1]) - t0 if len(t) else t
-    states = list(cols["state"])
-    levels = [LEVEL_NAMES[int(x)] if math.isfinite(x) and 0 <= int(x) < 4 else "?"
-              for x in cols["level"]]
+    states = np.asarray(cols["state"], dtype=object)
     seen_states, seen_levels = [], []
-    for a, b, s in _runs(states):
-        colour = STATE_COLOURS.get(s, "#cccccc")
-        ax.broken_barh([(t[a] - t0, end[b - 1] - (t[a] - t0))], (1.1, 0.8), color=colour)
-        if s not in seen_states:
-            seen_states.append(s)
-    for a, b, lev in _runs(levels):
-        ax.broken_barh([(t[a] - t0, end[b - 1] - (t[a] - t0))], (0.1, 0.8),
-                       color=LEVEL_COLOURS.get(lev, "#cccccc"))
-        if lev not in seen_levels:
-            seen_levels.append(lev)
+    for words, colours, seen, y in ((states, STATE_COLOURS, seen_states, 1.1),
+                                    (_level_names(cols["level"]), LEVEL_COLOURS, seen_levels,
+                                     0.1)):
+        if not len(t):
+            continue
+        a, b = _runs(words)
+        left = t[a] - t0
+        runs = words[a].tolist()
+        # one collection of bars, in time order (a later bar is drawn over an earlier one
+        # where both fall on the same pixel)
+        ax.broken_barh(list(zip(left.tolist(), (end[b - 1] - left).tolist())), (y, 0.8),
+                       color=[colours.get(w, "#cccccc") for w in runs])
+        seen += list(dict.fromkeys(runs))
     ax.set_yticks([0.5, 1.5], ["level", "state"])
     ax.set_ylim(0, 2)
     ax.grid(False)
@@ -293,13 +308,19 @@ def health_figure(cols: Mapping[str, np.ndarray]) -> str:
     return _svg(fig)
 
 
+def _nis_used(cols: Mapping[str, np.ndarray]) -> np.ndarray:
+    """Samples (n,) bool with a filter consistency figure to plot."""
+    avg, hi = cols["nis_average"], cols["nis_upper"]
+    return np.isfinite(avg) & np.isfinite(hi) & (avg > 0)
+
+
 def nis_figure(cols: Mapping[str, np.ndarray]) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
     fig, axes = _figure(1, 1, 2.6)
     ax = axes[0, 0]
     avg, lo, hi = cols["nis_average"], cols["nis_lower"], cols["nis_upper"]
-    used = np.isfinite(avg) & np.isfinite(hi) & (avg > 0)
+    used = _nis_used(cols)
     if used.any():
         tt, a, lw, up = _thin(t[used] - t0, avg[used], lo[used], hi[used])
         ax.fill_between(tt, lw, up, color=BOUNDS, alpha=0.2, lw=0, label="95 % bounds")
@@ -398,18 +419,23 @@ def build_report(summary: Mapping[str, Any], cols: Mapping[str, np.ndarray],
         force_figure(cols, reference),
         "<figcaption>Force the robot applies to the object, world frame, N: each sample "
         f"(light), its {SMOOTHING_WINDOW * 1e3:.0f} ms trailing mean (for reading only; the "
-        "tables use every sample) and the reference.</figcaption>"
+        "tables use every sample) and the reference."
+        + thinning_note(len(cols["time"]) if reference is None
+                        else max(len(cols["time"]), len(reference.time)), tables=False)
+        + "</figcaption>"
         "</figure></section>",
         '<section><h2>Parameters</h2><figure id="fig-parameters">',
         parameter_figure(cols, summary),
         "<figcaption>Estimate with its \u00b12 standard-deviation band; dashed: the "
-        "truth, where known.</figcaption></figure></section>",
+        "truth, where known." + thinning_note(len(cols["time"]))
+        + "</figcaption></figure></section>",
         '<section><h2>Health</h2><figure id="fig-health">', health_figure(cols),
         "<figcaption>Upper band: the health state word; lower band: the level "
         "(OK, WARN, ERROR, STALE).</figcaption></figure></section>",
         '<section><h2>Filter consistency</h2><figure id="fig-nis">', nis_figure(cols),
         "<figcaption>Average NIS over the filter's window against its two-sided 95 % "
-        "chi-square interval; inside the band the noise model fits.</figcaption>"
+        "chi-square interval; inside the band the noise model fits."
+        + thinning_note(int(np.count_nonzero(_nis_used(cols)))) + "</figcaption>"
         "</figure></section>",
         f"<footer><p>Settings changed from the defaults: {html.escape(settings_text)}.</p>"
         f"<p>URDF: {html.escape(str(src.get('urdf', '?')))}. Efforts: "

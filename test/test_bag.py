@@ -80,6 +80,57 @@ def test_fast_decoder_reads_ros2_serialized_bytes():
     assert dec.fallbacks == 0
 
 
+def _stream(rng: np.random.Generator, count: int):
+    """JointStates in runs of 7 that keep their frame_id, names and array lengths (new stamps
+    and values), each run changing one of them: frame_id, a joint's name, the number of
+    joints, a missing effort or velocity array."""
+    layouts = [(3, 2, (False, False, False)), (3, 2, (False, False, True)),
+               (4, 0, (False, False, False)), (10, 5, (False, False, False)),
+               (1, 8, (False, False, False)), (10, 5, (False, True, False)),
+               (10, 6, (False, False, False))]
+    for k in range(count):
+        run = k // 7
+        n, frame_len, empty = layouts[run % len(layouts)]
+        msg = _random_joint_state(rng, n, frame_len, empty)
+        msg.name = [f"joint{i}" for i in range(n)]
+        if run % 4 == 3:   # same lengths, another name
+            msg.name[0] = "renamed"
+        yield msg
+
+
+def test_decoder_stream_with_layout_changes_equals_rosbags():
+    # reference: rosbags' generic CDR deserializer on the same bytes, message by message, with
+    # one decoder for the whole stream (it reads a message in one step when its layout repeats)
+    dec = JointStateDecoder()
+    for msg in _stream(np.random.default_rng(5), 300):
+        raw = bytes(TS.serialize_cdr(msg, JOINT_STATE))
+        ref = TS.deserialize_cdr(raw, JOINT_STATE)
+        rec = dec.decode(raw)
+        _same(rec, ref)
+        for arr in (rec.position, rec.velocity, rec.effort):
+            assert arr.dtype == np.float64 and (arr.size == 0 or arr.flags.aligned)
+    assert dec.fallbacks == 0
+    assert 100 < dec.quick < 300  # repeated layouts took the one-step read, changes did not
+
+
+def test_decoder_stream_of_ros2_serialized_bytes():
+    # reference: the messages given to ROS 2's own serializer (Fast CDR through rclpy), whose
+    # padding bytes are left undefined: equal bytes give equal values, others a full decode
+    from rclpy.serialization import serialize_message
+    from sensor_msgs.msg import JointState
+    dec = JointStateDecoder()
+    for msg in _stream(np.random.default_rng(6), 200):
+        ros = JointState()
+        ros.header.stamp.sec, ros.header.stamp.nanosec = msg.header.stamp.sec, \
+            msg.header.stamp.nanosec
+        ros.header.frame_id = msg.header.frame_id
+        ros.name = list(msg.name)
+        ros.position, ros.velocity, ros.effort = (msg.position.tolist(), msg.velocity.tolist(),
+                                                  msg.effort.tolist())
+        _same(dec.decode(serialize_message(ros)), msg)
+    assert dec.fallbacks == 0
+
+
 def test_big_endian_bytes_fall_back_to_the_generic_deserializer():
     msg = next(iter(_cases()))
     msg = _random_joint_state(np.random.default_rng(3), 4, 3, (False, False, False))
@@ -292,3 +343,164 @@ def test_writer_refuses_existing_path_and_leaves_nothing_on_error(tmp_path):
             w.write("/chatter", STRING, 0, encode_string("x"))
             raise RuntimeError("interrupted")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["exists"]
+
+
+# --------------------------------------------------------------------------------------------
+# MCAP chunks read directly, against rosbags' reader
+
+
+def _raw_bag(path, compression=None, order=None, n=9000):
+    """A bag written by rosbags' own writer (1 MiB chunks): joint states of 10 joints at 1 kHz
+    beside a second topic; ``order`` permutes the log times (out of order in a chunk, equal
+    times, overlapping chunks); ``compression``: rosbags' CompressionMode (STORAGE: zstd
+    chunks, MESSAGE: each message compressed by rosbag2)."""
+    from rosbags.rosbag2 import CompressionFormat
+    enc = JointStateEncoder()
+    names = tuple(f"joint{i}" for i in range(10))
+    rng = np.random.default_rng(1)
+    times = 1_000_000_000 + np.arange(n) * 1_000_000
+    if order is not None:
+        times = order(times)
+    w = Writer(path, version=9, storage_plugin=StoragePlugin.MCAP)
+    if compression is not None:
+        w.set_compression(compression, CompressionFormat.ZSTD)
+    with w:
+        js = w.add_connection("/joint_states", JOINT_STATE, typestore=TS)
+        other = w.add_connection("/chatter", STRING, typestore=TS)
+        for k, t in enumerate(times.tolist()):
+            w.write(js, t, enc.encode(1 + k // 1000, (k % 1000) * 1_000_000, "", names,
+                                      rng.normal(size=10), rng.normal(size=10),
+                                      rng.normal(size=10)))
+            if k % 3 == 0:
+                w.write(other, t, encode_string(f"message {k}"))
+
+
+def _swap_neighbours(times):
+    """Log times out of order inside the first chunk (it holds about 2500 messages)."""
+    out = times.copy()
+    out[100:400:2], out[101:400:2] = times[101:400:2], times[100:400:2]
+    out[500:520] = times[519:499:-1]
+    out[700:710] = out[700]   # equal log times: file order kept
+    return out
+
+
+def _late_tail(times):
+    out = times.copy()
+    out[-50:] = times[10:60]  # the last chunk reaches back into the first one's time span
+    return out
+
+
+@pytest.mark.parametrize("case,direct", [("plain", True), ("zstd chunks", True),
+                                         ("out of order", True), ("overlapping chunks", False),
+                                         ("message compression", False)])
+def test_direct_mcap_reading_equals_rosbags_reader(tmp_path, case, direct):
+    from rosbags.rosbag2 import CompressionMode, Reader
+    kind = {"plain": {}, "zstd chunks": {"compression": CompressionMode.STORAGE},
+            "out of order": {"order": _swap_neighbours},
+            "overlapping chunks": {"order": _late_tail},
+            "message compression": {"compression": CompressionMode.MESSAGE}}[case]
+    _raw_bag(tmp_path / "b", **kind)
+    with Reader(tmp_path / "b") as r:  # reference: rosbags' reader, its order and its bytes
+        conns = [c for c in r.connections if c.topic == "/joint_states"]
+        ref = [(t, bytes(raw)) for _, t, raw in r.messages(connections=conns)]
+    with RecordedBag(tmp_path / "b") as bag:
+        assert (bag._direct() is not None) == direct, case
+        if direct:
+            assert len(bag._direct()[1][0]) >= 3   # several chunks
+        mine = list(bag._topic_messages("/joint_states"))
+        samples = list(bag.samples())
+    assert len(mine) == len(ref) == 9000
+    assert mine == ref
+    # the samples are those messages, in that order (reference: rosbags' deserializer)
+    for k in (0, 1, 777, 4500, 8999):
+        m = TS.deserialize_cdr(ref[k][1], JOINT_STATE)
+        s = samples[k]
+        assert s.time == m.header.stamp.sec + m.header.stamp.nanosec * 1e-9
+        assert s.names == tuple(m.name)
+        for mine_arr, ref_arr in ((s.position, m.position), (s.velocity, m.velocity),
+                                  (s.effort, m.effort)):
+            np.testing.assert_array_equal(mine_arr, ref_arr)
+
+
+def test_damaged_chunk_is_refused_clearly(tmp_path):
+    _raw_bag(tmp_path / "b", n=3000)
+    data = next((tmp_path / "b").glob("*.mcap"))
+    raw = bytearray(data.read_bytes())
+    # a joint state's record in the first (uncompressed) chunk: MCAP Message record = opcode
+    # 0x05, u64 content length (22 bytes of header + the CDR message); its length is set far
+    # beyond the end of the chunk
+    size = len(JointStateEncoder().encode(1, 0, "", tuple(f"joint{i}" for i in range(10)),
+                                          np.zeros(10), np.zeros(10), np.zeros(10)))
+    at = raw.find(b"\x05" + (size + 22).to_bytes(8, "little"), 100_000)
+    assert 100_000 < at < 1_000_000
+    raw[at + 1:at + 9] = (10 ** 9).to_bytes(8, "little")
+    data.write_bytes(bytes(raw))
+    with pytest.raises(BagError, match=r"cannot be read past some point on '/joint_states' "
+                                       r"\(truncated or damaged\?\).*runs past"):
+        with RecordedBag(tmp_path / "b") as bag:
+            list(bag.samples())
+
+
+def test_direct_mcap_reading_checks_chunk_checksums(tmp_path):
+    # rosbags' writer leaves the chunks' CRC-32 at 0 (none); rosbag2 fills it in. Reference:
+    # zlib.crc32 of each chunk's records (the MCAP chunk CRC) and rosbags' reader, which checks
+    # it too: with the right CRCs both read the same messages, with a wrong one both refuse.
+    import zlib
+    from rosbags.rosbag2 import Reader
+    from interaction_estimator.bag import _mcap_plan
+    _raw_bag(tmp_path / "b", n=6000)
+    data = next((tmp_path / "b").glob("*.mcap"))
+    raw = bytearray(data.read_bytes())
+    chunks, _ = _mcap_plan(data)
+    for c in chunks:   # chunk record: 8 + 8 + 8 bytes, u32 CRC, u32 "" (no compression), u64
+        assert raw[c.offset - 16:c.offset - 12] == b"\0\0\0\0"
+        raw[c.offset - 16:c.offset - 12] = zlib.crc32(raw[c.offset:c.offset + c.length]
+                                                      ).to_bytes(4, "little")
+    data.write_bytes(bytes(raw))
+    with Reader(tmp_path / "b") as r:
+        conns = [c for c in r.connections if c.topic == "/joint_states"]
+        ref = [(t, bytes(m)) for _, t, m in r.messages(connections=conns)]
+    with RecordedBag(tmp_path / "b") as bag:
+        assert bag._direct() is not None
+        assert list(bag._topic_messages("/joint_states")) == ref
+    c = chunks[1]
+    raw[c.offset - 16] ^= 0xFF
+    data.write_bytes(bytes(raw))
+    with Reader(tmp_path / "b") as r, pytest.raises(Exception, match="checksum"):
+        list(r.messages(connections=conns))
+    with pytest.raises(BagError, match=r"cannot be read past some point.*checksum does not "
+                                       r"match"):
+        with RecordedBag(tmp_path / "b") as bag:
+            list(bag.samples())
+
+
+@pytest.mark.parametrize("frames", [("world",), ("odom", "base_link_long_name"), ("",)])
+def test_reference_wrenches_equal_rosbags_deserializer(tmp_path, frames):
+    # reference: rosbags' reader and deserializer, message by message; the bag's frame_ids
+    # change in runs (read as one array per run of equal layout) or every message
+    rng = np.random.default_rng(8)
+    n = 3000
+    enc = JointStateEncoder()
+    with BagWriter(tmp_path / "b") as w:
+        for k in range(n):
+            sec, nsec = 1 + k // 1000, (k % 1000) * 1_000_000 + int(rng.integers(0, 1000))
+            frame = frames[(k // 700) % len(frames)] if k % 97 else frames[-1]
+            w.write("/joint_states", JOINT_STATE, sec * 10**9 + nsec,
+                    enc.encode(sec, nsec, "", ("a",), np.zeros(1), np.zeros(1), np.ones(1)))
+            w.write("/ground_truth/wrench", WRENCH_STAMPED, sec * 10**9 + nsec,
+                    encode_wrench_stamped(sec, nsec, frame, rng.normal(size=3) * 40,
+                                          rng.normal(size=3)))
+    from rosbags.rosbag2 import Reader
+    with Reader(tmp_path / "b") as r:
+        conns = [c for c in r.connections if c.topic == "/ground_truth/wrench"]
+        msgs = [TS.deserialize_cdr(raw, WRENCH_STAMPED)
+                for _, _, raw in r.messages(connections=conns)]
+    with RecordedBag(tmp_path / "b") as bag:
+        ref = bag.reference()
+    assert ref.topic == "/ground_truth/wrench" and ref.frame_id == msgs[-1].header.frame_id
+    assert ref.time.tolist() == [m.header.stamp.sec + m.header.stamp.nanosec * 1e-9
+                                 for m in msgs]
+    np.testing.assert_array_equal(ref.force, [[m.wrench.force.x, m.wrench.force.y,
+                                               m.wrench.force.z] for m in msgs])
+    np.testing.assert_array_equal(ref.torque, [[m.wrench.torque.x, m.wrench.torque.y,
+                                                m.wrench.torque.z] for m in msgs])

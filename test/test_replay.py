@@ -235,6 +235,14 @@ def test_report_numbers_equal_summary_json(toolbox_replay):
     assert {"force.rmse_N", "force.rmse_contact_N", "run.samples_read"} <= keys
     assert page.count("<svg") == 4
     import re  # self-contained: every link or source points inside the page
+    # the plots are drawn from some of the samples, and their captions say so
+    n = summary["run"]["samples_estimated"]
+    assert n > 1500
+    captions = re.findall(r"<figcaption>(.*?)</figcaption>", page, re.S)
+    assert len(captions) == 4
+    assert [f"thinned for drawing: of the {n:,} samples" in c for c in captions[:2]] == [True,
+                                                                                          True]
+    assert "thinned" not in captions[2]   # the health timeline draws every change
     refs = re.findall(r'(?:href|src)\s*=\s*"([^"]*)"', page)
     assert all(r.startswith("#") for r in refs), [r for r in refs if not r.startswith("#")]
     assert "<script" not in page and "<link " not in page
@@ -473,3 +481,55 @@ def test_csv_text_is_every_value_formatted_on_its_own(tmp_path):
                 back = float(text)
                 assert (back != back and v != v) or (back == v and math.copysign(1, back)
                                                      == math.copysign(1, v)), (name, k)
+
+
+def test_float_text_equals_python_percent_17g():
+    """Reference: Python's own "%.17g" (its correctly rounded binary64 to decimal conversion,
+    halfway cases to even) of each value: random bit patterns (every exponent, subnormals, NaN
+    payloads), values spread over 1e-9..1e19, powers of ten and their neighbours, values that
+    round up to the next power of ten, halfway cases (18 significant digits ending in 5)."""
+    from interaction_estimator.estimates import _g17_bytes
+    rng = np.random.default_rng(3)
+    bits = rng.integers(0, 2**64 - 1, 100_000, dtype=np.uint64, endpoint=True).view(np.float64)
+    spread = 10.0 ** rng.uniform(-9, 19, 100_000) * rng.choice([-1.0, 1.0], 100_000)
+    powers = 10.0 ** np.arange(-9, 20)
+    edges = np.concatenate([powers, np.nextafter(powers, 0), np.nextafter(powers, np.inf),
+                            [(10 ** 17 - 1) / 10.0 ** q for q in range(23)]])
+    halves = (rng.integers(10 ** 14, 10 ** 15, 50_000).astype(float)
+              + rng.choice([0.125, 0.375, 0.625, 0.875], 50_000))
+    x = np.concatenate([bits, spread, edges, -edges, halves,
+                        [0.0, -0.0, np.inf, -np.inf, np.nan, 5e-324, 1e-6, 1e17, 1 / 3]])
+    text, lens = _g17_bytes(x)
+    assert [bytes(row[:k]).decode() for row, k in zip(text, lens)] == \
+        ["%.17g" % v for v in x.tolist()]
+    assert not text[np.arange(text.shape[1]) >= lens[:, None]].any()  # zero padding after
+
+
+def test_plot_thinning_keeps_each_spans_first_sample_and_extremes():
+    """Reference: per span of samples (bounds from numpy.linspace), its first sample and
+    numpy's nanargmin and nanargmax of the first series (spans without a finite value keep
+    their first sample only), plus the last sample."""
+    from interaction_estimator.report import _MAX_POINTS, _thin
+    rng = np.random.default_rng(4)
+    for n in (1501, 4000, 12345):
+        t = np.arange(n) * 1e-3
+        y = rng.normal(size=n)
+        y[rng.random(n) < 0.2] = np.nan
+        y[rng.random(n) < 0.02] = np.inf
+        y[rng.random(n) < 0.02] = -np.inf
+        y[:n // 5] = np.nan
+        y[n // 2:n // 2 + 60] = np.where(rng.random(60) < 0.5, 0.0, -0.0)
+        z = rng.normal(size=n)
+        edges = np.linspace(0, n, _MAX_POINTS // 3 + 1).astype(int)
+        keep = {n - 1}
+        for a, b in zip(edges[:-1], edges[1:]):
+            keep.add(int(a))
+            if np.isfinite(y[a:b]).any():
+                keep.update((int(a + np.nanargmin(y[a:b])), int(a + np.nanargmax(y[a:b]))))
+        idx = np.array(sorted(keep))
+        tt, yy, zz = _thin(t, y, z)
+        np.testing.assert_array_equal(tt, t[idx])
+        np.testing.assert_array_equal(yy, y[idx])
+        np.testing.assert_array_equal(zz, z[idx])
+    t = np.arange(_MAX_POINTS, dtype=float)
+    assert all(a is b for a, b in zip(_thin(t, t), (t, t)))   # short series: every sample

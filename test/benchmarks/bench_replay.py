@@ -4,11 +4,14 @@ Builds a bag of the mobile Marten (10 joints) moving for ``--minutes`` at 1 kHz,
 an invented spring-damper object from t = 2 s on (efforts by Pinocchio inverse dynamics plus the
 contact torque, with noise), then measures in the same run:
 
-  decode     reading the bag and decoding every JointState (the replay's reader and decoder),
-             and, messages in memory, that decoder beside rosbags' deserializer (20000 of them);
+  decode     reading the bag and decoding every JointState into Samples (the replay's reader
+             and decoder), and, messages in memory, that decoder (one message at a time, and a
+             chunk's worth at once as the replay reads them) beside rosbags' deserializer
+             (20000 messages);
   floor      decode plus the Pinocchio calls alone (RobotModel.joint_map + dynamics per sample);
-  replay     the whole ``replay`` (pipeline, estimates.csv, summary.json, report.html), and its
-             pipeline loop alone.
+  replay     the whole ``replay`` (pipeline, estimates.csv, summary.json, report.html), its
+             pipeline loop alone, and what the whole replay spent after its loop (the three
+             files).
 
 Figures: wall seconds, microseconds per sample, times real time, ratio to the floor.
 Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR]
@@ -78,9 +81,10 @@ def decode_pass(path: Path) -> float:
     return time.perf_counter() - t0
 
 
-def decoders(path: Path, limit: int = 20000) -> tuple[float, float]:
+def decoders(path: Path, limit: int = 20000) -> tuple[float, float, float]:
     """Microseconds per JointState, messages already in memory (the first ``limit``): the
-    replay's CDR decoder, and rosbags' generic deserializer."""
+    replay's CDR decoder one message at a time, the same on batches of 2000 messages, and
+    rosbags' generic deserializer."""
     ts = typestore()
     with RecordedBag(path) as bag:
         raws = []
@@ -93,10 +97,15 @@ def decoders(path: Path, limit: int = 20000) -> tuple[float, float]:
     for raw in raws:
         dec.decode(raw)
     fast = (time.perf_counter() - t0) / len(raws) * 1e6
+    dec = JointStateDecoder()
+    t0 = time.perf_counter()
+    for k in range(0, len(raws), 2000):
+        dec.fields_many(raws[k:k + 2000])
+    batch = (time.perf_counter() - t0) / len(raws) * 1e6
     t0 = time.perf_counter()
     for raw in raws:
         ts.deserialize_cdr(raw, JOINT_STATE)
-    return fast, (time.perf_counter() - t0) / len(raws) * 1e6
+    return fast, batch, (time.perf_counter() - t0) / len(raws) * 1e6
 
 
 def floor_pass(path: Path) -> float:
@@ -134,25 +143,29 @@ def main(argv: list[str] | None = None) -> None:
               f"built in {time.perf_counter() - t0:.1f} s")
         settings = Settings({"direction.mode": "world", "direction.vector": [1.0, 0.0, 0.0]})
         decode = decode_pass(bag)
-        fast, generic = decoders(bag)
+        fast, batch, generic = decoders(bag)
         floor = floor_pass(bag)
         loop = loop_pass(bag, settings)
         t0 = time.perf_counter()
         params = work / "params.yaml"
         params.write_text("/**:\n  ros__parameters:\n    direction:\n      mode: world\n"
                           "      vector: [1.0, 0.0, 0.0]\n")
-        replay(ReplayRequest(bag, work / "out", params=params, progress=False))
+        result = replay(ReplayRequest(bag, work / "out", params=params, progress=False))
         full = time.perf_counter() - t0
+        outputs = full - result.summary["run"]["wall_time_s"]
 
         def row(label: str, wall: float) -> str:
             return (f"{label:<34}{wall:9.1f} s {wall / n * 1e6:9.1f} us/sample "
                     f"{duration / wall:8.1f}x real time {wall / floor:7.2f}x floor")
-        print(f"JointState decoding, messages in memory: replay's decoder {fast:.1f} us, "
-              f"rosbags deserializer {generic:.1f} us per message")
+        print(f"JointState decoding, messages in memory: replay's decoder {fast:.1f} us one at "
+              f"a time, {batch:.1f} us in batches; rosbags deserializer {generic:.1f} us per "
+              "message")
         print(row("decode (read + decode)", decode))
         print(row("floor (decode + Pinocchio)", floor))
         print(row("replay pipeline loop", loop))
         print(row("replay, all outputs", full))
+        print(f"{'  of which writing the three files':<34}{outputs:9.1f} s "
+              f"{outputs / n * 1e6:9.1f} us/sample")
         if args.keep:
             shutil.copytree(work, args.keep, dirs_exist_ok=True)
             print(f"kept in {args.keep}")
