@@ -50,7 +50,7 @@ from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
 
-from .samples import Sample
+from .samples import Sample, SampleBlock
 
 JOINT_STATE = "sensor_msgs/msg/JointState"
 STRING = "std_msgs/msg/String"
@@ -213,20 +213,33 @@ class JointStateDecoder:
                                                                 np.ndarray, np.ndarray,
                                                                 np.ndarray]]:
         """:meth:`fields` of each message. When they all have the layout of the message
-        decoded before them (the usual case in a recording), they are read together: their
-        bytes side by side as one (k, length) array, the layout checked on all at once, stamps
-        and arrays taken as strided columns (one copy for all the arrays)."""
+        decoded before them (the usual case in a recording), they are read together (see
+        :meth:`block_many`)."""
         first = []
         if self._same is None and raws:   # learn the layout from the first message
             first, raws = [self.fields(raws[0])], raws[1:]
+        whole = self.block_many(raws)
+        if whole is None:
+            return first + [self.fields(r) for r in raws]
+        secs, nsecs, frame_id, names, block = whole
+        return first + list(zip(secs, nsecs, repeat(frame_id), repeat(names), block[:, 0],
+                                block[:, 1], block[:, 2]))
+
+    def block_many(self, raws: Sequence[bytes]) -> tuple[list[int], list[int], str,
+                                                          tuple[str, ...], np.ndarray] | None:
+        """Messages that all have the layout of the message decoded before them, read
+        together: their bytes side by side as one (k, length) array, the layout checked on all
+        at once, stamps and arrays taken as strided columns (one copy for all the arrays).
+        Returns (secs, nanosecs, frame_id, names, block (k, 3, n): position, velocity, effort),
+        or None when they do not (or are fewer than 4): decode them one by one then."""
         k = len(raws)
         same = self._same
         if k < 4 or same is None:
-            return first + [self.fields(r) for r in raws]
+            return None
         size, head, _, c0, _, _, start, frame_id, names = same
         n = len(names)
         if not all(len(r) == size for r in raws):
-            return first + [self.fields(r) for r in raws]
+            return None
         joined = b"".join(raws)
         rows = np.frombuffer(joined, np.uint8).reshape(k, size)
         c1 = start + 8 + 8 * n
@@ -237,13 +250,12 @@ class JointStateDecoder:
               & (rows[:, c0:c0 + 4] == count).all(1) & (rows[:, c1:c1 + 4] == count).all(1)
               & (rows[:, c2:c2 + 4] == count).all(1))
         if not ok.all():
-            return first + [self.fields(r) for r in raws]
+            return None
         self.quick += k
         secs = np.ndarray((k,), "<i4", joined, 4, (size,)).tolist()
         nsecs = np.ndarray((k,), "<u4", joined, 8, (size,)).tolist()
         block = np.ndarray((k, 3, n), "<f8", joined, start + 8, (size, 8 * (n + 1), 8)).copy()
-        return first + list(zip(secs, nsecs, repeat(frame_id), repeat(names), block[:, 0],
-                                block[:, 1], block[:, 2]))
+        return secs, nsecs, frame_id, names, block
 
     def _decode_le(self, buf: bytes) -> tuple[int, int, str, tuple[str, ...],
                                               np.ndarray, np.ndarray, np.ndarray]:
@@ -894,6 +906,15 @@ class RecordedBag:
         separate_efforts: take efforts from the joint_efforts topic (matched by stamp within
         ``stamp_tolerance`` s); None: only when the joint states carry none.
         """
+        for block in self.sample_blocks(stamp_tolerance, separate_efforts):
+            for i in range(len(block)):
+                yield block.sample(i)
+
+    def sample_blocks(self, stamp_tolerance: float = 0.0005,
+                      separate_efforts: bool | None = None) -> Iterator[SampleBlock]:
+        """The joint states of :meth:`samples`, in recorded order, as blocks of consecutive
+        messages with one layout (a block per storage chunk, where the messages allow; one
+        message per block otherwise)."""
         if separate_efforts is None:
             separate_efforts = not self.efforts_in_states
         if separate_efforts and self.info.joint_efforts is None:
@@ -901,20 +922,36 @@ class RecordedBag:
                            f"{self.names.joint_efforts!r}; expected one because "
                            "input.separate_efforts is true")
         efforts = _EffortMatcher(self, stamp_tolerance) if separate_efforts else None
-        decode = JointStateDecoder().fields_many
+        decoder = JointStateDecoder()
         for log_times, raws in self._topic_batches(self.info.joint_states):
-            for log_ns, (sec, nsec, _, names, position, velocity, effort) in zip(
-                    log_times, decode(raws)):
-                if sec == 0 and nsec == 0:   # unstamped: the log (receive) time instead
-                    t = log_ns * 1e-9
-                    if efforts is not None:
-                        effort = efforts.effort_for(t, names)
-                    yield Sample(t, names, position, velocity, effort, True)
+            if efforts is None:
+                if decoder._same is None and raws:   # the first message teaches the layout
+                    yield self._one_block(log_times[0], decoder.fields(raws[0]), None)
+                    log_times, raws = log_times[1:], raws[1:]
+                whole = decoder.block_many(raws)
+                if whole is not None:
+                    secs, nsecs, _, names, block = whole
+                    sec, nsec = np.array(secs, np.int64), np.array(nsecs, np.int64)
+                    unstamped = (sec == 0) & (nsec == 0)
+                    # the stamp in seconds as stamp_seconds computes it, one by one
+                    t = sec.astype(float) + nsec.astype(float) * 1e-9
+                    if unstamped.any():   # unstamped: the log (receive) time instead
+                        t[unstamped] = np.asarray(log_times, float)[unstamped] * 1e-9
+                    yield SampleBlock(t, names, block[:, 0], block[:, 1], block[:, 2],
+                                      unstamped)
                     continue
-                t = sec + nsec * 1e-9   # stamp_seconds(sec, nsec), inlined
-                if efforts is not None:
-                    effort = efforts.effort_for(t, names)
-                yield Sample(t, names, position, velocity, effort, False)
+            for log_ns, fields in zip(log_times, decoder.fields_many(raws)):
+                yield self._one_block(log_ns, fields, efforts)
+
+    @staticmethod
+    def _one_block(log_ns: int, fields: tuple, efforts: "_EffortMatcher | None") -> SampleBlock:
+        sec, nsec, _, names, position, velocity, effort = fields
+        unstamped = sec == 0 and nsec == 0
+        # a zero stamp: the log (receive) time instead
+        t = log_ns * 1e-9 if unstamped else sec + nsec * 1e-9   # stamp_seconds, inlined
+        if efforts is not None:
+            effort = efforts.effort_for(t, names)
+        return SampleBlock.of(Sample(t, names, position, velocity, effort, unstamped))
 
     def close(self) -> None:
         reader = getattr(self, "_reader", None)

@@ -67,17 +67,22 @@ _NUMERIC = tuple(n for n in COLUMN_NAMES if n != "state")
 _STATE_CODE = {s: i for i, s in enumerate(STATES)}
 
 
+def _in_column_order(e: Any, spread: Any) -> list[Any]:
+    """The numeric columns (all but ``state``) of an Estimate or an EstimateBlock, in
+    :data:`_NUMERIC` order; ``spread`` turns a field of several columns into its columns."""
+    return [e.time, *spread(e.force), e.force_along, e.position_along, e.velocity_along,
+            e.acceleration_along, *spread(e.parameters), *spread(e.parameter_std),
+            e.converged, e.in_contact, e.level, *spread(e.direction),
+            e.nis, e.nis_average, *e.nis_bounds, e.measurement_std,
+            *spread(e.parameter_converged), *spread(e.excited),
+            e.contact_level, e.jacobian_condition, e.bias_age, e.kinematics_lag]
+
+
 def estimate_row(e: Any) -> list[float]:
     """The numeric columns (all but ``state``) of one Estimate, in :data:`_NUMERIC` order."""
-    lo, hi = e.nis_bounds
     # tolist(): the arrays' elements as Python numbers in one call each (element indexing
     # would make numpy scalars one at a time)
-    return [e.time, *e.force.tolist(), e.force_along, e.position_along, e.velocity_along,
-            e.acceleration_along, *e.parameters.tolist(), *e.parameter_std.tolist(),
-            e.converged, e.in_contact, e.level, *e.direction.tolist(),
-            e.nis, e.nis_average, lo, hi, e.measurement_std,
-            *e.parameter_converged.tolist(), *e.excited.tolist(),
-            e.contact_level, e.jacobian_condition, e.bias_age, e.kinematics_lag]
+    return _in_column_order(e, np.ndarray.tolist)
 
 
 # one row of the table as bytes: native float64, as numpy stores it
@@ -119,6 +124,20 @@ class EstimateTable:
             self._data[n] = row
         self._states.append(state)
         self._n = n + 1
+
+    def append_block(self, block: Any) -> None:
+        """The rows of an EstimateBlock (:meth:`~.pipeline.Pipeline.process_block`)."""
+        m = len(block)
+        if not m:
+            return
+        n = self._n
+        if n + m > len(self._data):
+            grown = np.empty((max(2 * len(self._data), n + m), self._data.shape[1]))
+            grown[:n] = self._data[:n]
+            self._data, self._bytes = grown, memoryview(grown).cast("B")
+        self._data[n:n + m] = np.column_stack(_in_column_order(block, np.transpose))
+        self._states.extend(block.state)
+        self._n = n + m
 
     def columns(self) -> dict[str, np.ndarray]:
         data = self._data[:self._n]

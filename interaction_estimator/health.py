@@ -56,6 +56,44 @@ class Health:
             self._contact_words[pattern] = words
         return words
 
+    def _findings(self, phase: str, nis_average: float, nis_lo: float, nis_hi: float,
+                  filter_samples: int, jacobian_condition: float, recent_rejects: int,
+                  rate_hz: float, stamp_from_receive: bool) -> int:
+        """What lowers the trust in the numbers, as bits (0: nothing): 1 the Jacobian is near a
+        singularity, 2 samples were rejected, 4 the input rate is low, 8 stamps are zero,
+        16 the innovations are inconsistent (in contact only)."""
+        bits = 0
+        if jacobian_condition > self.condition_limit:
+            bits |= 1
+        if recent_rejects:
+            bits |= 2
+        if self.min_rate_hz > 0 and 0 < rate_hz < self.min_rate_hz:
+            bits |= 4
+        if stamp_from_receive:
+            bits |= 8
+        if phase == "contact" and filter_samples > 0 and not (nis_lo <= nis_average <= nis_hi):
+            bits |= 16
+        return bits
+
+    def level_state(self, phase: str, since_contact_end: float, pattern: int,
+                    nis_average: float, nis_lo: float, nis_hi: float, filter_samples: int,
+                    jacobian_condition: float, recent_rejects: int, rate_hz: float,
+                    stamp_from_receive: bool) -> tuple[int, str]:
+        """The level and the state word of :meth:`judge`, without composing the message."""
+        return self._classify(phase, since_contact_end, pattern, self._findings(
+            phase, nis_average, nis_lo, nis_hi, filter_samples, jacobian_condition,
+            recent_rejects, rate_hz, stamp_from_receive))
+
+    def _classify(self, phase: str, since_contact_end: float, pattern: int,
+                  findings: int) -> tuple[int, str]:
+        if phase == "contact":
+            return WARN if findings else OK, self._in_contact(pattern)[0]
+        if phase == "learning_bias":
+            return WARN, "learning_bias"
+        if math.isfinite(since_contact_end):
+            return STALE if since_contact_end > self.stale_after else WARN, "contact_lost"
+        return WARN if findings else OK, "free_motion"
+
     def judge(self, phase: str, startup_remaining: float, since_contact_end: float,
               pattern: int, nis_average: float, nis_lo: float, nis_hi: float,
               filter_samples: int, jacobian_condition: float, recent_rejects: int,
@@ -67,31 +105,31 @@ class Health:
         converged flags as bits (see ALL_CONVERGED); nis_average and its interval [nis_lo, nis_hi];
         filter_samples: updates since the filter's last reset; recent_rejects: samples rejected
         over the last second; rate_hz: input rate from the stamps."""
+        bits = self._findings(phase, nis_average, nis_lo, nis_hi, filter_samples,
+                              jacobian_condition, recent_rejects, rate_hz, stamp_from_receive)
+        level, state = self._classify(phase, since_contact_end, pattern, bits)
         warnings = ""
-        if jacobian_condition > self.condition_limit:
+        if bits & 1:
             warnings += (f"; contact Jacobian near singular (condition {jacobian_condition:.0f}"
                          f" > {self.condition_limit:.0f})")
-        if recent_rejects:
+        if bits & 2:
             warnings += f"; {recent_rejects} samples rejected in the last second"
-        if self.min_rate_hz > 0 and 0 < rate_hz < self.min_rate_hz:
+        if bits & 4:
             warnings += f"; input rate {rate_hz:.0f} Hz below {self.min_rate_hz:.0f} Hz"
-        if stamp_from_receive:
+        if bits & 8:
             warnings += "; stamps are zero: receive time used"
-
+        if bits & 16:
+            warnings += (f"; innovations inconsistent (NIS {nis_average:.2f} outside "
+                         f"[{nis_lo:.2f}, {nis_hi:.2f}])")
         if phase == "contact":
-            if filter_samples > 0 and not (nis_lo <= nis_average <= nis_hi):
-                warnings += (f"; innovations inconsistent (NIS {nis_average:.2f} outside "
-                             f"[{nis_lo:.2f}, {nis_hi:.2f}])")
-            state, msg = self._in_contact(pattern)
-            return Verdict(WARN if warnings else OK, state, msg + warnings)
+            return Verdict(level, state, self._in_contact(pattern)[1] + warnings)
         if phase == "learning_bias":
-            return Verdict(WARN, "learning_bias",
+            return Verdict(level, state,
                            f"learning torque bias, {startup_remaining:.1f} s left: keep the robot "
                            "clear of contact" + warnings)
-        if math.isfinite(since_contact_end):
-            level = STALE if since_contact_end > self.stale_after else WARN
-            return Verdict(level, "contact_lost",
+        if state == "contact_lost":
+            return Verdict(level, state,
                            f"contact lost {since_contact_end:.1f} s ago: object estimates held "
                            "from the last contact" + warnings)
-        return Verdict(WARN if warnings else OK, "free_motion",
+        return Verdict(level, state,
                        "free motion, no contact yet: wrench valid, no object estimate" + warnings)

@@ -94,6 +94,28 @@ class JointMap:
         return q, v, e
 
 
+    def apply_block(self, block) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """:meth:`apply` for every sample of a :class:`~.samples.SampleBlock`: (q (k, nq),
+        v (k, nv), effort (k, nv)), new C-contiguous float arrays whose rows are what
+        :meth:`apply` returns for each sample (continuous joints through math.cos/math.sin,
+        as there)."""
+        if self._identity:
+            angle = block.position
+            v = np.array(block.velocity, dtype=float, order="C")
+            e = np.array(block.effort, dtype=float, order="C")
+        else:
+            src = self.source
+            angle = block.position[:, src]
+            v = np.ascontiguousarray(block.velocity[:, src], dtype=float)
+            e = np.ascontiguousarray(block.effort[:, src], dtype=float)
+        q = np.ascontiguousarray(angle[:, self._q_from], dtype=float)
+        for iq, iv in self._circles:
+            a = angle[:, iv].tolist()
+            q[:, iq] = [math.cos(x) for x in a]
+            q[:, iq + 1] = [math.sin(x) for x in a]
+        return q, v, e
+
+
 class RobotModel:
     """A robot built from URDF text, with a contact frame and gravity along -z of the root.
 

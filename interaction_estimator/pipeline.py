@@ -31,7 +31,7 @@ from .model import RobotModel
 from .observer import (BIAS_SIZE, CONTACT_ROWS, CONTACT_SIZE, OBSERVER_ROWS, OBSERVER_SIZE,
                        BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
                        MomentumObserver)
-from .samples import RejectCounts, Sample, SampleRejected, SampleValidator
+from .samples import RejectCounts, Sample, SampleBlock, SampleRejected, SampleValidator
 from .settings import Settings, per_joint
 from .wrench import DIRECTION_SIZE, KINEMATICS_SIZE, AlongKinematics, Direction, WrenchMap
 
@@ -87,6 +87,64 @@ class Estimate:
     kinematics_lag: float
     event: str
     stamp_from_receive: bool
+
+
+class EstimateBlock:
+    """The estimates of the accepted samples of one :class:`~.samples.SampleBlock`, as columns
+    (m rows): the fields of :class:`Estimate` that a table of estimates holds, each an array
+    with one row per estimate (``nis_bounds`` as the pair (lower (m,), upper (m,)), ``state``
+    a list of words). Messages, events and the other per-sample texts are not made (see
+    :meth:`Pipeline.process_block`)."""
+
+    __slots__ = ("time", "out", "level", "state", "_nv")
+
+    def __init__(self, time: np.ndarray, out: np.ndarray, level: np.ndarray, state: list[str],
+                 nv: int):
+        self.time, self.out, self.level, self.state, self._nv = time, out, level, state, nv
+
+    def __len__(self) -> int:
+        return len(self.time)
+
+    force = property(lambda self: self.out[:, 0:3])
+    torque = property(lambda self: self.out[:, 3:6])
+    direction = property(lambda self: self.out[:, 6:9])
+    force_along = property(lambda self: self.out[:, ps.O_FORCE_ALONG])
+    position_along = property(lambda self: self.out[:, ps.O_POSITION_ALONG])
+    velocity_along = property(lambda self: self.out[:, ps.O_VELOCITY_ALONG])
+    acceleration_along = property(lambda self: self.out[:, ps.O_ACCELERATION_ALONG])
+    parameters = property(lambda self: self.out[:, ps.O_PARAMETERS:ps.O_PARAMETERS + 4])
+    parameter_std = property(lambda self: self.out[:, ps.O_STD:ps.O_STD + 4])
+    nis = property(lambda self: self.out[:, ps.O_NIS])
+    nis_average = property(lambda self: self.out[:, ps.O_NIS_AVERAGE])
+    nis_bounds = property(lambda self: (self.out[:, ps.O_NIS_LO], self.out[:, ps.O_NIS_HI]))
+    measurement_std = property(lambda self: self.out[:, ps.O_MEASUREMENT_STD])
+    contact_level = property(lambda self: self.out[:, ps.O_CONTACT_LEVEL])
+    jacobian_condition = property(lambda self: self.out[:, ps.O_CONDITION])
+    rate_hz = property(lambda self: self.out[:, ps.O_RATE])
+    kinematics_lag = property(lambda self: self.out[:, ps.O_LAG])
+    bias_age = property(lambda self: self.out[:, ps.O_BIAS_AGE])
+    in_contact = property(lambda self: self.out[:, ps.O_PHASE] == ps.PHASE_CONTACT)
+    external_torque = property(lambda self: self.out[:, ps.OUT_FIXED:ps.OUT_FIXED + self._nv])
+    bias = property(lambda self: self.out[:, ps.OUT_FIXED + self._nv:ps.OUT_FIXED + 2 * self._nv])
+
+    @property
+    def _pattern(self) -> np.ndarray:
+        return self.out[:, ps.O_PATTERN].astype(np.int64)
+
+    @property
+    def excited(self) -> np.ndarray:
+        """(m, 4) bool."""
+        return (self._pattern[:, None] >> np.arange(4)) & 1 == 1
+
+    @property
+    def parameter_converged(self) -> np.ndarray:
+        """(m, 4) bool."""
+        return (self._pattern[:, None] >> np.arange(4, 8)) & 1 == 1
+
+    @property
+    def converged(self) -> np.ndarray:
+        """(m,) bool: all four converged."""
+        return self._pattern & ALL_CONVERGED == ALL_CONVERGED
 
 
 class Pipeline:
@@ -319,6 +377,74 @@ class Pipeline:
             message, nis, nis_avg, (nis_lo, nis_hi), meas_std, o[of:of + nv],
             o[of + nv:of + 2 * nv], bias_age, contact_level, condition, int(restarts),
             self.rejects.total, rate, lag, event_word, stamp_from_receive)
+
+    def process_block(self, block: SampleBlock) -> EstimateBlock:
+        """The samples of a block, in order, as :meth:`process` would take them one by one
+        (same numbers, same refusals and counts, same level and state), for a recording: the
+        joint mapping is made once for the block, and per sample only the Pinocchio calls, the
+        compiled step and the level and state of the health verdict run (no Estimate, no
+        message). A block whose arrays or names do not fit goes through :meth:`process`."""
+        k = len(block)
+        nv = self.model.nv
+        out = np.empty((k, len(self._out)))
+        levels = np.zeros(k, np.int8)
+        states: list[str] = []
+        keep = np.zeros(k, bool)
+        n = len(block.names)
+        try:
+            if not (block.position.shape == block.velocity.shape == block.effort.shape
+                    == (k, n)):
+                raise SampleRejected("length_mismatch", "")
+            Q, V, E = self.model.joint_map(block.names).apply_block(block)
+        except (SampleRejected, IndexError):
+            Q = None
+        times = block.time.tolist()
+        flags = block.stamp_from_receive.tolist()
+        model = self.model
+        m, d, fid = model.model, model.data, model.frame_id
+        step, S, JS, P3 = ps.pipeline_step, self._S, self._JS, self._P3
+        level_state = self._health.level_state
+        reject_times = self._reject_times
+        for i in range(k):
+            t = times[i]
+            if Q is None:   # one by one
+                est = self.process(block.sample(i))
+                if est is not None:
+                    out[i] = self._out
+                    keep[i] = True
+                    levels[i] = est.level
+                    states.append(est.state)
+                continue
+            if self.kinematics is None:
+                self._warm_up(t)
+            q, v, e = Q[i], V[i], E[i]
+            pin.computeJointJacobians(m, d, q)
+            pose = pin.updateFramePlacement(m, d, fid).homogeneous   # (4, 4)
+            mass = pin.crba(m, d, q)
+            if model._symmetrize:
+                mass = np.triu(mass) + np.triu(mass, 1).T
+            coriolis = pin.computeCoriolisMatrix(m, d, q, v)
+            gravity = pin.computeGeneralizedGravity(m, d, q)
+            jacobian = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
+            row = out[i]
+            code = step(S, JS, P3, self._kinematics_buffer, self.filter.windows_array, row, t,
+                        q, v, e, mass, coriolis, gravity, jacobian, pose)
+            if code:
+                if code == ps.STEP_INVALID_SAMPLE:
+                    self._invalid(block.sample(i))
+                else:
+                    self._step_refused(code, t)
+                continue
+            keep[i] = True
+            (nis_avg, nis_lo, nis_hi, _, _, condition, rate, _, _, phase, _, pattern, samples, _,
+             since_contact_end) = row[ps.O_NIS_AVERAGE:ps.O_SINCE_CONTACT_END + 1].tolist()
+            while reject_times and reject_times[0] < t - 1.0:
+                reject_times.popleft()
+            levels[i], state = level_state(
+                ps.PHASES[int(phase)], since_contact_end, int(pattern), nis_avg, nis_lo, nis_hi,
+                int(samples), condition, len(reject_times), rate, flags[i])
+            states.append(state)
+        return EstimateBlock(block.time[keep], out[keep], levels[keep], states, nv)
 
     # --- what the last sample did inside (for the tuning command) ---------------------------
     def filter_input(self) -> tuple[float, tuple[float, ...], float, np.ndarray] | None:

@@ -290,15 +290,18 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
     process = pipeline.process
     read = 0
     first_t = None
-    samples = bag.samples(settings["input.stamp_tolerance"],
-                          True if settings["input.separate_efforts"] else None)
-    if on_estimate is None and progress is None:   # nothing else to do per sample
-        for read, sample in enumerate(samples, 1):
-            est = process(sample)
-            if est is not None:
-                append(est)
+    tolerance = settings["input.stamp_tolerance"]
+    separate = True if settings["input.separate_efforts"] else None
+    if on_estimate is None:   # no Estimate needed: the samples a block at a time
+        for block in bag.sample_blocks(tolerance, separate):
+            if read == 0:
+                first_t = float(block.time[0])
+            read += len(block)
+            table.append_block(pipeline.process_block(block))
+            if progress is not None:
+                progress.update(read, float(block.time[-1]) - first_t)
         return table, read
-    for sample in samples:
+    for sample in bag.samples(tolerance, separate):
         if read == 0:
             first_t = sample.time
         read += 1

@@ -107,3 +107,36 @@ class SampleValidator:
             if s.time == self.last_time:
                 raise SampleRejected("duplicate_time", f"stamp {s.time:.6f} s repeats")
         self.last_time = s.time
+
+
+@dataclass(frozen=True)
+class SampleBlock:
+    """Consecutive joint-space samples with the same joint names (k of them, n joints), as a
+    recording holds them: what :meth:`~interaction_estimator.pipeline.Pipeline.process_block`
+    takes. ``sample(i)`` is the i-th as a :class:`Sample` (its arrays are views of the rows).
+
+    time (k,) stamps, s; position, velocity, effort (k, n) rad or m, rad/s or m/s, N·m or N;
+    stamp_from_receive (k,) bool.
+    """
+
+    time: np.ndarray
+    names: tuple[str, ...]
+    position: np.ndarray
+    velocity: np.ndarray
+    effort: np.ndarray
+    stamp_from_receive: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.time)
+
+    def sample(self, i: int) -> Sample:
+        return Sample(float(self.time[i]), self.names, self.position[i], self.velocity[i],
+                      self.effort[i], bool(self.stamp_from_receive[i]))
+
+    @staticmethod
+    def of(sample: Sample) -> "SampleBlock":
+        """A block of one sample (arrays of any length: the Pipeline checks them)."""
+        return SampleBlock(np.array([sample.time], dtype=float), sample.names,
+                           np.asarray(sample.position)[None], np.asarray(sample.velocity)[None],
+                           np.asarray(sample.effort)[None],
+                           np.array([sample.stamp_from_receive]))

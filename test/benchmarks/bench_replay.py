@@ -8,7 +8,8 @@ contact torque, with noise), then measures in the same run:
              and decoder), and, messages in memory, that decoder (one message at a time, and a
              chunk's worth at once as the replay reads them) beside rosbags' deserializer
              (20000 messages);
-  floor      decode plus the Pinocchio calls alone (RobotModel.joint_map + dynamics per sample);
+  floor      decode plus the Pinocchio calls alone (the joint mapping and the six calls the
+             Pipeline makes per sample);
   replay     the whole ``replay`` (pipeline, estimates.csv, summary.json, report.html), its
              pipeline loop alone, and what the whole replay spent after its loop (the three
              files).
@@ -109,12 +110,21 @@ def decoders(path: Path, limit: int = 20000) -> tuple[float, float, float]:
 
 
 def floor_pass(path: Path) -> float:
+    """Reading and decoding the joint states (a block at a time, as the replay does), the
+    joint mapping, and the six Pinocchio calls the Pipeline makes per sample, nothing else."""
     t0 = time.perf_counter()
     with RecordedBag(path) as bag:
         model = RobotModel(bag.urdf(), marten.CONTACT_FRAME)
-        for s in bag.samples():
-            q, v, _ = model.joint_map(s.names).apply(s)
-            model.dynamics(q, v)
+        m, d, fid = model.model, model.data, model.frame_id
+        for block in bag.sample_blocks():
+            Q, V, _ = model.joint_map(block.names).apply_block(block)
+            for q, v in zip(Q, V):
+                pin.computeJointJacobians(m, d, q)
+                pin.updateFramePlacement(m, d, fid)
+                pin.crba(m, d, q)
+                pin.computeCoriolisMatrix(m, d, q, v)
+                pin.computeGeneralizedGravity(m, d, q)
+                pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
     return time.perf_counter() - t0
 
 
