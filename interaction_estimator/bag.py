@@ -177,11 +177,13 @@ class JointStateDecoder:
     arithmetic on unaligned arrays is slower).
     """
 
-    def __init__(self) -> None:
+    def __init__(self, generic_fallback: bool = True) -> None:
         self._names_bytes = b""
         self._names: tuple[str, ...] = ()
         self._same: tuple[Any, ...] | None = None  # the layout of the last full decode
-        self.fallbacks = 0  # messages decoded by the generic deserializer
+        # bytes it does not read itself: rosbags' deserializer, or (False) a ValueError
+        self._generic = generic_fallback
+        self.fallbacks = 0  # messages it did not read itself
         self.quick = 0      # messages read in one step by the layout of the previous one
 
     def decode(self, raw: bytes | memoryview) -> JointStateRecord:
@@ -202,9 +204,11 @@ class JointStateDecoder:
             if buf[:2] != b"\x00\x01":
                 raise ValueError("not little-endian CDR")
             return self._decode_le(buf)
-        except (ValueError, struct.error, IndexError, UnicodeDecodeError):
+        except (ValueError, struct.error, IndexError, UnicodeDecodeError) as exc:
             self.fallbacks += 1
             self._same = None
+            if not self._generic:
+                raise ValueError(f"JointState bytes not read: {exc}") from None
             rec = _decode_joint_state_generic(buf)
             return (rec.sec, rec.nanosec, rec.frame_id, rec.names, rec.position, rec.velocity,
                     rec.effort)

@@ -193,8 +193,10 @@ class RobotModel:
         q[self._circle_q + 1] = np.sin(angles[self._circle_v])
         return q
 
-    def dynamics(self, q: np.ndarray, v: np.ndarray) -> Dynamics:
-        """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
+    def terms(self, q: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, ...]:
+        """The Pinocchio calls of one sample, their results as they come: (pose (4, 4) of the
+        contact frame, M (nv, nv), C (nv, nv) Coriolis matrix, g (nv,), contact Jacobian
+        (6, nv), world-aligned). Every array is the caller's own."""
         m, d, fid = self.model, self.data, self.frame_id
         pin.computeJointJacobians(m, d, q)
         # the placement it returns (cheaper than looking it up again in data.oMf)
@@ -202,8 +204,12 @@ class RobotModel:
         mass = pin.crba(m, d, q)   # a copy of data.M
         if self._symmetrize:
             mass = np.triu(mass) + np.triu(mass, 1).T
+        return (pose, mass, pin.computeCoriolisMatrix(m, d, q, v),
+                pin.computeGeneralizedGravity(m, d, q),
+                pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED))
+
+    def dynamics(self, q: np.ndarray, v: np.ndarray) -> Dynamics:
+        """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
+        pose, mass, coriolis, gravity, jac = self.terms(q, v)
         # C^T v as v^T C: one product, no transposed view
-        coriolis_t_v = v.dot(pin.computeCoriolisMatrix(m, d, q, v))
-        gravity = pin.computeGeneralizedGravity(m, d, q)
-        jac = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
-        return Dynamics(mass, coriolis_t_v, gravity, jac, pose[:3, 3], pose[:3, :3])
+        return Dynamics(mass, v.dot(coriolis), gravity, jac, pose[:3, 3], pose[:3, :3])

@@ -32,6 +32,7 @@ from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
+from .bag import JointStateDecoder
 from .environment import PARAMETER_NAMES, PARAMETER_UNITS
 from .health import ERROR, OK, STALE, WARN
 from .samples import Sample
@@ -345,10 +346,7 @@ def status_values(status: DiagnosticStatus) -> dict[str, str]:
 
 _CDR_LE = b"\x00\x01\x00\x00"          # encapsulation: plain CDR, little-endian
 _U32 = struct.Struct("<I")
-_STAMP_AND_LENGTH = struct.Struct("<iII")  # header stamp (sec, nanosec), frame_id length
 _ZEROS = bytes(8)
-_EMPTY = np.zeros(0)
-_EMPTY.setflags(write=False)
 
 
 def _cdr_string(text: str) -> bytes:
@@ -371,63 +369,28 @@ def _agrees(raw: bytes, reference) -> bool:
 
 
 class JointStateReader:
-    """sensor_msgs/JointState CDR bytes -> (sec, nanosec, names, position, velocity, effort).
-
-    The names are decoded once per distinct name list (the bytes of the name section are
-    compared with the previous message's); position, velocity and effort are read-only numpy
-    views (n,) float64 on the bytes. :meth:`read` returns None for bytes it does not handle
-    (not little-endian plain CDR, or a layout that does not add up; counted in ``fallbacks``):
-    the caller then deserializes them with rclpy. Values and lengths are not checked here: the
-    pipeline's validator does that and counts what it rejects.
+    """sensor_msgs/JointState CDR bytes -> (sec, nanosec, names, position, velocity, effort),
+    read by the replay's decoder (:class:`~.bag.JointStateDecoder`: names decoded once per
+    distinct name list, the arrays as aligned float64 copies (n,)). :meth:`read` returns None
+    for bytes it does not handle (not little-endian plain CDR, or a layout that does not add
+    up; counted in ``fallbacks``): the caller then deserializes them with rclpy. Values and
+    lengths are not checked here: the pipeline's validator does that and counts what it
+    rejects.
     """
 
     def __init__(self) -> None:
-        self._names_bytes = b""
-        self._names: tuple[str, ...] = ()
-        self.fallbacks = 0
+        self._decoder = JointStateDecoder(generic_fallback=False)
+
+    @property
+    def fallbacks(self) -> int:
+        return self._decoder.fallbacks
 
     def read(self, buf: bytes):
         try:
-            if buf[:2] != b"\x00\x01":
-                raise ValueError("not little-endian plain CDR")
-            sec, nanosec, length = _STAMP_AND_LENGTH.unpack_from(buf, 4)
-            if length == 0:
-                raise ValueError("string without its terminator")
-            off = 16 + length
-            off += -off % 4   # the header is 4 bytes: 4-alignment is the same in absolute terms
-            cached = self._names_bytes
-            if cached and buf.startswith(cached, off):
-                names = self._names
-                off += len(cached)
-            else:
-                start = off
-                (count,) = _U32.unpack_from(buf, off)
-                off += 4
-                out = []
-                for _ in range(count):
-                    off += -off % 4
-                    (n,) = _U32.unpack_from(buf, off)
-                    if n == 0 or off + 4 + n > len(buf):
-                        raise ValueError("bad string")
-                    out.append(buf[off + 4:off + 3 + n].decode())
-                    off += 4 + n
-                names = tuple(out)
-                self._names_bytes, self._names = buf[start:off], names
-            arrays = []
-            for _ in range(3):
-                off += -off % 4
-                (n,) = _U32.unpack_from(buf, off)
-                off += 4
-                if n:
-                    off += (4 - off) % 8   # 8-aligned counted from the end of the header
-                    arrays.append(np.frombuffer(buf, "<f8", n, off))  # ValueError if short
-                    off += 8 * n
-                else:
-                    arrays.append(_EMPTY)
-        except (ValueError, struct.error):
-            self.fallbacks += 1
+            sec, nanosec, _, names, position, velocity, effort = self._decoder.fields(buf)
+        except ValueError:
             return None
-        return sec, nanosec, names, arrays[0], arrays[1], arrays[2]
+        return sec, nanosec, names, position, velocity, effort
 
 
 class WrenchEncoder:

@@ -20,7 +20,6 @@ from collections import deque
 from dataclasses import dataclass
 
 import numpy as np
-import pinocchio as pin
 
 from . import pipeline_step as ps
 from .environment import (EF_T_PREV, EO_F, EO_H, EO_T, FILTER_CONFIG_SIZE,
@@ -330,15 +329,7 @@ class Pipeline:
         if self.kinematics is None:
             self._warm_up(t)
         model = self.model
-        m, d, fid = model.model, model.data, model.frame_id
-        pin.computeJointJacobians(m, d, q)
-        pose = pin.updateFramePlacement(m, d, fid).homogeneous   # (4, 4)
-        mass = pin.crba(m, d, q)
-        if model._symmetrize:
-            mass = np.triu(mass) + np.triu(mass, 1).T
-        coriolis = pin.computeCoriolisMatrix(m, d, q, v)
-        gravity = pin.computeGeneralizedGravity(m, d, q)
-        jacobian = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
+        pose, mass, coriolis, gravity, jacobian = model.terms(q, v)
         self._last_mass = mass
         out = self._out
         code = ps.pipeline_step(self._S, self._JS, self._P3, self._kinematics_buffer,
@@ -400,8 +391,7 @@ class Pipeline:
             Q = None
         times = block.time.tolist()
         flags = block.stamp_from_receive.tolist()
-        model = self.model
-        m, d, fid = model.model, model.data, model.frame_id
+        terms = self.model.terms
         step, S, JS, P3 = ps.pipeline_step, self._S, self._JS, self._P3
         level_state = self._health.level_state
         reject_times = self._reject_times
@@ -418,14 +408,7 @@ class Pipeline:
             if self.kinematics is None:
                 self._warm_up(t)
             q, v, e = Q[i], V[i], E[i]
-            pin.computeJointJacobians(m, d, q)
-            pose = pin.updateFramePlacement(m, d, fid).homogeneous   # (4, 4)
-            mass = pin.crba(m, d, q)
-            if model._symmetrize:
-                mass = np.triu(mass) + np.triu(mass, 1).T
-            coriolis = pin.computeCoriolisMatrix(m, d, q, v)
-            gravity = pin.computeGeneralizedGravity(m, d, q)
-            jacobian = pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED)
+            pose, mass, coriolis, gravity, jacobian = terms(q, v)
             row = out[i]
             code = step(S, JS, P3, self._kinematics_buffer, self.filter.windows_array, row, t,
                         q, v, e, mass, coriolis, gravity, jacobian, pose)
