@@ -159,11 +159,10 @@ EF_EX = 32           # 32..35 decaying sums of h_i^2
 EF_EX_DEN = 36       # decaying count
 EF_PENDING = 37      # changes waiting for the next update (CHANGE_* bits)
 EF_PENDING_G = 38    # the CUSUM value that declared a pending change
-EF_CHANGES = 39      # changes declared since start
-EF_NIS_WIN = 40      # 40..42 NIS window: index, count, running sum
-EF_MATCH_WIN = 43    # 43..45 covariance-matching window: index, count, running sum
-EF_REJECTED = 46     # updates refused
-FILTER_STATE_SIZE = 47
+EF_NIS_WIN = 39      # 39..41 NIS window: index, count, running sum
+EF_MATCH_WIN = 42    # 42..44 covariance-matching window: index, count, running sum
+EF_REJECTED = 45     # updates refused
+FILTER_STATE_SIZE = 46
 # configuration (float array of FILTER_CONFIG_SIZE), from the filter.* settings
 EC_P0 = 0            # 0..3 prior variances
 EC_R_FLOOR = 4
@@ -295,7 +294,6 @@ def filter_inflate(st, cf, reason):
         for j in range(4):
             st[EF_P + 4 * i + j] *= scale[i] * scale[j]
     st[EF_CUSUM] = 0.0
-    st[EF_CHANGES] += 1.0
     st[EF_PENDING] = float(int(st[EF_PENDING]) | reason)
 
 
@@ -319,33 +317,19 @@ def filter_reset(st, cf, W):
 
 
 @kernel
-def _solve_small(A, b, m):
-    """x = A[:m, :m]^-1 b[:m] by Gaussian elimination with partial pivoting (m <= 3); returns
-    (x, False) when A is exactly singular (a zero pivot, as LAPACK's dgesv reports)."""
-    a = A.copy()
-    x = b.copy()
-    for k in range(m):
-        p = k
-        for r in range(k + 1, m):
-            if abs(a[r, k]) > abs(a[p, k]):
-                p = r
-        if a[p, k] == 0.0:
-            return x, False
-        if p != k:
-            for c in range(m):
-                a[k, c], a[p, c] = a[p, c], a[k, c]
-            x[k], x[p] = x[p], x[k]
-        for r in range(k + 1, m):
-            f = a[r, k] / a[k, k]
-            for c in range(k, m):
-                a[r, c] -= f * a[k, c]
-            x[r] -= f * x[k]
-    for k in range(m - 1, -1, -1):
-        s = x[k]
-        for c in range(k + 1, m):
-            s -= a[k, c] * x[c]
-        x[k] = s / a[k, k]
-    return x, True
+def _solve_active(P, active, n_active, th0):
+    """z = P_AA^-1 theta_A for the active bounds A (numpy.linalg.solve, LAPACK's dgesv);
+    returns (z, False) when P_AA is singular."""
+    A = np.empty((n_active, n_active))
+    b = np.empty(n_active)
+    for r in range(n_active):
+        b[r] = th0[active[r]]
+        for c in range(n_active):
+            A[r, c] = P[4 * active[r] + active[c]]
+    try:
+        return np.linalg.solve(A, b), True
+    except Exception:   # numpy.linalg.LinAlgError: singular
+        return b, False
 
 
 @kernel
@@ -396,8 +380,6 @@ def filter_project(theta, P, excited_bits):
     x = th0.copy()
     active = np.zeros(3, np.int64)
     n_active = 0
-    A = np.zeros((3, 3))
-    b = np.zeros(3)
     for _ in range(8):   # at most 3 bounds: a handful of steps reach the KKT point
         pick = -1
         for i in range(3):
@@ -414,11 +396,7 @@ def filter_project(theta, P, excited_bits):
         n_active += 1
         released_all = True
         while n_active > 0:
-            for r in range(n_active):
-                b[r] = th0[active[r]]
-                for c in range(n_active):
-                    A[r, c] = P[4 * active[r] + active[c]]
-            z, ok = _solve_small(A, b, n_active)
+            z, ok = _solve_active(P, active, n_active, th0)
             if not ok:   # a singular P_AA: no correction, the bounds set to zero
                 for i in range(4):
                     x[i] = th0[i]
@@ -715,7 +693,6 @@ class EnvironmentFilter:
         self._st[:] = 0.0
         self._cf[:] = configuration(self._cfg)
         self.windows_array = windows(self._cfg)
-        self.reset_reason = ""
         self._resets = 0
         self._text = ""            # pending inflation reasons asked for by name
         self._last: FilterStep | None = None
@@ -730,8 +707,8 @@ class EnvironmentFilter:
         R = filter.measurement_std^2, q = filter.process_std; windows, CUSUM and sample count
         cleared. The rejected count is kept."""
         filter_reset(self._st, self._cf, self.windows_array)
+        self.reset_reason = reason   # why the filter last started from its prior
         self._st[EF_Q2:EF_Q2 + 4] = self._cfg.process_var
-        self.reset_reason = reason
         self._resets += 1
         self._text = ""
         self._last, self._last_key = None, None
@@ -815,11 +792,6 @@ class EnvironmentFilter:
     def rejected(self) -> int:
         """Updates refused (non-finite input, time going backwards) since start."""
         return int(self._st[EF_REJECTED])
-
-    @property
-    def changes(self) -> int:
-        """Changes declared (and inflations asked for) since start."""
-        return int(self._st[EF_CHANGES])
 
     @property
     def last(self) -> FilterStep | None:

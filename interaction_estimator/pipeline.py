@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import pipeline_step as ps
-from .environment import (EF_T_PREV, EO_F, EO_H, EO_T, FILTER_CONFIG_SIZE,
+from .environment import (EO_F, EO_H, EO_T, FILTER_CONFIG_SIZE,
                           FILTER_OUTPUT_SIZE, FILTER_STATE_SIZE, EnvironmentFilter,
                           change_text)
 from .health import ALL_CONVERGED, Health
@@ -95,17 +95,15 @@ class EstimateBlock:
     a list of words). Messages, events and the other per-sample texts are not made (see
     :meth:`Pipeline.process_block`)."""
 
-    __slots__ = ("time", "out", "level", "state", "_nv")
+    __slots__ = ("time", "out", "level", "state")
 
-    def __init__(self, time: np.ndarray, out: np.ndarray, level: np.ndarray, state: list[str],
-                 nv: int):
-        self.time, self.out, self.level, self.state, self._nv = time, out, level, state, nv
+    def __init__(self, time: np.ndarray, out: np.ndarray, level: np.ndarray, state: list[str]):
+        self.time, self.out, self.level, self.state = time, out, level, state
 
     def __len__(self) -> int:
         return len(self.time)
 
     force = property(lambda self: self.out[:, 0:3])
-    torque = property(lambda self: self.out[:, 3:6])
     direction = property(lambda self: self.out[:, 6:9])
     force_along = property(lambda self: self.out[:, ps.O_FORCE_ALONG])
     position_along = property(lambda self: self.out[:, ps.O_POSITION_ALONG])
@@ -119,12 +117,9 @@ class EstimateBlock:
     measurement_std = property(lambda self: self.out[:, ps.O_MEASUREMENT_STD])
     contact_level = property(lambda self: self.out[:, ps.O_CONTACT_LEVEL])
     jacobian_condition = property(lambda self: self.out[:, ps.O_CONDITION])
-    rate_hz = property(lambda self: self.out[:, ps.O_RATE])
     kinematics_lag = property(lambda self: self.out[:, ps.O_LAG])
     bias_age = property(lambda self: self.out[:, ps.O_BIAS_AGE])
     in_contact = property(lambda self: self.out[:, ps.O_PHASE] == ps.PHASE_CONTACT)
-    external_torque = property(lambda self: self.out[:, ps.OUT_FIXED:ps.OUT_FIXED + self._nv])
-    bias = property(lambda self: self.out[:, ps.OUT_FIXED + self._nv:ps.OUT_FIXED + 2 * self._nv])
 
     @property
     def _pattern(self) -> np.ndarray:
@@ -280,8 +275,6 @@ class Pipeline:
         S[ps.PS_QUIET_DT] = S[ps.PS_QUIET_COUNT] = S[ps.PS_POINT_VALID] = 0.0
         self._JS[ps.J_QUIET] = 0.0
         self._reject_times: deque[float] = deque(maxlen=1000)
-        self._rejected_before = self.rejects.total
-        self._last_reject_total = self.rejects.total
 
     def _drop_kinematics(self) -> None:
         """No AlongKinematics until the nominal interval is learned again."""
@@ -326,28 +319,15 @@ class Pipeline:
         except (SampleRejected, IndexError):
             return self._invalid(sample)
         t = float(sample.time)
-        if self.kinematics is None:
-            self._warm_up(t)
-        model = self.model
-        pose, mass, coriolis, gravity, jacobian = model.terms(q, v)
-        self._last_mass = mass
-        out = self._out
-        code = ps.pipeline_step(self._S, self._JS, self._P3, self._kinematics_buffer,
-                                self.filter.windows_array, out, t, q, v, effort, mass, coriolis,
-                                gravity, jacobian, pose)
+        code = self._step(t, q, v, effort, self._out)
         if code:
-            if code == ps.STEP_INVALID_SAMPLE:
-                return self._invalid(sample)
-            return self._step_refused(code, t)
-        o = out.copy()
+            return self._refused(code, sample, t)
+        o = self._out.copy()
         (_, _, _, _, _, _, _, _, _, force_along, position_along, velocity_along,
          acceleration_along, _, _, _, _, _, _, _, _, nis, nis_avg, nis_lo, nis_hi, meas_std,
          contact_level, condition, rate, lag, bias_age, phase, event, pattern, samples,
          startup_remaining, since_contact_end, change, change_g,
          restarts) = o[:ps.O_RESTARTS + 1].tolist()
-        reject_times = self._reject_times
-        while reject_times and reject_times[0] < t - 1.0:
-            reject_times.popleft()
         phase_word = ps.PHASES[int(phase)]
         event_word = (ps.EVENTS[int(event)] if event != ps.EV_CHANGE else
                       "change: " + change_text(int(change), change_g,
@@ -356,8 +336,8 @@ class Pipeline:
         pattern = int(pattern)
         level, state, message = self._health.judge(
             phase_word, startup_remaining, since_contact_end, pattern, nis_avg, nis_lo, nis_hi,
-            int(samples), condition, len(reject_times), rate, stamp_from_receive)
-        nv = model.nv
+            int(samples), condition, len(self._reject_times), rate, stamp_from_receive)
+        nv = self.model.nv
         of = ps.OUT_FIXED
         # positional, in the field order of Estimate (a keyword call costs ~40 % more here)
         return Estimate(
@@ -376,7 +356,6 @@ class Pipeline:
         compiled step and the level and state of the health verdict run (no Estimate, no
         message). A block whose arrays or names do not fit goes through :meth:`process`."""
         k = len(block)
-        nv = self.model.nv
         out = np.empty((k, len(self._out)))
         levels = np.zeros(k, np.int8)
         states: list[str] = []
@@ -391,10 +370,7 @@ class Pipeline:
             Q = None
         times = block.time.tolist()
         flags = block.stamp_from_receive.tolist()
-        terms = self.model.terms
-        step, S, JS, P3 = ps.pipeline_step, self._S, self._JS, self._P3
         level_state = self._health.level_state
-        reject_times = self._reject_times
         for i in range(k):
             t = times[i]
             if Q is None:   # one by one
@@ -405,29 +381,19 @@ class Pipeline:
                     levels[i] = est.level
                     states.append(est.state)
                 continue
-            if self.kinematics is None:
-                self._warm_up(t)
-            q, v, e = Q[i], V[i], E[i]
-            pose, mass, coriolis, gravity, jacobian = terms(q, v)
             row = out[i]
-            code = step(S, JS, P3, self._kinematics_buffer, self.filter.windows_array, row, t,
-                        q, v, e, mass, coriolis, gravity, jacobian, pose)
+            code = self._step(t, Q[i], V[i], E[i], row)
             if code:
-                if code == ps.STEP_INVALID_SAMPLE:
-                    self._invalid(block.sample(i))
-                else:
-                    self._step_refused(code, t)
+                self._refused(code, block.sample(i), t)
                 continue
             keep[i] = True
             (nis_avg, nis_lo, nis_hi, _, _, condition, rate, _, _, phase, _, pattern, samples, _,
              since_contact_end) = row[ps.O_NIS_AVERAGE:ps.O_SINCE_CONTACT_END + 1].tolist()
-            while reject_times and reject_times[0] < t - 1.0:
-                reject_times.popleft()
             levels[i], state = level_state(
                 ps.PHASES[int(phase)], since_contact_end, int(pattern), nis_avg, nis_lo, nis_hi,
-                int(samples), condition, len(reject_times), rate, flags[i])
+                int(samples), condition, len(self._reject_times), rate, flags[i])
             states.append(state)
-        return EstimateBlock(block.time[keep], out[keep], levels[keep], states, nv)
+        return EstimateBlock(block.time[keep], out[keep], levels[keep], states)
 
     # --- what the last sample did inside (for the tuning command) ---------------------------
     def filter_input(self) -> tuple[float, tuple[float, ...], float, np.ndarray] | None:
@@ -456,6 +422,27 @@ class Pipeline:
         return self._last_mass
 
     # --- helpers ---------------------------------------------------------------------------
+    def _step(self, t: float, q: np.ndarray, v: np.ndarray, effort: np.ndarray,
+              row: np.ndarray) -> int:
+        """One sample's Pinocchio calls and compiled step, its output in ``row``; returns the
+        step's code (0: done). Also keeps the reject times of the last second only."""
+        if self.kinematics is None:
+            self._warm_up(t)
+        pose, mass, coriolis, gravity, jacobian = self.model.terms(q, v)
+        self._last_mass = mass
+        code = ps.pipeline_step(self._S, self._JS, self._P3, self._kinematics_buffer,
+                                self.filter.windows_array, row, t, q, v, effort, mass, coriolis,
+                                gravity, jacobian, pose)
+        reject_times = self._reject_times
+        while reject_times and reject_times[0] < t - 1.0:
+            reject_times.popleft()
+        return code
+
+    def _refused(self, code: int, sample: Sample, t: float) -> None:
+        if code == ps.STEP_INVALID_SAMPLE:
+            return self._invalid(sample)
+        return self._step_refused(code, t)
+
     def _invalid(self, sample: Sample) -> None:
         """A sample refused before any stage saw it: the validator (with the last valid stamp)
         names the reason, else the joint mapping does; the rejection is counted."""

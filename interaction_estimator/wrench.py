@@ -243,8 +243,6 @@ class Direction:
         s[DI_WINDOW] = window
         s[DI_COS_HYSTERESIS] = float(np.cos(np.radians(hysteresis_deg)))
         s[DI_MIN_TRAVEL] = min_travel
-        self.window, self.min_travel = window, min_travel
-        self.cos_hysteresis = float(s[DI_COS_HYSTERESIS])
         self.reset()
 
     @property
@@ -370,9 +368,6 @@ class AlongKinematics:
         n = max(int(round(window / nominal_dt)) | 1, polyorder + 2 | 1)
         self.n = n
         self.half = n // 2
-        self.polyorder = polyorder
-        self.gain = observer_gain
-        self.nominal_dt = nominal_dt
         self._sc = np.zeros(KINEMATICS_SIZE) if sc is None else sc
         self._buf = np.zeros((6, 2 * n))
         # savgol_coeffs with use='dot' gives weights for the window in time order
@@ -392,7 +387,7 @@ class AlongKinematics:
     @property
     def lag(self) -> float:
         """Lag of the aligned values behind the newest sample, s (nominal spacing)."""
-        return self.half * self.nominal_dt
+        return self.half * float(self._sc[KI_NOMINAL_DT])
 
     @property
     def position(self) -> float:

@@ -509,11 +509,11 @@ def big_endian_cdr(msg) -> bytes:
     u32(len(msg.name))
     for name in msg.name:
         string(name)
-    for values in (msg.position, msg.velocity, msg.effort):
-        u32(len(values))
-        if len(values):
+    for array_ in (msg.position, msg.velocity, msg.effort):
+        u32(len(array_))
+        if len(array_):
             align(8)
-            out += struct.pack(f">{len(values)}d", *values)
+            out += struct.pack(f">{len(array_)}d", *array_)
     return bytes(out)
 
 
