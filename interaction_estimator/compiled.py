@@ -32,7 +32,7 @@ from pathlib import Path
 import numba
 
 # the modules whose functions are compiled (their sources name the cache directory)
-KERNEL_MODULES = ("compiled", "observer", "wrench", "environment", "pipeline_step")
+KERNEL_MODULES = ("compiled", "health", "observer", "wrench", "environment", "pipeline_step")
 
 
 def _cache_dir() -> Path:
@@ -62,7 +62,7 @@ def warm_up() -> float:
     from .observer import (BiasEstimator, ContactMonitor, FrictionModel,
                            KalmanMomentumObserver, MomentumObserver)
     from .pipeline import Pipeline
-    from .samples import Sample
+    from .samples import Sample, SampleBlock
     from .scenarios import marten
     from .settings import Settings
     from .wrench import AlongKinematics, Direction, WrenchMap
@@ -79,6 +79,9 @@ def warm_up() -> float:
         for k in range(60):
             push = np.full(len(names), 30.0 if k > 30 else 0.0)
             pipe.process(Sample(k * 1e-3, names, zeros + 0.3, zeros + 0.01 * k, push))
+        rows = np.ones((20, len(names)))   # and a recording's block (Pipeline.process_block)
+        pipe.process_block(SampleBlock(np.arange(60, 80) * 1e-3, names, rows * 0.3,
+                                       rows * 0.6, rows * 30.0, np.zeros(20, bool)))
     n = 2
     obs = [KalmanMomentumObserver(np.full(n, 50.0), 0.003, 0.1, 1.0),
            KalmanMomentumObserver(np.array([50.0, 60.0]), 0.003, 0.1, 1.0),

@@ -208,6 +208,17 @@ class RobotModel:
                 pin.computeGeneralizedGravity(m, d, q),
                 pin.getFrameJacobian(m, d, fid, pin.LOCAL_WORLD_ALIGNED))
 
+    def terms_block(self, Q: np.ndarray, V: np.ndarray) -> tuple[np.ndarray, ...]:
+        """:meth:`terms` of each row of Q (k, nq) and V (k, nv), stacked: (poses (k, 4, 4),
+        M (k, nv, nv), C (k, nv, nv), g (k, nv), Jacobians (k, 6, nv))."""
+        k, nv = len(Q), self.nv
+        H, M, C = np.empty((k, 4, 4)), np.empty((k, nv, nv)), np.empty((k, nv, nv))
+        G, J = np.empty((k, nv)), np.empty((k, 6, nv))
+        terms = self.terms
+        for i, (q, v) in enumerate(zip(Q, V)):
+            H[i], M[i], C[i], G[i], J[i] = terms(q, v)
+        return H, M, C, G, J
+
     def dynamics(self, q: np.ndarray, v: np.ndarray) -> Dynamics:
         """M, C^T q', g, contact Jacobian and pose at (q (nq,), v (nv,))."""
         pose, mass, coriolis, gravity, jac = self.terms(q, v)

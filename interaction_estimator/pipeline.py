@@ -25,7 +25,7 @@ from . import pipeline_step as ps
 from .environment import (EO_F, EO_H, EO_T, FILTER_CONFIG_SIZE,
                           FILTER_OUTPUT_SIZE, FILTER_STATE_SIZE, EnvironmentFilter,
                           change_text)
-from .health import ALL_CONVERGED, Health
+from .health import ALL_CONVERGED, PHASES, STATES, Health
 from .model import RobotModel
 from .observer import (BIAS_SIZE, CONTACT_ROWS, CONTACT_SIZE, OBSERVER_ROWS, OBSERVER_SIZE,
                        BiasEstimator, ContactMonitor, FrictionModel, KalmanMomentumObserver,
@@ -36,6 +36,8 @@ from .wrench import DIRECTION_SIZE, KINEMATICS_SIZE, AlongKinematics, Direction,
 
 _LEARN_INTERVAL = 0.01  # s: longest interval of quiet samples between noise-level updates
 _KINEMATICS_WARMUP = 10  # samples used to learn the nominal sample interval before building AlongKinematics
+_STATE_WORDS = np.array(STATES, dtype=object)
+_NO_TIMES = np.zeros(0)
 _FLAG_ARRAYS = tuple(np.array([bool(bits >> i & 1) for i in range(4)]) for bits in range(16))
 for _a in _FLAG_ARRAYS:   # shared by the Estimates that carry them: read-only
     _a.setflags(write=False)
@@ -241,6 +243,9 @@ class Pipeline:
         S[ps.PS_PRIOR_MEASUREMENT_STD] = s["filter.measurement_std"]
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"])
+        S[ps.PS_CONDITION_LIMIT] = s["wrench.condition_limit"]
+        S[ps.PS_MIN_RATE] = s["health.min_rate"]
+        S[ps.PS_STALE_AFTER] = s["health.stale_after"]
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -319,24 +324,24 @@ class Pipeline:
         except (SampleRejected, IndexError):
             return self._invalid(sample)
         t = float(sample.time)
-        code = self._step(t, q, v, effort, self._out)
+        stamp_from_receive = sample.stamp_from_receive
+        code = self._step(t, q, v, effort, self._out, stamp_from_receive)
         if code:
             return self._refused(code, sample, t)
         o = self._out.copy()
         (_, _, _, _, _, _, _, _, _, force_along, position_along, velocity_along,
          acceleration_along, _, _, _, _, _, _, _, _, nis, nis_avg, nis_lo, nis_hi, meas_std,
-         contact_level, condition, rate, lag, bias_age, phase, event, pattern, samples,
-         startup_remaining, since_contact_end, change, change_g,
-         restarts) = o[:ps.O_RESTARTS + 1].tolist()
-        phase_word = ps.PHASES[int(phase)]
+         contact_level, condition, rate, lag, bias_age, phase, event, pattern, _,
+         startup_remaining, since_contact_end, change, change_g, restarts, _, _, _, _, _, _,
+         _, _, level, state, findings) = o[:ps.O_FINDINGS + 1].tolist()
         event_word = (ps.EVENTS[int(event)] if event != ps.EV_CHANGE else
                       "change: " + change_text(int(change), change_g,
                                                self.filter._cfg.change_threshold))
-        stamp_from_receive = sample.stamp_from_receive
         pattern = int(pattern)
-        level, state, message = self._health.judge(
-            phase_word, startup_remaining, since_contact_end, pattern, nis_avg, nis_lo, nis_hi,
-            int(samples), condition, len(self._reject_times), rate, stamp_from_receive)
+        state = int(state)
+        message = self._health.message(
+            state, int(findings), startup_remaining, since_contact_end, pattern, nis_avg, nis_lo,
+            nis_hi, condition, len(self._reject_times), rate)
         nv = self.model.nv
         of = ps.OUT_FIXED
         # positional, in the field order of Estimate (a keyword call costs ~40 % more here)
@@ -344,56 +349,70 @@ class Pipeline:
             t, o[0:3], o[3:6] if self.wrench_map.full_wrench else self.wrench_map.no_torque,
             o[6:9], force_along, position_along, velocity_along, acceleration_along, o[13:17],
             o[17:21], _FLAG_ARRAYS[pattern & 15], _FLAG_ARRAYS[pattern >> 4],
-            pattern & ALL_CONVERGED == ALL_CONVERGED, phase == 2.0, phase_word, level, state,
-            message, nis, nis_avg, (nis_lo, nis_hi), meas_std, o[of:of + nv],
+            pattern & ALL_CONVERGED == ALL_CONVERGED, phase == 2.0, PHASES[int(phase)],
+            int(level), STATES[state], message, nis, nis_avg, (nis_lo, nis_hi), meas_std, o[of:of + nv],
             o[of + nv:of + 2 * nv], bias_age, contact_level, condition, int(restarts),
             self.rejects.total, rate, lag, event_word, stamp_from_receive)
 
     def process_block(self, block: SampleBlock) -> EstimateBlock:
         """The samples of a block, in order, as :meth:`process` would take them one by one
         (same numbers, same refusals and counts, same level and state), for a recording: the
-        joint mapping is made once for the block, and per sample only the Pinocchio calls, the
-        compiled step and the level and state of the health verdict run (no Estimate, no
-        message). A block whose arrays or names do not fit goes through :meth:`process`."""
+        joint mapping is made once for the block, the Pinocchio calls for all its samples, and
+        then one compiled call (:func:`~.pipeline_step.pipeline_run`) runs the step on sample
+        after sample, the health level and state included, returning to Python only at a
+        refusal (no Estimate, no message). Until the nominal interval is learned, and for a
+        block whose arrays or names do not fit, samples go one at a time."""
         k = len(block)
         out = np.empty((k, len(self._out)))
-        levels = np.zeros(k, np.int8)
-        states: list[str] = []
-        keep = np.zeros(k, bool)
+        keep = np.ones(k, bool)
         n = len(block.names)
         try:
             if not (block.position.shape == block.velocity.shape == block.effort.shape
                     == (k, n)):
                 raise SampleRejected("length_mismatch", "")
-            Q, V, E = self.model.joint_map(block.names).apply_block(block)
+            Q, V, E = (np.ascontiguousarray(a, dtype=float)
+                       for a in self.model.joint_map(block.names).apply_block(block))
         except (SampleRejected, IndexError):
-            Q = None
-        times = block.time.tolist()
-        flags = block.stamp_from_receive.tolist()
-        level_state = self._health.level_state
-        for i in range(k):
-            t = times[i]
-            if Q is None:   # one by one
-                est = self.process(block.sample(i))
-                if est is not None:
+            for i in range(k):   # one by one: the validator names what is wrong
+                if self.process(block.sample(i)) is None:
+                    keep[i] = False
+                else:
                     out[i] = self._out
-                    keep[i] = True
-                    levels[i] = est.level
-                    states.append(est.state)
-                continue
-            row = out[i]
-            code = self._step(t, Q[i], V[i], E[i], row)
+            return self._block_estimates(block, out, keep)
+        T = np.ascontiguousarray(block.time, dtype=float)
+        receive = np.ascontiguousarray(block.stamp_from_receive, dtype=float)
+        H, M, C, G, J = self.model.terms_block(Q, V)
+        i = 0
+        while i < k:
+            if self.kinematics is None:   # learning the nominal interval: one at a time
+                t = float(T[i])
+                code = self._step(t, Q[i], V[i], E[i], out[i], bool(receive[i]),
+                                  (H[i], M[i], C[i], G[i], J[i]))
+            else:
+                times = np.array(self._reject_times) if self._reject_times else _NO_TIMES
+                i, code = ps.pipeline_run(self._S, self._JS, self._P3, self._kinematics_buffer,
+                                          self.filter.windows_array, out, i, T, Q, V, E, M, C,
+                                          G, J, H, receive, times)
+                if i == k:
+                    break
+                t = float(T[i])
+                self._forget_rejects(t)
             if code:
+                keep[i] = False
                 self._refused(code, block.sample(i), t)
-                continue
-            keep[i] = True
-            (nis_avg, nis_lo, nis_hi, _, _, condition, rate, _, _, phase, _, pattern, samples, _,
-             since_contact_end) = row[ps.O_NIS_AVERAGE:ps.O_SINCE_CONTACT_END + 1].tolist()
-            levels[i], state = level_state(
-                ps.PHASES[int(phase)], since_contact_end, int(pattern), nis_avg, nis_lo, nis_hi,
-                int(samples), condition, len(self._reject_times), rate, flags[i])
-            states.append(state)
-        return EstimateBlock(block.time[keep], out[keep], levels[keep], states)
+            i += 1
+        if k:
+            self._last_mass = M[-1]
+            self._forget_rejects(float(T[-1]))
+        return self._block_estimates(block, out, keep)
+
+    @staticmethod
+    def _block_estimates(block: SampleBlock, out: np.ndarray, keep: np.ndarray
+                         ) -> EstimateBlock:
+        if not keep.all():
+            out = out[keep]
+        return EstimateBlock(block.time[keep], out, out[:, ps.O_LEVEL].astype(np.int8),
+                             _STATE_WORDS[out[:, ps.O_STATE].astype(np.intp)])
 
     # --- what the last sample did inside (for the tuning command) ---------------------------
     def filter_input(self) -> tuple[float, tuple[float, ...], float, np.ndarray] | None:
@@ -423,20 +442,30 @@ class Pipeline:
 
     # --- helpers ---------------------------------------------------------------------------
     def _step(self, t: float, q: np.ndarray, v: np.ndarray, effort: np.ndarray,
-              row: np.ndarray) -> int:
-        """One sample's Pinocchio calls and compiled step, its output in ``row``; returns the
-        step's code (0: done). Also keeps the reject times of the last second only."""
+              row: np.ndarray, stamp_from_receive: bool,
+              terms: tuple[np.ndarray, ...] | None = None) -> int:
+        """One sample's Pinocchio calls (unless ``terms`` holds them, as
+        :meth:`RobotModel.terms` returns them) and compiled step, its output in ``row``;
+        returns the step's code (0: done). The reject times older than a second are dropped
+        first: the step counts the others."""
         if self.kinematics is None:
             self._warm_up(t)
-        pose, mass, coriolis, gravity, jacobian = self.model.terms(q, v)
+        pose, mass, coriolis, gravity, jacobian = (self.model.terms(q, v) if terms is None
+                                                   else terms)
         self._last_mass = mass
-        code = ps.pipeline_step(self._S, self._JS, self._P3, self._kinematics_buffer,
+        S = self._S
+        S[ps.PS_RECENT_REJECTS] = self._forget_rejects(t)
+        S[ps.PS_FROM_RECEIVE] = stamp_from_receive
+        return ps.pipeline_step(S, self._JS, self._P3, self._kinematics_buffer,
                                 self.filter.windows_array, row, t, q, v, effort, mass, coriolis,
                                 gravity, jacobian, pose)
+
+    def _forget_rejects(self, t: float) -> int:
+        """Drop the reject times more than a second before ``t`` s; returns how many are left."""
         reject_times = self._reject_times
         while reject_times and reject_times[0] < t - 1.0:
             reject_times.popleft()
-        return code
+        return len(reject_times)
 
     def _refused(self, code: int, sample: Sample, t: float) -> None:
         if code == ps.STEP_INVALID_SAMPLE:

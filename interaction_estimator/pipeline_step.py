@@ -28,6 +28,7 @@ from .environment import (CHANGE_REGAINED, EO_NIS, EO_NIS_AVERAGE, EO_NIS_HI, EO
                           EO_PATTERN, EO_R, EO_SAMPLES, EO_STD, EO_THETA, EF_SAMPLES,
                           FILTER_CONFIG_SIZE, FILTER_OUTPUT_SIZE, FILTER_STATE_SIZE, UPDATED,
                           EO_CHANGE, EO_CHANGE_G, filter_inflate, filter_update)
+from .health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING, PHASES, health_verdict  # noqa: F401
 from .observer import (BI_LAST, BIAS_SIZE, CM_EXIT, CM_IN_CONTACT, CM_PENDING, CONTACT_ROWS,
                        CONTACT_SIZE, EVENT_BEGIN, EVENT_END, OB_RESTARTS, OBSERVER_ROWS,
                        OBSERVER_SIZE, bias_update, contact_learn_power, contact_step,
@@ -70,7 +71,12 @@ PS_PRIOR_MEAN = _P + 21     # 21..24 filter.initial_mean
 PS_PRIOR_STD = _P + 25      # 25..28 filter.initial_std
 PS_PRIOR_MEASUREMENT_STD = _P + 29  # N, filter.measurement_std
 PS_LAST_VALID = _P + 30     # s, stamp of the last sample that passed validation (NaN: none)
-S_SIZE = _P + 31
+PS_CONDITION_LIMIT = _P + 31  # wrench.condition_limit
+PS_MIN_RATE = _P + 32       # Hz, health.min_rate
+PS_STALE_AFTER = _P + 33    # s, health.stale_after
+PS_RECENT_REJECTS = _P + 34  # samples rejected over the second before this sample (set by the caller)
+PS_FROM_RECEIVE = _P + 35   # 1: this sample's stamp is its receive time (set by the caller)
+S_SIZE = _P + 36
 
 # --- JS: per-joint rows ----------------------------------------------------------------------
 J_OBSERVER = 0              # OBSERVER_ROWS rows
@@ -117,10 +123,11 @@ O_RESTARTS = 39
 O_ROW = 40                  # 40..45 the filter's input of this sample: h (4), f N, t s
 O_UPDATED = 46              # 1: the filter was updated at this sample
 O_REGAINED = 47             # 1: the covariance was inflated for a regained contact
-OUT_FIXED = 48              # then residual (nv) N·m, bias (nv) N·m, raw residual (nv) N·m
+O_LEVEL = 48                # health level (health.OK ... STALE)
+O_STATE = 49                # health state code (health.STATE_*; word in health.STATES)
+O_FINDINGS = 50             # health findings (health.FINDING_* bits)
+OUT_FIXED = 51              # then residual (nv) N·m, bias (nv) N·m, raw residual (nv) N·m
 
-PHASE_LEARNING, PHASE_FREE, PHASE_CONTACT = 0, 1, 2
-PHASES = ("learning_bias", "free", "contact")
 EV_NONE, EV_RESTARTED, EV_BEGIN, EV_END, EV_RESUMED, EV_CHANGE = 0, 1, 2, 3, 4, 5
 EVENTS = ("", "observer_restarted", "contact_begin", "contact_end", "contact_resumed")
 
@@ -397,4 +404,38 @@ def pipeline_step(S, JS, P3, KB, W, out, t, q, v, effort, M, C, g, J, H):
         out[OUT_FIXED + j] = residual[j]
         out[OUT_FIXED + nv + j] = bias[j]
         out[OUT_FIXED + 2 * nv + j] = raw[j]
+    level, state, findings = health_verdict(
+        phase, out[O_SINCE_CONTACT_END], pattern, out[O_NIS_AVERAGE], out[O_NIS_LO],
+        out[O_NIS_HI], samples, condition, S[PS_RECENT_REJECTS], rate,
+        S[PS_FROM_RECEIVE] != 0.0, S[PS_CONDITION_LIMIT], S[PS_MIN_RATE], S[PS_STALE_AFTER])
+    out[O_LEVEL] = level
+    out[O_STATE] = state
+    out[O_FINDINGS] = findings
     return STEP_DONE
+
+
+@kernel
+def pipeline_run(S, JS, P3, KB, W, OUT, start, T, Q, V, E, M, C, G, J, H, FROM_RECEIVE,
+                 REJECT_TIMES):
+    """:func:`pipeline_step` on samples ``start``, ``start`` + 1, ... of a block (row i of
+    each array: sample i; OUT row i its output row; FROM_RECEIVE (k,) 1 where a stamp is the
+    receive time), until the block ends or a step does not return STEP_DONE. REJECT_TIMES:
+    the stamps, s, of the samples rejected before ``start`` (ascending), from which each
+    sample's count of rejects over the second before it is taken.
+
+    Returns (index, code): the first sample whose step returned ``code`` != STEP_DONE, or
+    (k, STEP_DONE) when every sample from ``start`` on was done."""
+    k = T.shape[0]
+    first = 0
+    m = REJECT_TIMES.shape[0]
+    for i in range(start, k):
+        t = T[i]
+        while first < m and REJECT_TIMES[first] < t - 1.0:
+            first += 1
+        S[PS_RECENT_REJECTS] = m - first
+        S[PS_FROM_RECEIVE] = FROM_RECEIVE[i]
+        code = pipeline_step(S, JS, P3, KB, W, OUT[i], t, Q[i], V[i], E[i], M[i], C[i], G[i],
+                             J[i], H[i])
+        if code != STEP_DONE:
+            return i, code
+    return k, STEP_DONE
