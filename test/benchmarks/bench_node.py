@@ -15,13 +15,17 @@ answered.
 With ``--source DIR`` (repeatable) the nodes of those copies of the package
 (DIR/interaction_estimator, each named after DIR) are measured instead of this checkout's, and
 ``--rounds N`` repeats every subject N times in turn (floor, then each node, then floor again,
-...), so versions are compared under the same load.
+...), so versions are compared under the same load; the rounds of each subject are then pooled
+(all its latencies and CPU time as one measurement of ``N * duration`` s), and the targets are
+checked on the pooled figures: a slow spell of the shared machine then falls on every subject
+instead of on whichever one it happened to be measuring.
 
 Run: .venv/bin/python test/benchmarks/bench_node.py --duration 20
 """
 from __future__ import annotations
 
 import argparse
+import gc
 import os
 import signal
 import subprocess
@@ -219,13 +223,29 @@ def measure(name: str, command: list[str], namespace: str, cycle: list[JointStat
     window = {stamp: arrival for stamp, arrival in driver.arrivals if first <= stamp <= last}
     latency = np.array([window[s] - s for s in sent if s in window], dtype=float) * 1e-6
     answered = len(latency) / len(sent)
-    out = {"sent": len(sent), "answered": answered, "load": load,
+    out = {"sent": len(sent), "answered": answered, "load": load, "latency": latency,
+           "cpu_seconds": cpu1 - cpu0, "wall_seconds": wall1 - wall0,
            "cpu": (cpu1 - cpu0) / (wall1 - wall0) * 100.0,
            "cpu_per_answer": (cpu1 - cpu0) / max(len(latency), 1) * 1e6}
     if driver.status is not None:  # the node's own figure: receive -> published, mean
         kv = {v.key: v.value for v in driver.status.values}
         if kv.get("latency[s]", "n/a") != "n/a":
             out["processing"] = float(kv["latency[s]"]) * 1e3
+    if len(latency):
+        out.update(p50=float(np.percentile(latency, 50)), p99=float(np.percentile(latency, 99)),
+                   max=float(latency.max()))
+    return out
+
+
+def pool(runs: list[dict[str, float]]) -> dict[str, float]:
+    """One subject's rounds as one measurement: latencies, messages and CPU time summed."""
+    latency = np.concatenate([r["latency"] for r in runs])
+    sent = sum(r["sent"] for r in runs)
+    cpu = sum(r["cpu_seconds"] for r in runs)
+    out = {"sent": sent, "answered": len(latency) / sent, "latency": latency,
+           "load": max(r["load"] for r in runs),
+           "cpu": cpu / sum(r["wall_seconds"] for r in runs) * 100.0,
+           "cpu_per_answer": cpu / max(len(latency), 1) * 1e6}
     if len(latency):
         out.update(p50=float(np.percentile(latency, 50)), p99=float(np.percentile(latency, 99)),
                    max=float(latency.max()))
@@ -283,6 +303,10 @@ def main(argv: list[str] | None = None) -> int:
     print(f"{'subject':<12} {'sent':>7} {'answered':>9} {'p50 ms':>8} {'p99 ms':>8} "
           f"{'max ms':>8} {'CPU %':>6} {'CPU us':>7} {'proc ms':>8} {'load':>5}", flush=True)
     results: dict[str, list[dict[str, float]]] = {name: [] for name in subjects}
+    # this process's own set-up objects kept out of the garbage collector's full passes (as the
+    # node does with its own): a full pass over them pauses the driver for tens of ms
+    gc.collect()
+    gc.freeze()
     for _ in range(args.rounds):
         for name, (command, namespace, cwd) in subjects.items():
             r = measure(name, command, namespace, cycle, args.duration, args.rate, cwd)
@@ -293,6 +317,14 @@ def main(argv: list[str] | None = None) -> int:
           "the node's own processing time per message (its status latency[s], running mean); "
           "load: the machine's 1-minute load average at the end of the window (other processes "
           "count).")
+    if args.rounds > 1:   # each subject's rounds pooled: its whole measured time at once
+        print(f"pooled over the {args.rounds} rounds ({args.rounds * args.duration:.0f} s per "
+              "subject, interleaved):")
+        for name, runs in results.items():
+            runs = [r for r in runs if "latency" in r]
+            if runs:
+                results[name] = [pool(runs)]
+                print_row(name, results[name][0])
     for name in subjects:
         if name == "floor":
             continue
