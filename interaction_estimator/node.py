@@ -372,8 +372,7 @@ class EstimatorNode(Node):
         decide now)."""
         pipeline = self.pipeline
         before = pipeline.rejects.total
-        est = pipeline.process(sample)
-        if est is None:
+        if not pipeline.advance(sample):
             if pipeline.rejects.total > before:
                 self._note_pipeline_reject(pipeline)
             return
@@ -381,16 +380,19 @@ class EstimatorNode(Node):
             self._input_age = math.nan
         elif receive == receive:   # read (not NaN)
             self._input_age = receive - sample.time
-        if est.observer_restarts > self._last_restarts:
-            self._last_restarts = est.observer_restarts
+        restarts = pipeline.observer_restarts
+        if restarts > self._last_restarts:
+            self._last_restarts = restarts
             self._throttle.emit("observer_restarted", (
-                f"momentum observer restarted at {est.time:.6f} s: the gap since the previous "
-                f"sample exceeds observer.max_gap = {self.settings['observer.max_gap']:g} s "
-                f"({est.observer_restarts} restarts so far)"))
+                f"momentum observer restarted at {sample.time:.6f} s: the gap since the "
+                f"previous sample exceeds observer.max_gap = "
+                f"{self.settings['observer.max_gap']:g} s ({restarts} restarts so far)"))
         if sample.stamp_from_receive:
             self._throttle.emit("stamp_from_receive", "joint state stamps are zero: the "
                                 "receive time is used instead (less accurate)")
-        numbers = output_numbers(est)
+        # the messages from the numbers alone; the Estimate (health words, figures) is built
+        # only when a status is published
+        numbers = output_numbers(pipeline.last_outputs())
         if numbers is not None:
             force, torque, values, stds = numbers
             if sample.stamp_from_receive:
@@ -404,11 +406,12 @@ class EstimatorNode(Node):
             self._environment_pub.publish(self._environment_encoder.encode(values, stds))
         else:
             self._reject_node(SampleRejected(
-                "non_finite_output", f"estimate at {est.time:.6f} s has a non-finite force or "
-                "parameter; not published"))
+                "non_finite_output", f"estimate at {sample.time:.6f} s has a non-finite force "
+                "or parameter; not published"))
         self._latency.add(time.perf_counter() - start)
         now = self._last_processed = time.monotonic()
         if self._status_due() if due is None else due:
+            est = pipeline.estimate()
             self._publish(status_fields(est, self._figures(est), self._hardware_id()), now)
 
     # --- rejects and errors ----------------------------------------------------------------

@@ -126,23 +126,30 @@ def efforts_for_state(state: JointState, efforts: JointState,
     return [float(by_name.get(n, 0.0)) for n in names], ""
 
 
-def output_numbers(est) -> tuple[list[float], list[float], list[float], list[float]] | None:
-    """(force N, torque N·m, parameters, their standard deviations) as float lists: every
-    number the wrench and environment messages carry; None when any of them is not finite.
+def output_numbers(numbers: Sequence[float]
+                   ) -> tuple[list[float], list[float], list[float], list[float]] | None:
+    """The 14 numbers the wrench and environment messages carry (force (3) N, torque (3) N·m,
+    parameters (4), their standard deviations (4): :meth:`.Pipeline.last_outputs`, or
+    :func:`estimate_outputs`) split into those four lists; None when any of them is not finite.
 
-    One sum per array: NaN or infinity anywhere makes it non-finite (a sum of huge finite
-    values that overflows counts as non-finite too, which errs on the safe side)."""
-    force, torque = est.force.tolist(), est.torque.tolist()
-    values, stds = est.parameters.tolist(), est.parameter_std.tolist()
-    if math.isfinite(sum(force) + sum(torque) + sum(values) + sum(stds)):
-        return force, torque, values, stds
+    One sum: NaN or infinity anywhere makes it non-finite (a sum of huge finite values that
+    overflows counts as non-finite too, which errs on the safe side)."""
+    if math.isfinite(sum(numbers)):
+        return numbers[0:3], numbers[3:6], numbers[6:10], numbers[10:14]
     return None
+
+
+def estimate_outputs(est) -> list[float]:
+    """The 14 numbers of an Estimate that the output messages carry, in the order of
+    :meth:`.Pipeline.last_outputs`."""
+    return (est.force.tolist() + est.torque.tolist() + est.parameters.tolist()
+            + est.parameter_std.tolist())
 
 
 def outputs_finite(est) -> bool:
     """True when every number the wrench and environment messages would carry is finite
     (see :func:`output_numbers`)."""
-    return output_numbers(est) is not None
+    return output_numbers(estimate_outputs(est)) is not None
 
 
 def wrench_message(est, frame_id: str, stamp: TimeMsg,

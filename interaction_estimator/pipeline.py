@@ -163,6 +163,7 @@ class Pipeline:
         self._out = np.zeros(ps.OUT_FIXED + 3 * nv)
         self._no_kinematics = np.zeros((6, 2))
         self._last_mass: np.ndarray | None = None
+        self._last = (math.nan, False)   # time s and receive-time flag of the last processed sample
         self._configure(settings)
         S = self._S
         self.filter = EnvironmentFilter(
@@ -312,6 +313,12 @@ class Pipeline:
     # --- one sample ---------------------------------------------------------------------
     def process(self, sample: Sample) -> Estimate | None:
         """One sample in, one Estimate out; None when the sample is rejected (and counted).
+        :meth:`advance`, then :meth:`estimate`."""
+        return self.estimate() if self.advance(sample) else None
+
+    def advance(self, sample: Sample) -> bool:
+        """One sample through every stage; True when it was processed (:meth:`estimate` and
+        :meth:`last_outputs` then tell its results), False when it was rejected (and counted).
 
         The validator's checks of the numbers (finite values, stamps in order) run inside the
         compiled step, before anything changes; a sample they refuse goes to the validator
@@ -322,12 +329,39 @@ class Pipeline:
                 raise SampleRejected("length_mismatch", "")   # the validator says why
             q, v, effort = self.model.joint_map(sample.names).apply(sample)
         except (SampleRejected, IndexError):
-            return self._invalid(sample)
+            self._invalid(sample)
+            return False
         t = float(sample.time)
         stamp_from_receive = sample.stamp_from_receive
         code = self._step(t, q, v, effort, self._out, stamp_from_receive)
         if code:
-            return self._refused(code, sample, t)
+            self._refused(code, sample, t)
+            return False
+        self._last = (t, stamp_from_receive)
+        return True
+
+    def last_outputs(self) -> list[float]:
+        """What the output messages carry, of the last sample :meth:`advance` processed, as 14
+        floats: force (3) N and torque (3) N·m the robot applies, world frame (torque 0 when
+        ``wrench.mode`` is force), then the parameters [mass kg, damping N·s/m, stiffness N/m,
+        static force N] and their four standard deviations (same units). The same numbers as
+        :meth:`estimate`'s, without building it (the node's per-message path)."""
+        o = self._out
+        if self.wrench_map.full_wrench:
+            return o[ps.O_FORCE:ps.O_TORQUE + 3].tolist() + o[ps.O_PARAMETERS:ps.O_STD + 4].tolist()
+        return (o[ps.O_FORCE:ps.O_FORCE + 3].tolist() + [0.0, 0.0, 0.0]
+                + o[ps.O_PARAMETERS:ps.O_STD + 4].tolist())
+
+    @property
+    def observer_restarts(self) -> int:
+        """Times the momentum observer restarted (a gap longer than ``observer.max_gap`` s),
+        as of the last processed sample."""
+        return int(self._out[ps.O_RESTARTS])
+
+    def estimate(self) -> Estimate:
+        """The Estimate of the last sample :meth:`advance` processed (built from its results,
+        with the reject counts as they stand now: call it before the next sample)."""
+        t, stamp_from_receive = self._last
         o = self._out.copy()
         (_, _, _, _, _, _, _, _, _, force_along, position_along, velocity_along,
          acceleration_along, _, _, _, _, _, _, _, _, nis, nis_avg, nis_lo, nis_hi, meas_std,
@@ -374,7 +408,7 @@ class Pipeline:
                        for a in self.model.joint_map(block.names).apply_block(block))
         except (SampleRejected, IndexError):
             for i in range(k):   # one by one: the validator names what is wrong
-                if self.process(block.sample(i)) is None:
+                if not self.advance(block.sample(i)):
                     keep[i] = False
                 else:
                     out[i] = self._out

@@ -3,12 +3,15 @@
 Contract of the design (DESIGN.md section 2: "for the same input and parameters, node and
 replay produce the same numbers"; no outside source): Pipeline.process_block, which the replay
 uses, against Pipeline.process, which the node uses, on the same samples: every column of the
-estimates table bit for bit, the state words, and the refusals by reason.
+estimates table bit for bit, the state words, and the refusals by reason. And the node's
+per-message path (Pipeline.advance, last_outputs: no Estimate built) against the Estimate's
+numbers, bit for bit.
 """
 import numpy as np
 import pytest
 
 from interaction_estimator.estimates import EstimateTable
+from interaction_estimator.node_messages import estimate_outputs
 from interaction_estimator.pipeline import Pipeline
 from interaction_estimator.samples import SampleBlock
 from interaction_estimator.scenarios.simulator import simulate
@@ -38,12 +41,16 @@ def test_block_path_equals_sample_path(scenario, extra):
     run = simulate(scenario, duration=6.0, seed=5)
     settings = Settings({**run.settings, **extra})
     one, many = Pipeline(settings, run.urdf), Pipeline(settings, run.urdf)
+    lean = Pipeline(settings, run.urdf)
     by_sample, by_block = EstimateTable(), EstimateTable()
     for block in blocks_with_bad_samples(run, 777):
         for i in range(len(block)):
             est = one.process(block.sample(i))
+            assert lean.advance(block.sample(i)) == (est is not None)
             if est is not None:
                 by_sample.append(est)
+                np.testing.assert_array_equal(lean.last_outputs(), estimate_outputs(est))
+                assert lean.observer_restarts == est.observer_restarts
         by_block.append_block(many.process_block(block))
     a, b = by_sample.columns(), by_block.columns()
     assert len(by_sample) == len(by_block) == len(run.time) - 3
@@ -52,7 +59,7 @@ def test_block_path_equals_sample_path(scenario, extra):
             assert list(a[name]) == list(b[name])
         else:
             np.testing.assert_array_equal(a[name], b[name], err_msg=name)
-    assert one.rejects.counts == many.rejects.counts
+    assert one.rejects.counts == many.rejects.counts == lean.rejects.counts
     assert {k for k, v in many.rejects.counts.items() if v} == {
         "non_finite", "duplicate_time", "time_backwards"}
     assert set(a["state"]) >= {"learning_bias", "free_motion", "in_contact"}

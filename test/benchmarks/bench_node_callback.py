@@ -9,8 +9,10 @@ Figures, in µs per message:
 
 - callback: the whole callback, pipeline included;
 - pipeline: ``Pipeline.process`` alone, on the same samples, in a fresh pipeline;
-- node: the callback with ``Pipeline.process`` replaced by a lookup of the estimates it
-  returned in the pipeline run, so this is everything the node does around the pipeline;
+- pipeline (node's path): ``Pipeline.advance`` and ``last_outputs``, what the node calls per
+  message (the Estimate is built only for a status);
+- node: the callback with the pipeline replaced by a lookup of what it returned in a pipeline
+  run, so this is everything the node does around the pipeline;
 - then (for the current node) that cost taken apart: bytes -> Sample, the two per-message
   publications (encoded, published), and one status (NodeFigures, key-values, encoded,
   published), made at ``output.status_rate`` (once every 20 messages at 1 kHz and 50 Hz).
@@ -76,6 +78,36 @@ def make_node(rate: float) -> node_module.EstimatorNode:
     return node_module.EstimatorNode(parameter_overrides=[
         Parameter("robot_description_file", value=str(marten.MOBILE_URDF)),
         Parameter("input.expected_rate", value=float(rate))])
+
+
+class Replayed:
+    """Stands in for a node's Pipeline: hands back, in order, what a real one returned for the
+    same samples (``records``: (last_outputs, Estimate) per sample, None for a refused one);
+    everything else is the real pipeline's."""
+
+    def __init__(self, real: Pipeline, records: list):
+        self._real, self._next, self._current = real, iter(records).__next__, None
+
+    def advance(self, sample) -> bool:
+        self._current = self._next()
+        return self._current is not None
+
+    def last_outputs(self) -> list[float]:
+        return self._current[0]
+
+    def estimate(self):
+        return self._current[1]
+
+    @property
+    def observer_restarts(self) -> int:
+        return self._current[1].observer_restarts
+
+    def process(self, sample):   # a node of a version without advance()
+        record = self._next()
+        return None if record is None else record[1]
+
+    def __getattr__(self, name: str):
+        return getattr(self._real, name)
 
 
 def per_message_us(fn, items) -> float:
@@ -153,7 +185,7 @@ def main(argv: list[str] | None = None) -> int:
         def callback(raw: bytes) -> None:
             node._on_joint_state(deserialize_message(raw, JointState))
     results: dict[str, list[float]] = {k: [] for k in (
-        "callback", "pipeline", "node", "read", "outputs", "status")}
+        "callback", "pipeline", "lean", "node", "read", "outputs", "status")}
     start_ns = 100_000_000_000
     for rep in range(args.repeat):
         # whole callback (a fresh model each pass, so every pass sees the same sequence)
@@ -166,19 +198,30 @@ def main(argv: list[str] | None = None) -> int:
         # the pipeline alone on the same samples
         pipeline = Pipeline(node.settings, urdf)
         samples = [sample_from_joint_state(m, float("nan")) for m in msgs]
-        estimates = []
         t0 = time.perf_counter()
         for s in samples:
-            estimates.append(pipeline.process(s))
+            pipeline.process(s)
         results["pipeline"].append((time.perf_counter() - t0) / len(samples) * 1e6)
+        records = []
+        pipeline = Pipeline(node.settings, urdf)
+        if hasattr(pipeline, "advance"):
+            t0 = time.perf_counter()
+            for s in samples:
+                records.append(pipeline.last_outputs() if pipeline.advance(s) else None)
+            results["lean"].append((time.perf_counter() - t0) / len(samples) * 1e6)
+            pipeline = Pipeline(node.settings, urdf)   # the Estimates, untimed
+            records = [None if r is None else (r, pipeline.process(s))
+                       for r, s in zip(records, samples)]
+        else:
+            records = [(None, pipeline.process(s)) for s in samples]
+            records = [None if r[1] is None else r for r in records]
 
-        # the callback around a pipeline that only hands back those estimates
+        # the callback around a pipeline that only hands back those results
         node._load_model(urdf, "benchmark")
         start_ns += 10 * 1_000_000_000
         restamp(msgs, start_ns, args.rate)
         raws = [serialize_message(m) for m in msgs]
-        it = iter(estimates)
-        node.pipeline.process = lambda sample, _next=it.__next__: _next()
+        node.pipeline = Replayed(node.pipeline, records)
         results["node"].append(per_message_us(callback, raws))
         if not takes_bytes:
             continue
@@ -191,14 +234,15 @@ def main(argv: list[str] | None = None) -> int:
         encoder = nm.WrenchEncoder(node._frame_id())
         env, pub_w, pub_e = node._environment_encoder, node._wrench_pub, node._environment_pub
 
-        def outputs(est):
-            force, torque, values, stds = nm.output_numbers(est)
+        def outputs(record):
+            force, torque, values, stds = nm.output_numbers(record[0])
             pub_w.publish(encoder.encode(12, 34, force, torque))
             pub_e.publish(env.encode(values, stds))
-        kept = [e for e in estimates if e is not None]
+        kept = [r for r in records if r is not None]
         results["outputs"].append(per_message_us(outputs, kept))
         results["status"].append(per_message_us(
-            lambda e: node._publish(nm.status_fields(e, node._figures(e), node._hardware_id()),
+            lambda r: node._publish(nm.status_fields(r[1], node._figures(r[1]),
+                                                     node._hardware_id()),
                                     time.monotonic()), kept[::status_every]))
     rejects = {k: v for k, v in node._rejects().items() if v}
     print(f"bench_node_callback: Marten mobile (10 joints), {args.messages} messages per pass, "
@@ -206,6 +250,8 @@ def main(argv: list[str] | None = None) -> int:
           f"; package {Path(node_module.__file__).parent}; us per message, min (range)")
     print(f"  callback, pipeline included     {figure(results['callback'])}")
     print(f"  Pipeline.process alone          {figure(results['pipeline'])}")
+    if results["lean"]:
+        print(f"  Pipeline.advance + last_outputs {figure(results['lean'])}  (the node's path)")
     print(f"  node around a stub pipeline     {figure(results['node'])}")
     if takes_bytes:
         print(f"    bytes -> Sample               {figure(results['read'])}")
