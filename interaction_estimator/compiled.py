@@ -5,7 +5,7 @@ kinematics, environment filter) is written as plain Python functions on float ar
 to machine code by Numba (Lam, Pitrou and Seibert, "Numba: a LLVM-based Python JIT compiler",
 LLVM-HPC 2015). Each stage's class calls its own functions; the Pipeline calls all of them in one
 compiled step (:mod:`.pipeline_step`), so a sample costs one call from Python instead of a hundred
-small numpy calls.
+small numpy calls. The estimates.csv writer (:mod:`.estimates`) writes its rows the same way.
 
 - ``error_model="numpy"``: a division by zero gives inf or NaN, as numpy does, instead of raising;
   every stage checks its outputs for finiteness where it matters.
@@ -32,7 +32,8 @@ from pathlib import Path
 import numba
 
 # the modules whose functions are compiled (their sources name the cache directory)
-KERNEL_MODULES = ("compiled", "health", "observer", "wrench", "environment", "pipeline_step")
+KERNEL_MODULES = ("compiled", "health", "observer", "wrench", "environment", "pipeline_step",
+                  "estimates")
 
 
 def _cache_dir() -> Path:
@@ -55,10 +56,14 @@ kernel = numba.njit(cache=True, nogil=True, error_model="numpy")
 def warm_up() -> float:
     """Compile, or load from the cache, every compiled function for the argument types the
     package uses: a Pipeline on the built-in robot in both observer forms and both wrench
-    modes, through contact, and each stage on its own. Returns the seconds it took."""
+    modes, through contact, each stage on its own, and the estimates.csv writer on a small
+    table. Returns the seconds it took."""
+    import tempfile
+
     import numpy as np
 
     from .environment import EnvironmentFilter
+    from .estimates import _NUMERIC, STATES, EstimateTable, float_texts, write_csv
     from .observer import (BiasEstimator, ContactMonitor, FrictionModel,
                            KalmanMomentumObserver, MomentumObserver)
     from .pipeline import Pipeline
@@ -107,6 +112,12 @@ def warm_up() -> float:
     flt.update(0.0, np.array([0.1, 0.2, 0.01, 1.0]), 3.0)
     flt.inflate("warm-up")
     EnvironmentFilter._project([1.0, -1.0, -1.0, 0.0], np.eye(4).ravel().tolist(), (True,) * 4)
+    table = EstimateTable()
+    for k in range(3):
+        table.append_values([float(k)] * len(_NUMERIC), STATES[k])
+    with tempfile.TemporaryDirectory() as tmp:
+        write_csv(Path(tmp) / "estimates.csv", table)
+    float_texts(np.array([0.1, -2.5e-7]))
     return time.perf_counter() - start
 
 

@@ -19,6 +19,7 @@ from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
 
+from .compiled import kernel
 from .environment import PARAMETER_NAMES, PARAMETER_UNITS
 
 STATES = ("learning_bias", "free_motion", "in_contact", "converged", "contact_lost")
@@ -163,251 +164,335 @@ class EstimateTable:
 # CSV text
 #
 # Every float is written as Python's "%.17g" writes it: 17 significant digits, correctly rounded
-# (ties to even), which read back bit-identical (IEEE 754 binary64). Python's correctly rounded
-# conversion costs about 1 us per value, which made the CSV the largest cost of a replay after
-# the pipeline; _g17_bytes makes the same text for a whole column with numpy arithmetic that is
-# exact (an error-free product, Dekker 1971), and hands the few values it does not cover (NaN,
-# infinities, zeros, |x| < 1e-6 or >= 1e17) to Python's own "%.17g".
+# (ties to even), which read back bit-identical (IEEE 754 binary64). Python's own conversion
+# costs about 1 us per value, so the rows are written by one compiled call per chunk
+# (_text_rows) into a byte buffer, with arithmetic that is exact: |x| times the power of ten
+# 10**(16 - e) as an error-free product (Dekker 1971, with Veltkamp's split; 10**k is exact in
+# binary64 for k <= 22), rounded to an integer of 17 digits, ties to even. What it does not
+# cover (|x| < 1e-6 or >= 1e17, a flag or level other than 0-3, a state word not in STATES) is
+# not approximated: the kernel stops at that row, Python writes the row with its own formatting,
+# and the kernel goes on from the next row. A float equal (bit for bit) to the one above it is
+# copied from the row above instead of formatted again (the direction, the NIS bounds and the
+# parameters out of contact hold still for long runs).
 
-_FLOAT_TEXT = "%.17g".__mod__
 _SPLIT = 134217729.0                                   # 2**27 + 1, Veltkamp's splitting factor
 _POW10 = np.array([float(10 ** k) for k in range(23)])  # exact in binary64 up to 1e22
 _POW10_HI = _POW10 * _SPLIT - (_POW10 * _SPLIT - _POW10)
 _POW10_LO = _POW10 - _POW10_HI
-_E_MIN, _E_MAX = -6, 16       # decimal exponents handled by numpy (10**(16 - e) is exact)
-_WIDTH = 24                   # longest "%.17g" text: -d.dddddddddddddddde-ddd
-# Each value's characters are gathered from a 32-byte source row: bytes 0-13 the constant
-# characters below, byte 14 a zero byte (the padding after a text), byte 15 the first digit,
-# bytes 16-31 the other 16 digits (four groups of four, made by table as little-endian 32-bit
-# words). Texts are zero padded to a common width; the CSV rows are the fields side by side,
-# separators included, with the zero bytes deleted (no text holds one).
-_CONST = b"-.e+0123456789"
-_PAD = 14
-_FIRST = 15
-_CONST_WORDS = np.frombuffer(_CONST + b"\0\0", "<u4")            # (4,)
-_QUAD = np.frombuffer(b"".join(b"%04d" % i for i in range(10000)), "<u4")
-_QUAD_ZEROS = np.array([len(s) - len(s.rstrip("0")) for s in ("%04d" % i for i in range(10000))],
-                       np.int64)                                   # trailing zeros per group
+# 10**q for q = -7..18, for the first guess of a decimal exponent only (the exact product
+# decides; below 1 these are rounded)
+_DECADES = np.array([10.0 ** q for q in range(-7, 19)])
+_E_MIN, _E_MAX = -6, 16       # decimal exponents written by the kernel (10**(16 - e) is exact)
+_LOG10_2 = 0.30102999566398120
+_PAIRS = np.frombuffer(b"".join(b"%02d" % i for i in range(100)), np.uint8).copy()  # "00".."99"
+_PAIR_ZEROS = np.array([2 if i == 0 else int(i % 10 == 0) for i in range(100)], np.int64)
+_FLOAT_WIDTH = 24             # longest "%.17g" text: -d.dddddddddddddddde-ddd
+_SLACK = 8                    # bytes the kernel may write past a float text (scratch)
+_STATE_AT = COLUMN_NAMES.index("state")
+# CSV fields in order: the value column of each (an index into _NUMERIC), -1 for the state word
+_CSV_ORDER = np.array([-1 if name == "state" else _NUMERIC.index(name) for name in COLUMN_NAMES],
+                      np.int64)
+_IS_INTEGER = np.array([name in _INTEGER_COLUMNS for name in _NUMERIC])
+_WORDS = np.array([list(w.encode().ljust(max(map(len, STATES)), b"\0")) for w in STATES],
+                  np.uint8)   # the state words' bytes, zero padded; row = state code
+_WORD_LEN = np.array([len(w.encode()) for w in STATES], np.int64)
+# most bytes the kernel writes for one row, scratch included
+_ROW_BYTES = len(_NUMERIC) * _FLOAT_WIDTH + _WORDS.shape[1] + len(COLUMN_NAMES) + _SLACK
 
 
-def _layout(negative: bool, e: int, nd: int) -> list[int]:
-    """Source bytes (see :data:`_CONST`, :data:`_FIRST`) of the "%.17g" text of a
-    value with that sign, decimal exponent ``e`` (value = d.ddd... * 10**e) and ``nd``
-    significant digits left after dropping trailing zeros (the "g" style: exponent form when
-    e < -4 or e >= 17, else positional, no trailing zeros, no lone point)."""
-    def c(ch: str) -> int:
-        return _CONST.index(ch.encode())
+class _StateCodes(dict):
+    """State word -> its index in :data:`STATES`; any other word -> -1, which the kernel refuses
+    (Python then writes that word as it is)."""
 
-    def digits(a: int, b: int) -> list[int]:
-        return list(range(_FIRST + a, _FIRST + b))
-
-    out = [c("-")] if negative else []
-    if -4 <= e < 17:
-        if e >= 0:
-            out += digits(0, e + 1)
-            if nd > e + 1:
-                out += [c(".")] + digits(e + 1, nd)
-        else:
-            out += [c("0"), c(".")] + [c("0")] * (-e - 1) + digits(0, nd)
-    else:
-        out += digits(0, 1) + ([c(".")] + digits(1, nd) if nd > 1 else [])
-        out += [c("e"), c("-" if e < 0 else "+")] + [c(ch) for ch in "%02d" % abs(e)]
-    return out
+    def __missing__(self, word: Any) -> int:
+        return -1
 
 
-def _layouts() -> tuple[np.ndarray, np.ndarray]:
-    count = 2 * (_E_MAX - _E_MIN + 1) * 18
-    idx = np.full((count, _WIDTH), _PAD, np.int32)
-    lens = np.zeros(count, np.intp)
-    for neg in (0, 1):
-        for e in range(_E_MIN, _E_MAX + 1):
-            for nd in range(1, 18):
-                code = (neg * (_E_MAX - _E_MIN + 1) + e - _E_MIN) * 18 + nd
-                cols = _layout(bool(neg), e, nd)
-                idx[code, :len(cols)] = cols
-                lens[code] = len(cols)
-    return idx, lens
+_STATE_CODES = _StateCodes(_STATE_CODE)
 
 
-_LAYOUT_IDX, _LAYOUT_LEN = _layouts()
+@kernel
+def _scaled(a, k):
+    """(d, off): a * 10**k rounded to an integer, ties to even (a > 0, 0 <= k <= 22), and off
+    = -1 where that exact product lies below 1e16, +1 where at or above 1e17 (d is then 0: the
+    decimal exponent 16 - k was wrong by one), else 0.
 
-
-def _scaled(a: np.ndarray, e: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """a * 10**(16 - e) rounded to an integer, ties to even (a > 0, -6 <= e <= 16), and
-    whether that exact product lies below 1e16 or at or above 1e17 (e then is wrong by one).
-
-    The product is exact as hi + lo (Dekker's two-product; 10**k is exact for k <= 22); hi is
-    a whole number wherever the product is in range (>= 2**53)."""
-    k = 16 - e
-    ph, pl = _POW10_HI[k], _POW10_LO[k]
+    The product is exact as hi + lo (Dekker's two-product with Veltkamp's split; 10**k is exact
+    for k <= 22); hi is a whole number wherever the product is in range (>= 2**53)."""
+    ph = _POW10_HI[k]
+    pl = _POW10_LO[k]
     hi = a * _POW10[k]
     c = a * _SPLIT
     ah = c - (c - a)
     al = a - ah
     lo = al * pl - (((hi - ah * ph) - al * ph) - ah * pl)
-    low = (hi < 1e16) | ((hi == 1e16) & (lo < 0))
-    high = (hi > 1e17) | ((hi == 1e17) & (lo >= 0))
-    whole = np.floor(lo)
+    if hi < 1e16 or (hi == 1e16 and lo < 0.0):
+        return 0, -1
+    if hi > 1e17 or (hi == 1e17 and lo >= 0.0):
+        return 0, 1
+    whole = math.floor(lo)
     frac = lo - whole
-    d = hi.astype(np.int64) + whole.astype(np.int64)
-    d += (frac > 0.5) | ((frac == 0.5) & ((d & 1) == 1))
-    return d, low, high
+    d = np.int64(hi) + np.int64(whole)
+    d += (np.int64(frac > 0.5) | (np.int64(frac == 0.5) & d)) & 1   # ties to even
+    return d, 0
 
 
-def _trailing_zeros(groups: Sequence[np.ndarray]) -> np.ndarray:
-    """Trailing zeros of the 16 digits held in four groups of four (n,) each."""
-    tz = _QUAD_ZEROS[groups[3]]
-    more = groups[3] == 0
-    for g in (groups[2], groups[1], groups[0]):
-        tz += more * _QUAD_ZEROS[g]
-        more &= g == 0
-    return tz
+@kernel
+def _decimal(a):
+    """(d, e): a = d * 10**(e - 16) rounded to 17 significant digits, ties to even
+    (10**16 <= d < 10**17), for 1e-6 <= a < 1e17; e = 99 where a is not covered."""
+    p = (np.float64(a).view(np.int64) >> 52) - 1023          # 2**p <= a < 2**(p + 1)
+    e = int(math.floor(p * _LOG10_2))                         # floor(log10(a)) or one less
+    e += np.int64(a >= _DECADES[e + 8])
+    e = min(max(e, _E_MIN), _E_MAX)
+    d, off = _scaled(a, 16 - e)
+    if off != 0:                      # the guess was one off (near a power of ten)
+        e += off
+        if e < _E_MIN or e > _E_MAX:
+            return 0, 99
+        d, off = _scaled(a, 16 - e)
+        if off != 0:                  # cannot happen; Python writes it if it does
+            return 0, 99
+    if d == 100_000_000_000_000_000:  # rounded up to the next power of ten
+        d = 10_000_000_000_000_000
+        e += 1
+        if e > _E_MAX:
+            return 0, 99
+    return d, e
 
 
-def _text_bytes(texts: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
-    """Texts as a (n, w) uint8 matrix (zero padded) and their lengths (n,) in bytes."""
-    enc = [t.encode() for t in texts]
-    arr = np.array(enc, dtype=bytes) if enc else np.zeros(0, "S1")
-    w = max(arr.dtype.itemsize, 1)
-    return (arr.view(np.uint8).reshape(len(enc), w),
-            np.fromiter(map(len, enc), np.intp, len(enc)))
-
-
-def _g17_bytes(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The text of ``"%.17g" % v`` for each v of x (float64 (n,)), as a (n, w) uint8 matrix
-    (zero padded) and lengths (n,)."""
-    n = len(x)
-    a = np.abs(x)
-    fast = (a >= 1e-6) & (a < 1e17)           # False for NaN
-    a[~fast] = 1.0
-    e = np.floor(np.log10(a)).astype(np.int64)
-    np.clip(e, _E_MIN, _E_MAX, out=e)
-    d, low, high = _scaled(a, e)
-    wrong = np.flatnonzero(low | high)        # log10 rounded across a power of ten
-    if len(wrong):
-        e[wrong] += np.where(high[wrong], 1, -1)
-        out_of_range = (e[wrong] < _E_MIN) | (e[wrong] > _E_MAX)
-        fast[wrong[out_of_range]] = False
-        e[wrong[out_of_range]] = 0
-        redo = wrong[~out_of_range]
-        d[redo], low2, high2 = _scaled(a[redo], e[redo])
-        fast[redo[low2 | high2]] = False      # cannot happen; Python formats it if it does
-    carry = d == 10 ** 17                     # rounded up to the next power of ten
-    if carry.any():
-        d[carry] = 10 ** 16
-        e[carry] += 1
-        over = carry & (e > _E_MAX)
-        fast[over] = False
-        e[over] = 0
-    slow = np.flatnonzero(~fast)
-    d[slow] = 10 ** 16
-    # the 17 digits: the first, then four groups of four by table
-    upper = d // 100_000_000
-    lower = (d - upper * 100_000_000).astype(float)
-    upper = upper.astype(float)
-    first = np.floor(upper / 1e8)
-    rest = upper - first * 1e8
-    g1 = np.floor(rest / 1e4)
-    g3 = np.floor(lower / 1e4)
-    groups = [g.astype(np.intp) for g in (g1, rest - g1 * 1e4, g3, lower - g3 * 1e4)]
-    src = np.empty((n, 8), "<u4")
-    src[:, :4] = _CONST_WORDS
-    src[:, 3] |= (first.astype(np.uint32) + 48) << 24
-    for j, g in enumerate(groups):
-        src[:, 4 + j] = _QUAD[g]
-    nd = 17 - _trailing_zeros(groups)         # digits left without trailing zeros
-    code = (np.signbit(x) * (_E_MAX - _E_MIN + 1) + (e - _E_MIN)) * 18 + nd
-    lens = _LAYOUT_LEN[code]
-    width = int(lens.max()) if n else 1
-    flat = _LAYOUT_IDX[code, :width]
-    flat += (np.arange(n, dtype=np.int32) * 32)[:, None]   # in place: a new array costs more
-    out = src.view(np.uint8).ravel().take(flat)
-    if len(slow):
-        texts, tlens = _text_bytes(list(map(_FLOAT_TEXT, x[slow].tolist())))
-        if texts.shape[1] > width:
-            out = np.concatenate([out, np.zeros((n, texts.shape[1] - width), np.uint8)], 1)
-            width = texts.shape[1]
-        out[slow] = 0
-        out[slow, :texts.shape[1]] = texts
-        lens[slow] = tlens
-    return out, lens
-
-
-def _float_bytes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Float column text (:func:`_g17_bytes`), each run of equal values formatted once when
-    runs are long (parameters out of contact, the direction, NIS bounds hold still)."""
-    n = len(values)
-    bits = values.view(np.uint64)            # compared by bit pattern: 0.0 and -0.0 differ
-    starts = np.flatnonzero(np.concatenate(([True], bits[1:] != bits[:-1])))
-    if len(starts) > n // 4:
-        return _g17_bytes(values)
-    out, lens = _g17_bytes(values[starts])
-    run = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, n)))
-    return out[run], lens[run]
-
-
-def _integer_bytes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Integer column text (flags 0/1, levels 0-3); NaN (not reported) -> empty field."""
-    small = (values >= 0) & (values <= 3) & (values == np.floor(values))
-    nan = np.isnan(values)
-    out = (np.where(small, values, 0).astype(np.uint8) + 48)[:, None]
-    out[nan] = 0
-    lens = np.ones(len(values), np.intp)
-    lens[nan] = 0
-    other = np.flatnonzero(~small & ~nan)
-    if len(other):
-        texts, tlens = _text_bytes([str(int(v)) for v in values[other].tolist()])
-        out = np.concatenate([out, np.zeros((len(values), texts.shape[1] - 1), np.uint8)], 1)
-        out[other, :texts.shape[1]] = texts
-        lens[other] = tlens
-    return out, lens
-
-
-def _word_bytes(words: Sequence[Any]) -> tuple[np.ndarray, np.ndarray]:
-    """Text column (the state word): each distinct word encoded once."""
-    words = list(words)
-    code = {w: i for i, w in enumerate(set(words))}
-    out, lens = _text_bytes([str(w) for w in code])
-    index = np.fromiter(map(code.__getitem__, words), np.intp, len(words))
-    return out[index], lens[index]
-
-
-def _join_fields(fields: Sequence[tuple[np.ndarray, np.ndarray]]) -> bytes:
-    """Rows of comma-separated fields, each row ended by a newline, from the fields' zero-padded
-    byte matrices: side by side with the separators, then the zero bytes deleted."""
-    m = len(fields[0][1])
-    total = sum(f.shape[1] + 1 for f, _ in fields)
-    text = np.empty((m, total), np.uint8)
+@kernel
+def _text_rows(values, order, integer, codes, first, out):
+    """Rows first, first + 1, ... of ``values`` (n, m) float64 as text lines into ``out`` (uint8,
+    room for :data:`_ROW_BYTES` per row): the fields comma separated in ``order`` ((k,) int64,
+    the value column of each field, -1 for the state word STATES[codes[r]]); a value column
+    with ``integer[c]`` as one digit 0-3 (NaN: an empty field), any other as ``"%.17g"``.
+    Returns (row, end): out[:end] holds the rows before ``row``; row == n when all are written,
+    else row ``row`` holds a value or word the kernel does not write exactly (Python does)."""
+    n, m = values.shape
+    last = len(order) - 1
+    text_at = np.empty(m, np.int64)   # where each column's text of the row above starts
+    text_len = np.empty(m, np.int64)
     at = 0
-    for j, (f, _) in enumerate(fields):
-        w = f.shape[1]
-        text[:, at:at + w] = f
-        text[:, at + w] = ord("\n") if j == len(fields) - 1 else ord(",")
-        at += w + 1
-    return text.tobytes().translate(None, b"\0")
+    for r in range(first, n):
+        start = at
+        for j in range(last + 1):
+            col = order[j]
+            if col < 0:
+                w = codes[r]
+                if w < 0 or w >= len(_WORD_LEN):
+                    return r, start
+                for q in range(_WORD_LEN[w]):
+                    out[at + q] = _WORDS[w, q]
+                at += _WORD_LEN[w]
+            elif integer[col]:
+                v = values[r, col]
+                if v >= 0.0 and v <= 3.0 and v == math.floor(v):
+                    out[at] = 48 + int(v)
+                    at += 1
+                elif v == v:                  # NaN: an empty field
+                    return r, start
+            elif r > first and (np.float64(values[r, col]).view(np.int64)
+                                == np.float64(values[r - 1, col]).view(np.int64)):
+                size = text_len[col]          # as in the row above: copied
+                above = text_at[col]
+                for q in range(size):
+                    out[at + q] = out[above + q]
+                text_at[col] = at
+                at += size
+            else:
+                text_at[col] = at
+                x = values[r, col]
+                a = abs(x)
+                out[at] = 45                  # "-", kept where x is negative
+                if x != x:
+                    out[at] = 110             # nan (Python writes NaN without a sign)
+                    out[at + 1] = 97
+                    out[at + 2] = 110
+                    at += 3
+                elif a == 0.0 or a == math.inf:
+                    at += np.int64(math.copysign(1.0, x) < 0.0)
+                    if a == 0.0:
+                        out[at] = 48
+                        at += 1
+                    else:
+                        out[at] = 105         # inf
+                        out[at + 1] = 110
+                        out[at + 2] = 102
+                        at += 3
+                else:
+                    if a < 1e-6 or a >= 1e17:
+                        return r, start
+                    d, e = _decimal(a)
+                    if e == 99:
+                        return r, start
+                    at += np.int64(x < 0.0)
+                    # the "g" layout, chosen by arithmetic rather than branches: e >= 0 ddd.ddd,
+                    # -4 <= e < 0 0.000ddd, e < -4 d.ddde-XX (e <= 16 here, always positional);
+                    # digit i (0 = first) goes to base + i, one further right where i > split
+                    # (after the point); no trailing zeros, no lone point
+                    small = np.int64(e < 0) * np.int64(e >= -4)
+                    out[at] = 48
+                    out[at + 1] = 46
+                    out[at + 2] = 48
+                    out[at + 3] = 48
+                    out[at + 4] = 48
+                    base = at + small * (1 - e)
+                    split = np.int64(e >= 0) * e + small * 17
+                    u = np.uint64(d)
+                    top = u // np.uint64(100_000_000)
+                    low = np.uint32(u - top * np.uint64(100_000_000))
+                    lead = np.uint32(top // np.uint64(100_000_000))
+                    mid = np.uint32(top) - lead * np.uint32(100_000_000)
+                    out[base] = 48 + lead             # digit 0, never zero
+                    zeros = 0                         # trailing zeros of the 17 digits
+                    all_zero = 1
+                    for h in range(2):                # digits 9-16, then 1-8, two at a time
+                        eight = low if h == 0 else mid
+                        four_hi = eight // np.uint32(10000)
+                        four_lo = eight - four_hi * np.uint32(10000)
+                        for g in range(2):
+                            four = four_lo if g == 0 else four_hi
+                            two_hi = four // np.uint32(100)
+                            for s in range(2):
+                                pair = four - two_hi * np.uint32(100) if s == 0 else two_hi
+                                i = 15 - 2 * s - 4 * g - 8 * h
+                                out[base + i + np.int64(i > split)] = _PAIRS[2 * pair]
+                                out[base + i + 1 + np.int64(i + 1 > split)] = _PAIRS[2 * pair + 1]
+                                zeros += all_zero * _PAIR_ZEROS[pair]
+                                all_zero &= np.int64(pair == 0)
+                    nd = 17 - zeros
+                    out[at + 1 + (1 - small) * split] = 46   # the point (scratch if unused)
+                    end = base + max(nd, split + 1) + np.int64(nd > split + 1)
+                    end = small * (base + nd) + (1 - small) * end
+                    ae = abs(e)
+                    out[end] = 101                    # e-XX (scratch unless e < -4)
+                    out[end + 1] = 45 if e < 0 else 43
+                    out[end + 2] = 48 + ae // 10
+                    out[end + 3] = 48 + ae % 10
+                    at = end + 4 * np.int64(e < -4)
+            if col >= 0 and not integer[col]:
+                text_len[col] = at - text_at[col]
+            out[at] = 10 if j == last else 44
+            at += 1
+    return n, at
 
 
-def write_csv(path: Path, cols: Mapping[str, np.ndarray], chunk: int = 8192) -> None:
+_ONE_FLOAT_ORDER = np.zeros(1, np.int64)
+_ONE_FLOAT_INTEGER = np.zeros(1, np.bool_)
+_NO_CODES = np.zeros(0, np.int64)
+
+
+def float_texts(x: np.ndarray) -> list[str]:
+    """``"%.17g" % v`` for each v of x (float64 (n,)), made as the CSV writer makes a float
+    field (the compiled formatter; Python's own for the values it does not cover)."""
+    x = np.ascontiguousarray(x, dtype=np.float64).reshape(-1, 1)
+    out = np.empty(len(x) * (_FLOAT_WIDTH + 1) + _SLACK, np.uint8)
+    texts: list[str] = []
+    i = 0
+    while i < len(x):
+        i, end = _text_rows(x, _ONE_FLOAT_ORDER, _ONE_FLOAT_INTEGER, _NO_CODES, i, out)
+        texts += out[:end].tobytes().decode().splitlines()
+        if i < len(x):
+            texts.append("%.17g" % x[i, 0])
+            i += 1
+    return texts
+
+
+def _python_row(values: Sequence[float], word: Any, row: int) -> bytes:
+    """One CSV row by Python's own formatting (a row the kernel refused); ``values`` in
+    :data:`_NUMERIC` order."""
+    fields = []
+    for name, v in zip(_NUMERIC, values):
+        if name not in _INTEGER_COLUMNS:
+            fields.append("%.17g" % v)
+        elif v != v:
+            fields.append("")
+        else:
+            try:
+                fields.append(str(int(v)))
+            except OverflowError:
+                raise ValueError(f"estimates.csv row {row}: column {name!r} is {v}; expected a "
+                                 "whole number (flags 0/1, levels 0-3) or NaN") from None
+    fields.insert(_STATE_AT, str(word))
+    return (",".join(fields) + "\n").encode()
+
+
+def _table_rows(cols: Mapping[str, Any], n: int) -> np.ndarray | None:
+    """The (n, len(_NUMERIC)) float64 rows behind the numeric columns when they are views of
+    one such C-contiguous array in :data:`_NUMERIC` order (:meth:`EstimateTable.columns`), else
+    None."""
+    base = getattr(cols.get("time"), "base", None)
+    if not (isinstance(base, np.ndarray) and base.ndim == 2 and base.shape[1] == len(_NUMERIC)
+            and base.dtype == np.float64 and base.flags.c_contiguous and base.flags.writeable):
+        return None
+    step = base.strides[0]
+    start = cols["time"].__array_interface__["data"][0]
+    offset = start - base.__array_interface__["data"][0]
+    if offset < 0 or offset % step or offset // step + n > base.shape[0]:
+        return None
+    for i, name in enumerate(_NUMERIC):
+        c = cols.get(name)
+        if not (isinstance(c, np.ndarray) and c.dtype == np.float64 and c.shape == (n,)
+                and (n < 2 or c.strides == (step,))
+                and c.__array_interface__["data"][0] == start + i * base.itemsize):
+            return None
+    return base[offset // step:offset // step + n]
+
+
+def _stacked(cols: Mapping[str, Any], lo: int, hi: int) -> np.ndarray:
+    """Rows lo..hi-1 of the numeric columns as one (hi - lo, len(_NUMERIC)) float64 array."""
+    out = np.empty((hi - lo, len(_NUMERIC)))
+    for i, name in enumerate(_NUMERIC):
+        out[:, i] = cols[name][lo:hi]
+    return out
+
+
+def write_csv(path: Path, source: "EstimateTable | Mapping[str, Any]", chunk: int = 8192
+              ) -> None:
     """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats as Python's
     ``"%.17g"`` writes them (17 significant digits: they read back bit-identical), flags and
-    levels as integers (empty where a source did not report them). Written column-wise in
-    chunks of ``chunk`` rows, the text of each column made by numpy for all its values at once
-    (or for its runs of equal values); memory stays bounded by the chunk."""
-    n = len(cols["time"])
-    states = cols["state"]
+    levels as integers (empty where a source did not report them), the state word as it is.
+
+    ``source``: an :class:`EstimateTable`, or columns {name: (N,)} (``state`` as str). The rows
+    are written ``chunk`` at a time by one compiled call each (:func:`_text_rows`): from the
+    table's own array when the columns are an EstimateTable's (:meth:`EstimateTable.columns`,
+    no copy), else from the columns stacked a chunk at a time. Memory stays bounded by the
+    chunk (:data:`_ROW_BYTES` bytes of text per row at most)."""
+    if isinstance(chunk, bool) or not isinstance(chunk, (int, np.integer)) or chunk < 1:
+        raise ValueError(f"write_csv: chunk is {chunk!r}; expected a whole number of rows >= 1")
+    chunk = int(chunk)
+    if isinstance(source, EstimateTable):
+        n = len(source)
+        rows: np.ndarray | None = source._data[:n]
+        states: Sequence[Any] = source._states
+    else:
+        missing = [c for c in COLUMN_NAMES if c not in source]
+        if missing:
+            raise ValueError(f"write_csv: columns {missing} missing; expected every name of "
+                             "COLUMN_NAMES")
+        n = len(source["time"])
+        short = {c: len(source[c]) for c in COLUMN_NAMES if len(source[c]) < n}
+        if short:
+            raise ValueError(f"write_csv: 'time' has {n} values but these columns fewer: "
+                             f"{short}; expected columns of equal length")
+        rows = _table_rows(source, n)
+        states = source["state"]
+    buf = np.empty(max(min(chunk, n), 1) * _ROW_BYTES, np.uint8)
     with open(path, "wb") as fh:
         fh.write((",".join(COLUMN_NAMES) + "\n").encode())
         for lo in range(0, n, chunk):
             hi = min(lo + chunk, n)
-            fields = []
-            for c in COLUMN_NAMES:
-                if c == "state":
-                    fields.append(_word_bytes(states[lo:hi]))
-                    continue
-                values = np.ascontiguousarray(cols[c][lo:hi], dtype=float)
-                fields.append(_integer_bytes(values) if c in _INTEGER_COLUMNS
-                              else _float_bytes(values))
-            fh.write(_join_fields(fields))
+            block = rows[lo:hi] if rows is not None else _stacked(source, lo, hi)
+            words = states[lo:hi]
+            codes = np.fromiter(map(_STATE_CODES.__getitem__, words), np.int64, hi - lo)
+            r = 0
+            while r < hi - lo:
+                r, end = _text_rows(block, _CSV_ORDER, _IS_INTEGER, codes, r, buf)
+                fh.write(buf[:end])
+                if r < hi - lo:       # a row the kernel does not write exactly: Python does
+                    fh.write(_python_row(block[r].tolist(), words[r], lo + r))
+                    r += 1
 
 
 def read_csv(path: Path) -> dict[str, np.ndarray]:

@@ -448,8 +448,8 @@ def test_console_script_exit_codes(tmp_path):
 
 def test_csv_text_is_every_value_formatted_on_its_own(tmp_path):
     """Reference: Python's own "%.17g" of each value, row by row (17 significant digits read
-    back bit-identical, IEEE 754 binary64), and float() of that text; the writer formats runs of
-    equal values once, so runs, signed zeros, NaN and infinities are mixed in."""
+    back bit-identical, IEEE 754 binary64), and float() of that text; the writer copies a value
+    equal to the one above it, so runs, signed zeros, NaN and infinities are mixed in."""
     from interaction_estimator.estimates import COLUMN_NAMES, _INTEGER_COLUMNS, write_csv
     rng = np.random.default_rng(11)
     n = 5000
@@ -487,8 +487,10 @@ def test_float_text_equals_python_percent_17g():
     """Reference: Python's own "%.17g" (its correctly rounded binary64 to decimal conversion,
     halfway cases to even) of each value: random bit patterns (every exponent, subnormals, NaN
     payloads), values spread over 1e-9..1e19, powers of ten and their neighbours, values that
-    round up to the next power of ten, halfway cases (18 significant digits ending in 5)."""
-    from interaction_estimator.estimates import _g17_bytes
+    round up to the next power of ten, halfway cases (18 significant digits ending in 5), whole
+    numbers and short decimals (trailing zeros dropped), runs of equal values (copied from the
+    row above by the writer)."""
+    from interaction_estimator.estimates import float_texts
     rng = np.random.default_rng(3)
     bits = rng.integers(0, 2**64 - 1, 100_000, dtype=np.uint64, endpoint=True).view(np.float64)
     spread = 10.0 ** rng.uniform(-9, 19, 100_000) * rng.choice([-1.0, 1.0], 100_000)
@@ -497,12 +499,104 @@ def test_float_text_equals_python_percent_17g():
                             [(10 ** 17 - 1) / 10.0 ** q for q in range(23)]])
     halves = (rng.integers(10 ** 14, 10 ** 15, 50_000).astype(float)
               + rng.choice([0.125, 0.375, 0.625, 0.875], 50_000))
-    x = np.concatenate([bits, spread, edges, -edges, halves,
+    places = rng.integers(0, 17, 50_000)
+    short = np.round(rng.normal(size=50_000) * 10.0 ** places) / 10.0 ** places
+    runs = np.repeat(rng.normal(size=200) * 10.0 ** rng.integers(-6, 16, 200), 7)
+    x = np.concatenate([bits, spread, edges, -edges, halves, short, runs,
                         [0.0, -0.0, np.inf, -np.inf, np.nan, 5e-324, 1e-6, 1e17, 1 / 3]])
-    text, lens = _g17_bytes(x)
-    assert [bytes(row[:k]).decode() for row, k in zip(text, lens)] == \
-        ["%.17g" % v for v in x.tolist()]
-    assert not text[np.arange(text.shape[1]) >= lens[:, None]].any()  # zero padding after
+    texts = float_texts(x)
+    expected = ["%.17g" % v for v in x.tolist()]
+    assert len(texts) == len(expected)
+    bad = [(v, t, e) for v, t, e in zip(x.tolist(), texts, expected) if t != e]
+    assert not bad, bad[:5]
+
+
+def test_csv_of_a_tables_own_rows_equals_python_formatting_row_by_row(tmp_path):
+    """Reference: each row built here with Python's own formatting ("%.17g" for a float,
+    str(int(v)) for a flag or level, an empty field for NaN, the state word as it is) joined by
+    commas (the layout of estimates.csv). The table is written from its own array (no copy:
+    numpy.shares_memory), from its columns and from copies of them, in chunks of 100 rows;
+    rows the compiled writer refuses (1e-300, -1e300, a level of 7, a flag of 2.5, the words
+    '' and 'paused') fall inside chunks and on their edges, so Python writes those."""
+    from interaction_estimator.estimates import (_CSV_ORDER, _INTEGER_COLUMNS, _IS_INTEGER,
+                                                 _NUMERIC, _STATE_CODES, COLUMN_NAMES, STATES,
+                                                 EstimateTable, _table_rows, _text_rows,
+                                                 write_csv)
+    rng = np.random.default_rng(21)
+    n = 1000
+    rows: list[list[float]] = []
+    states: list[str] = []
+    for k in range(n):
+        row = []
+        for i, name in enumerate(_NUMERIC):
+            if name in _INTEGER_COLUMNS:
+                row.append(math.nan if rng.random() < 0.05 else float(rng.integers(0, 4)))
+            elif k and rng.random() < 0.3:        # as in the row above
+                row.append(rows[-1][i])
+            else:
+                row.append(float(rng.choice([0.0, -0.0, math.nan, math.inf, -math.inf]))
+                           if rng.random() < 0.05 else
+                           float(rng.choice([-1.0, 1.0]) * 10.0 ** rng.uniform(-5.99, 16.99)))
+        rows.append(row)
+        states.append(STATES[rng.integers(len(STATES))])
+    at = {name: i for i, name in enumerate(_NUMERIC)}
+    refused = {17: ("mass", 1e-300), 99: ("damping", -1e300), 100: ("level", 7.0),
+               101: ("converged", 2.5), 450: ("state", ""), 999: ("state", "paused")}
+    for k, (name, v) in refused.items():
+        if name == "state":
+            states[k] = v
+        else:
+            rows[k][at[name]] = v
+    table = EstimateTable(16)                     # grown while appending: rows then sit in a
+    for row, state in zip(rows, states):          # larger array than n
+        table.append_values(row, state)
+
+    def python_row(row, state):
+        fields = []
+        for name in COLUMN_NAMES:
+            if name == "state":
+                fields.append(state)
+                continue
+            v = row[at[name]]
+            if name in _INTEGER_COLUMNS:
+                fields.append("" if v != v else str(int(v)))
+            else:
+                fields.append("%.17g" % v)
+        return ",".join(fields) + "\n"
+
+    expected = (",".join(COLUMN_NAMES) + "\n"
+                + "".join(python_row(r, s) for r, s in zip(rows, states))).encode()
+    own = _table_rows(table.columns(), n)
+    assert own is not None and np.shares_memory(own, table._data)
+    copies = {k: np.array(v, copy=True) for k, v in table.columns().items()}
+    assert _table_rows(copies, n) is None          # these are stacked a chunk at a time
+    for source in (table, table.columns(), copies):
+        write_csv(tmp_path / "e.csv", source, chunk=100)
+        assert (tmp_path / "e.csv").read_bytes() == expected
+    # the compiled writer does stop at each of those rows (Python wrote them)
+    codes = np.fromiter(map(_STATE_CODES.__getitem__, states), np.int64, n)
+    buf = np.empty(n * 2000, np.uint8)
+    stops, r = [], 0
+    while r < n:
+        r, _ = _text_rows(own, _CSV_ORDER, _IS_INTEGER, codes, r, buf)
+        if r < n:
+            stops.append(r)
+            r += 1
+    assert stops == sorted(refused)
+
+
+def test_csv_writer_names_a_value_it_cannot_write(tmp_path):
+    """Reference: the column and value put in; an infinite level has no integer text
+    (common practice, no source: say what was wrong and what was expected)."""
+    from interaction_estimator.estimates import EstimateTable, _NUMERIC, write_csv
+    table = EstimateTable()
+    row = [0.0] * len(_NUMERIC)
+    row[_NUMERIC.index("level")] = math.inf
+    table.append_values(row, "free_motion")
+    with pytest.raises(ValueError, match=r"column 'level' is inf; expected a whole number"):
+        write_csv(tmp_path / "e.csv", table)
+    with pytest.raises(ValueError, match=r"chunk is 0"):
+        write_csv(tmp_path / "e.csv", table, chunk=0)
 
 
 def test_plot_thinning_keeps_each_spans_first_sample_and_extremes():
