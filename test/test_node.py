@@ -98,22 +98,27 @@ def assert_matches_reference(peer: Peer, steps, estimates, frame_id: str, first:
         np.testing.assert_allclose([t.x, t.y, t.z], est.torque, rtol=0, atol=ATOL)
         np.testing.assert_allclose(env.data[:4], est.parameters, rtol=0, atol=ATOL)
         np.testing.assert_allclose(env.data[4:8], est.parameter_std, rtol=0, atol=ATOL)
-        kv = values(st)
-        assert kv["state"] == est.state
-        if node_findings and st.message != est.message:
-            assert st.message.startswith(est.message + "; ")
-            assert level(st) == (1 if est.level == 0 else est.level)
-        else:
-            assert (level(st), st.message) == (est.level, est.message)
-        assert float(kv["time[s]"]) == step.time
-        assert kv["converged"] == ("true" if est.converged else "false")
-        for i, (name, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
-            assert abs(float(kv[f"{name}[{unit}]"]) - est.parameters[i]) <= ATOL
-            assert abs(float(kv[f"{name}_std[{unit}]"]) - est.parameter_std[i]) <= ATOL
-            assert kv[f"{name}_excited"] == ("true" if est.excited[i] else "false")
-            assert kv[f"{name}_converged"] == ("true" if est.parameter_converged[i] else "false")
-        assert abs(float(kv["nis_average"]) - est.nis_average) <= ATOL
-        assert int(kv["observer_restarts"]) == est.observer_restarts
+        assert_status_matches(st, step, est, node_findings)
+
+
+def assert_status_matches(st, step, est, node_findings: bool = False):
+    """A status describes ``step``'s sample as the Pipeline's Estimate ``est`` does."""
+    kv = values(st)
+    assert kv["state"] == est.state
+    if node_findings and st.message != est.message:
+        assert st.message.startswith(est.message + "; ")
+        assert level(st) == (1 if est.level == 0 else est.level)
+    else:
+        assert (level(st), st.message) == (est.level, est.message)
+    assert float(kv["time[s]"]) == step.time
+    assert kv["converged"] == ("true" if est.converged else "false")
+    for i, (name, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
+        assert abs(float(kv[f"{name}[{unit}]"]) - est.parameters[i]) <= ATOL
+        assert abs(float(kv[f"{name}_std[{unit}]"]) - est.parameter_std[i]) <= ATOL
+        assert kv[f"{name}_excited"] == ("true" if est.excited[i] else "false")
+        assert kv[f"{name}_converged"] == ("true" if est.parameter_converged[i] else "false")
+    assert abs(float(kv["nis_average"]) - est.nis_average) <= ATOL
+    assert int(kv["observer_restarts"]) == est.observer_restarts
 
 
 def assert_all_finite(peer: Peer):
@@ -192,6 +197,45 @@ def test_outputs_equal_the_pipeline_and_states_progress(ros, tmp_path):
     arrays = peer.diagnostics.messages()
     assert all(a.status[0].name == "interaction_estimator" for a in arrays)
     assert any(a.status[0].message in sent for a in arrays)
+    assert_all_finite(peer)
+    assert node.alive()
+
+
+def test_status_at_its_rate_describes_a_processed_sample(ros, tmp_path):
+    """At output.status_rate > 0 (the default; the other tests publish one per sample) each
+    status describes the sample it names (time[s]) exactly as the Pipeline's Estimate for that
+    sample does (reference: the Pipeline run here on the same samples), statuses come at about
+    the rate set (DESIGN.md section 4: ~/status at a configured rate), and a wrench and an
+    environment message still answer every sample."""
+    urdf = marten.mobile_urdf()
+    overrides = write_yaml(tmp_path / "test.yaml", """\
+        output:
+          status_rate: 25.0
+        health:
+          max_latency: 10.0
+        input:
+          reliability: reliable
+          queue_depth: 20000
+        """)
+    node, peer = ros(["--params-file", str(DEFAULT_YAML), "--params-file", str(overrides),
+                      "-p", f"robot_description_file:={marten.MOBILE_URDF}"])
+    peer.wait_status(lambda kv, st: kv["state"] == "waiting_for_input", 10, "the model", node)
+    steps = contact_scenario(urdf, duration=3.0)
+    start = time.monotonic()
+    publish_paced(peer.joint_states, [s.message() for s in steps], RATE_HZ)
+    wall = time.monotonic() - start
+    peer.wait_for(lambda: len(peer.wrench) >= len(steps) and len(peer.environment)
+                  >= len(steps), 30, "one wrench and environment per sample", node)
+    time.sleep(0.5)
+    settings = load_parameter_file(overrides, base=load_parameter_file(DEFAULT_YAML))
+    reference = Pipeline(settings, urdf)
+    by_time = {s.time: (s, reference.process(s.sample())) for s in steps}
+    statuses = stamped(peer)
+    # common practice, no source: a rate limiter gives about the rate set, never more
+    assert 0.6 * 25.0 * wall <= len(statuses) <= 25.0 * wall + 2, (len(statuses), wall)
+    for st in statuses:
+        step, est = by_time[float(values(st)["time[s]"])]
+        assert_status_matches(st, step, est, node_findings=True)
     assert_all_finite(peer)
     assert node.alive()
 
