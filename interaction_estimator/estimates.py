@@ -418,28 +418,6 @@ def _python_row(values: Sequence[float], word: Any, row: int) -> bytes:
     return (",".join(fields) + "\n").encode()
 
 
-def _table_rows(cols: Mapping[str, Any], n: int) -> np.ndarray | None:
-    """The (n, len(_NUMERIC)) float64 rows behind the numeric columns when they are views of
-    one such C-contiguous array in :data:`_NUMERIC` order (:meth:`EstimateTable.columns`), else
-    None."""
-    base = getattr(cols.get("time"), "base", None)
-    if not (isinstance(base, np.ndarray) and base.ndim == 2 and base.shape[1] == len(_NUMERIC)
-            and base.dtype == np.float64 and base.flags.c_contiguous and base.flags.writeable):
-        return None
-    step = base.strides[0]
-    start = cols["time"].__array_interface__["data"][0]
-    offset = start - base.__array_interface__["data"][0]
-    if offset < 0 or offset % step or offset // step + n > base.shape[0]:
-        return None
-    for i, name in enumerate(_NUMERIC):
-        c = cols.get(name)
-        if not (isinstance(c, np.ndarray) and c.dtype == np.float64 and c.shape == (n,)
-                and (n < 2 or c.strides == (step,))
-                and c.__array_interface__["data"][0] == start + i * base.itemsize):
-            return None
-    return base[offset // step:offset // step + n]
-
-
 def _stacked(cols: Mapping[str, Any], lo: int, hi: int) -> np.ndarray:
     """Rows lo..hi-1 of the numeric columns as one (hi - lo, len(_NUMERIC)) float64 array."""
     out = np.empty((hi - lo, len(_NUMERIC)))
@@ -455,10 +433,9 @@ def write_csv(path: Path, source: "EstimateTable | Mapping[str, Any]", chunk: in
     levels as integers (empty where a source did not report them), the state word as it is.
 
     ``source``: an :class:`EstimateTable`, or columns {name: (N,)} (``state`` as str). The rows
-    are written ``chunk`` at a time by one compiled call each (:func:`_text_rows`): from the
-    table's own array when the columns are an EstimateTable's (:meth:`EstimateTable.columns`,
-    no copy), else from the columns stacked a chunk at a time. Memory stays bounded by the
-    chunk (:data:`_ROW_BYTES` bytes of text per row at most)."""
+    are written ``chunk`` at a time by one compiled call each (:func:`_text_rows`): from a
+    table's own array (no copy), or from the columns stacked a chunk at a time. Memory stays
+    bounded by the chunk (:data:`_ROW_BYTES` bytes of text per row at most)."""
     if isinstance(chunk, bool) or not isinstance(chunk, (int, np.integer)) or chunk < 1:
         raise ValueError(f"write_csv: chunk is {chunk!r}; expected a whole number of rows >= 1")
     chunk = int(chunk)
@@ -466,7 +443,8 @@ def write_csv(path: Path, source: "EstimateTable | Mapping[str, Any]", chunk: in
         n = len(source)
         rows: np.ndarray | None = source._data[:n]
         states: Sequence[Any] = source._states
-    else:
+    else:   # stacked a chunk at a time below
+        rows = None
         missing = [c for c in COLUMN_NAMES if c not in source]
         if missing:
             raise ValueError(f"write_csv: columns {missing} missing; expected every name of "
@@ -476,7 +454,6 @@ def write_csv(path: Path, source: "EstimateTable | Mapping[str, Any]", chunk: in
         if short:
             raise ValueError(f"write_csv: 'time' has {n} values but these columns fewer: "
                              f"{short}; expected columns of equal length")
-        rows = _table_rows(source, n)
         states = source["state"]
     buf = np.empty(max(min(chunk, n), 1) * _ROW_BYTES, np.uint8)
     with open(path, "wb") as fh:

@@ -347,9 +347,9 @@ class Pipeline:
         static force N] and their four standard deviations (same units). The same numbers as
         :meth:`estimate`'s, without building it (the node's per-message path)."""
         o = self._out
-        if self.wrench_map.full_wrench:
-            return o[ps.O_FORCE:ps.O_TORQUE + 3].tolist() + o[ps.O_PARAMETERS:ps.O_STD + 4].tolist()
-        return (o[ps.O_FORCE:ps.O_FORCE + 3].tolist() + [0.0, 0.0, 0.0]
+        torque = (o[ps.O_TORQUE:ps.O_TORQUE + 3] if self.wrench_map.full_wrench
+                  else self.wrench_map.no_torque)   # as estimate() takes it
+        return (o[ps.O_FORCE:ps.O_FORCE + 3].tolist() + torque.tolist()
                 + o[ps.O_PARAMETERS:ps.O_STD + 4].tolist())
 
     @property

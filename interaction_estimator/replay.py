@@ -374,16 +374,19 @@ def replay(req: ReplayRequest) -> ReplayResult:
         summary = summarize(cols, truth=truth.parameters if truth else None,
                             reference=reference, rejects=pipeline.rejects.counts,
                             samples_read=read, wall_time=wall, source=source)
-        write_outputs(stage.path, summary, cols, reference)
+        write_outputs(stage.path, summary, table, reference)
         stage.commit()
     return ReplayResult(summary, cols, out)
 
 
-def write_outputs(directory: Path, summary: dict[str, Any], cols: dict[str, np.ndarray],
+def write_outputs(directory: Path, summary: dict[str, Any],
+                  estimates: EstimateTable | dict[str, np.ndarray],
                   reference: ForceReference | None, title: str | None = None) -> None:
-    """estimates.csv, summary.json and report.html into ``directory``."""
+    """estimates.csv, summary.json and report.html into ``directory``; ``estimates``: the
+    table (its CSV is written from its own array) or its columns."""
     from .report import write_report
-    write_csv(directory / "estimates.csv", cols)
+    write_csv(directory / "estimates.csv", estimates)
+    cols = estimates.columns() if isinstance(estimates, EstimateTable) else estimates
     (directory / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False)
                                             + "\n", encoding="utf-8")
     write_report(directory / "report.html", summary, cols, reference, title=title)

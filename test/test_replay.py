@@ -514,14 +514,13 @@ def test_float_text_equals_python_percent_17g():
 def test_csv_of_a_tables_own_rows_equals_python_formatting_row_by_row(tmp_path):
     """Reference: each row built here with Python's own formatting ("%.17g" for a float,
     str(int(v)) for a flag or level, an empty field for NaN, the state word as it is) joined by
-    commas (the layout of estimates.csv). The table is written from its own array (no copy:
-    numpy.shares_memory), from its columns and from copies of them, in chunks of 100 rows;
+    commas (the layout of estimates.csv). The table is written from its own array, from its
+    columns and from copies of them (both stacked a chunk at a time), in chunks of 100 rows;
     rows the compiled writer refuses (1e-300, -1e300, a level of 7, a flag of 2.5, the words
     '' and 'paused') fall inside chunks and on their edges, so Python writes those."""
     from interaction_estimator.estimates import (_CSV_ORDER, _INTEGER_COLUMNS, _IS_INTEGER,
                                                  _NUMERIC, _STATE_CODES, COLUMN_NAMES, STATES,
-                                                 EstimateTable, _table_rows, _text_rows,
-                                                 write_csv)
+                                                 EstimateTable, _text_rows, write_csv)
     rng = np.random.default_rng(21)
     n = 1000
     rows: list[list[float]] = []
@@ -566,10 +565,8 @@ def test_csv_of_a_tables_own_rows_equals_python_formatting_row_by_row(tmp_path):
 
     expected = (",".join(COLUMN_NAMES) + "\n"
                 + "".join(python_row(r, s) for r, s in zip(rows, states))).encode()
-    own = _table_rows(table.columns(), n)
-    assert own is not None and np.shares_memory(own, table._data)
+    own = table._data[:n]
     copies = {k: np.array(v, copy=True) for k, v in table.columns().items()}
-    assert _table_rows(copies, n) is None          # these are stacked a chunk at a time
     for source in (table, table.columns(), copies):
         write_csv(tmp_path / "e.csv", source, chunk=100)
         assert (tmp_path / "e.csv").read_bytes() == expected
