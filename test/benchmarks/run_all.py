@@ -18,7 +18,7 @@ PLAN = {
     "bench_environment.py": [],
     "bench_accuracy.py": [],
     "bench_node_callback.py": [],
-    "bench_node.py": ["--duration", "20", "--rounds", "3"],   # 60 s per subject, interleaved
+    "bench_node.py": [],   # 60 s per subject, in 2 s turns
     "bench_replay.py": ["--minutes", "10"],
 }
 
