@@ -414,7 +414,8 @@ def _print_table(truth: dict[str, float], node: dict, replay_summary: dict,
     fn, fr = node["force"], replay_summary["force"]
     lines += ["",
               f"force RMSE in contact (N):  node {display(fn['rmse_contact_N'])}, "
-              f"replay {display(fr['rmse_contact_N'])}",
+              f"replay {display(fr['rmse_contact_N'])} (the same forces; the node's contact "
+              "flag is the one its last ~/status gave, the replay's is per sample)",
               f"all four converged after (s): node {display(node['time_to_convergence_s'])}, "
               f"replay {display(replay_summary['time_to_convergence_s'])}",
               f"joint states sent {sent}, estimates received {answered}; largest node - replay "

@@ -75,6 +75,8 @@ def restamp(msgs: list[JointState], start_ns: int, rate: float) -> None:
 
 
 def make_node(rate: float) -> node_module.EstimatorNode:
+    # one node per pass: its start-up lines would only clutter the figures
+    rclpy.logging.set_logger_level(node_module.NODE_NAME, rclpy.logging.LoggingSeverity.WARN)
     return node_module.EstimatorNode(parameter_overrides=[
         Parameter("robot_description_file", value=str(marten.MOBILE_URDF)),
         Parameter("input.expected_rate", value=float(rate))])
