@@ -337,9 +337,9 @@ def main(argv: list[str] | None = None) -> int:
                         help="measure the node of the package in DIR/interaction_estimator "
                              "instead of this checkout's (repeatable; named after DIR)")
     args = parser.parse_args(argv)
-    if not (args.duration > 0 and args.turn > 0 and args.rate > 0):
-        parser.error(f"--duration ({args.duration}), --turn ({args.turn}) and --rate "
-                     f"({args.rate}) must be positive")
+    if not (args.duration > 0 and args.turn * args.rate >= 1 and args.rate > 0):
+        parser.error(f"--duration ({args.duration}) and --rate ({args.rate}) must be positive, "
+                     f"and --turn ({args.turn}) s long enough for one joint state at that rate")
     cycle = joint_states_cycle(4.0, args.rate)
     # name -> (command, namespace, working directory: python -m imports the package from it)
     subjects = {
@@ -370,8 +370,9 @@ def main(argv: list[str] | None = None) -> int:
     for name, r in results.items():
         print_row(name, r)
     print("Latency: joint-state stamp to the wrench's reception by this process's "
-          "middleware, all turns of the subject together. CPU %: CPU time of the subject's process per wall second (100 "
-          "= one core); CPU us: that CPU time per joint state answered; proc ms: the node's "
+          "middleware, all turns of the subject together. CPU %: CPU time of the subject's "
+          "process per wall second (100 = one core); CPU us: that CPU time per joint state "
+          "answered; proc ms: the node's "
           "own processing time per message (its status latency[s], running mean); steal%: "
           "time the hypervisor took from this machine's CPUs during the subject's turns; load: "
           "the machine's largest 1-minute load average at the end of a turn.")

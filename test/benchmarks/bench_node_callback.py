@@ -75,8 +75,6 @@ def restamp(msgs: list[JointState], start_ns: int, rate: float) -> None:
 
 
 def make_node(rate: float) -> node_module.EstimatorNode:
-    # one node per pass: its start-up lines would only clutter the figures
-    rclpy.logging.set_logger_level(node_module.NODE_NAME, rclpy.logging.LoggingSeverity.WARN)
     return node_module.EstimatorNode(parameter_overrides=[
         Parameter("robot_description_file", value=str(marten.MOBILE_URDF)),
         Parameter("input.expected_rate", value=float(rate))])
@@ -171,6 +169,8 @@ def main(argv: list[str] | None = None) -> int:
             command += ["--source", args.source]
         listener = subprocess.Popen(command)
     rclpy.init()
+    # a node per pass: their start-up lines would only clutter the figures
+    rclpy.logging.set_logger_level(node_module.NODE_NAME, rclpy.logging.LoggingSeverity.WARN)
     msgs = messages(args.messages, args.rate)
     node = make_node(args.rate)
     if listener is not None:  # let discovery match the publishers with the listener
