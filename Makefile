@@ -21,7 +21,7 @@ $(STAMP): requirements.txt requirements-ros.txt requirements-test.txt setup.py
 	$(PY) -m pip install --quiet --disable-pip-version-check pip==26.3 setuptools==80.9.0 wheel==0.48.0
 	$(PY) -m pip install --quiet -r requirements.txt -r requirements-ros.txt -r requirements-test.txt
 	$(PY) -m pip install --quiet --no-deps --no-build-isolation -e .
-	$(PY) -m interaction_estimator.compiled
+	$(PY) -m interaction_estimator.core.warmup
 	touch $(STAMP)
 
 test: $(STAMP)

@@ -9,7 +9,7 @@ setup(
     name=PACKAGE,
     version="0.1.0",
     packages=find_packages(exclude=["test", "test.*"]),
-    package_data={PACKAGE: ["scenarios/robots/*.urdf", "config/*.yaml"]},
+    package_data={PACKAGE: ["sim/robots/*.urdf", "config/*.yaml"]},
     data_files=[
         ("share/ament_index/resource_index/packages", [f"resource/{PACKAGE}"]),
         (f"share/{PACKAGE}", ["package.xml"]),
@@ -26,7 +26,7 @@ setup(
     entry_points={
         "console_scripts": [
             "interaction-estimator = interaction_estimator.cli:main",
-            "estimator_node = interaction_estimator.node:main",
+            "estimator_node = interaction_estimator.ros.node:main",
         ],
     },
 )

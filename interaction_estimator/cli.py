@@ -98,7 +98,7 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from .node import main as node_main
+    from .ros.node import main as node_main
     result = node_main(list(args.ros_args))
     return int(result or 0)
 
@@ -134,7 +134,7 @@ def _replay_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _replay(args: argparse.Namespace) -> int:
-    from .replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
+    from .offline.replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
     common = dict(params=args.params, urdf=args.urdf, topics=tuple(args.topics),
                   reference_topic=args.reference_topic, output_bag=args.output_bag,
                   bag_settings=not args.ignore_bag_settings)
@@ -166,8 +166,8 @@ def _replay(args: argparse.Namespace) -> int:
 
 def format_summary(summary: dict) -> str:
     """A short plain-text table of a summary (parameters, force RMSE, convergence)."""
-    from .environment import PARAMETER_NAMES
-    from .report import display
+    from .core.environment import PARAMETER_NAMES
+    from .offline.report import display
     lines = [f"{'parameter':<13}{'estimate':>12}{'std':>11}{'truth':>11}{'converged':>11}"
              f"{'after (s)':>11}"]
     for p in PARAMETER_NAMES:
@@ -190,7 +190,7 @@ def format_summary(summary: dict) -> str:
 
 
 def _simulate_arguments(p: argparse.ArgumentParser) -> None:
-    from .scenarios.simulator import SCENARIOS
+    from .sim.simulator import SCENARIOS
     p.add_argument("scenario", metavar="SCENARIO", choices=sorted(SCENARIOS),
                    help="one of: " + ", ".join(sorted(SCENARIOS)))
     p.add_argument("--out", required=True, type=Path, metavar="BAG",
@@ -208,8 +208,8 @@ def _simulate_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _simulate(args: argparse.Namespace) -> int:
-    from .bag import BagError, write_simulated_bag
-    from .scenarios.simulator import SCENARIOS, simulate
+    from .io.bag import BagError, write_simulated_bag
+    from .sim.simulator import SCENARIOS, simulate
     # refuse a bad target before spending the simulation time on it
     if args.out.exists():
         raise UsageError(f"output bag {str(args.out)!r} exists already; expected a new path")
@@ -248,7 +248,7 @@ COMMANDS: tuple[Command, ...] = (
 
 
 def _tune():
-    from . import tune  # imported on use: it loads the whole pipeline
+    from .offline import tune  # imported on use: it loads the whole pipeline
     return tune
 
 

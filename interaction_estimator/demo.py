@@ -3,7 +3,7 @@
 ``python -m interaction_estimator.demo --out demo_out`` (``make demo``):
 
 1. simulates the ``door`` scenario and writes it as a bag (``OUT/door_bag``);
-2. starts the node (``python -m interaction_estimator.node``) as a child process with
+2. starts the node (``python -m interaction_estimator.ros.node``) as a child process with
    ``OUT/params.yaml``: ``config/marten_demo.yaml`` when that file exists (else the defaults),
    with the scenario's recommended settings on top (its manipulation direction: the door's is
    estimated along the arc);
@@ -40,7 +40,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS
+from .core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 
 DEMO_SCENARIO = "door"
 DEMO_PARAMS = Path(__file__).resolve().parent.parent / "config" / "marten_demo.yaml"
@@ -74,7 +74,7 @@ def write_parameter_file(path: Path, settings: dict[str, Any]) -> None:
     """A ROS 2 parameter YAML for the node holding ``settings`` (dotted names)."""
     import yaml
 
-    from .settings import nest
+    from .core.settings import nest
     doc = {NODE_NAME: {"ros__parameters": nest(settings)}}
     path.write_text(yaml.safe_dump(doc, sort_keys=True), encoding="utf-8")
 
@@ -129,7 +129,7 @@ class NodeSession:
             if var not in os.environ:
                 raise NodeError(f"{var} is not set: call isolate_ros() first so that ROS 2 "
                                 "traffic stays on this machine")
-        cmd = [sys.executable, "-m", "interaction_estimator.node"]
+        cmd = [sys.executable, "-m", "interaction_estimator.ros.node"]
         if self.params_file is not None:
             cmd += ["--ros-args", "--params-file", str(self.params_file)]
         self._log = (open(self.log_path, "w", encoding="utf-8") if self.log_path
@@ -329,7 +329,7 @@ class NodeSession:
 
 def bag_joint_state_messages(bag_path: Path) -> tuple[list[tuple[int, bytes]], str]:
     """The joint states of a bag as [(log time ns, CDR bytes)] and its URDF text."""
-    from .bag import RecordedBag
+    from .io.bag import RecordedBag
     with RecordedBag(bag_path) as bag:
         urdf = bag.urdf() or ""
         msgs = [(ns, bytes(raw)) for _, ns, raw in bag._messages(bag.info.joint_states)]
@@ -339,8 +339,8 @@ def bag_joint_state_messages(bag_path: Path) -> tuple[list[tuple[int, bytes]], s
 def recording_columns(rec: NodeRecording) -> dict[str, np.ndarray]:
     """Estimate columns from the node's messages: force and parameters per wrench/environment
     pair (in arrival order), the rest from the latest status before each pair."""
-    from .bag import stamp_seconds
-    from .estimates import EstimateTable
+    from .io.bag import stamp_seconds
+    from .io.estimates import EstimateTable
     n = min(len(rec.wrench), len(rec.environment))
     w = np.array(rec.wrench[:n], dtype=float).reshape(-1, 8)
     env = np.array(rec.environment[:n], dtype=float).reshape(-1, 8)
@@ -392,7 +392,7 @@ def demo_settings(scenario_settings: dict[str, Any]) -> dict[str, Any]:
     (config/marten_demo.yaml, when present) with the scenario's own settings on top (its
     manipulation direction, effort side and contact frame describe the task, which a robot's
     file cannot know)."""
-    from .settings import Settings, load_parameter_file
+    from .core.settings import Settings, load_parameter_file
     base = load_parameter_file(DEMO_PARAMS) if DEMO_PARAMS.exists() else Settings()
     merged = base.replace(scenario_settings)
     default = Settings()
@@ -401,7 +401,7 @@ def demo_settings(scenario_settings: dict[str, Any]) -> dict[str, Any]:
 
 def _print_table(truth: dict[str, float], node: dict, replay_summary: dict,
                  differences: dict[str, float], sent: int, answered: int) -> str:
-    from .report import display
+    from .offline.report import display
     lines = ["", "Marten opens the storeroom door (simulated); the node ran over DDS, the replay "
              "offline, on the same bag.", "",
              f"{'parameter':<22}{'truth':>9}{'node':>10}{'± std':>9}{'replay':>10}"
@@ -441,11 +441,11 @@ def compare_with_replay(node_cols: dict[str, np.ndarray], replay_cols: dict[str,
 
 def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
     env = isolate_ros()
-    from .bag import ReferenceWrench, RecordedBag, write_simulated_bag  # noqa: F401
-    from .estimates import ForceReference, summarize
-    from .replay import (ReplayError, ReplayRequest, StagedDir, check_output_dir, replay,
+    from .io.bag import ReferenceWrench, RecordedBag, write_simulated_bag  # noqa: F401
+    from .io.estimates import ForceReference, summarize
+    from .offline.replay import (ReplayError, ReplayRequest, StagedDir, check_output_dir, replay,
                          write_outputs)
-    from .scenarios.simulator import SCENARIOS, simulate
+    from .sim.simulator import SCENARIOS, simulate
     started = time.perf_counter()
     try:
         if out.exists() and not (out / "demo.json").exists() and any(out.iterdir()):

@@ -20,6 +20,6 @@ def pytest_sessionstart(session):
     """Compile the estimator's compiled functions (or load them from the cache) once, before any
     test: a node or replay started by a test as a subprocess then loads them and never spends
     its time budget compiling (``make setup`` has usually done it already)."""
-    from interaction_estimator.compiled import warm_up
+    from interaction_estimator.core.warmup import warm_up
 
     warm_up()

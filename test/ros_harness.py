@@ -36,9 +36,9 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
 
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.samples import Sample
-from interaction_estimator.settings import Settings
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.samples import Sample
+from interaction_estimator.core.settings import Settings
 
 REPO = Path(__file__).resolve().parents[1]
 NODE_NAME = "interaction_estimator"
@@ -62,13 +62,13 @@ def local_env(domain: int) -> dict[str, str]:
 
 
 class NodeProcess:
-    """``python -m interaction_estimator.node --ros-args ...`` with output in a log file."""
+    """``python -m interaction_estimator.ros.node --ros-args ...`` with output in a log file."""
 
     def __init__(self, ros_args: list[str], domain: int, log_path: Path):
         self.log_path = log_path
         self._log = open(log_path, "wb")
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "interaction_estimator.node", "--ros-args", *ros_args],
+            [sys.executable, "-m", "interaction_estimator.ros.node", "--ros-args", *ros_args],
             env=local_env(domain), stdout=self._log, stderr=subprocess.STDOUT, cwd=REPO)
 
     def alive(self) -> bool:

@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 
 import mujoco_world as mw
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.samples import Sample
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import STANDARD_GRAVITY, Settings
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.samples import Sample
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import STANDARD_GRAVITY, Settings
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 ARM_BIAS = np.array([2.0, -1.5, 1.0, -2.0, 0.8, -0.6, 0.5])  # N·m, up to 2 N·m per joint

@@ -10,7 +10,7 @@ import pytest
 from rosbags.rosbag2 import StoragePlugin, Writer
 from rosbags.typesys import Stores, get_typestore
 
-from interaction_estimator.bag import (JOINT_STATE, STRING, WRENCH_STAMPED, BagError, BagWriter,
+from interaction_estimator.io.bag import (JOINT_STATE, STRING, WRENCH_STAMPED, BagError, BagWriter,
                                        GroundTruth, JointStateDecoder, JointStateEncoder,
                                        RecordedBag, TopicNames, decode_wrench_stamped,
                                        encode_string, encode_wrench_stamped)
@@ -447,7 +447,7 @@ def test_direct_mcap_reading_checks_chunk_checksums(tmp_path):
     # it too: with the right CRCs both read the same messages, with a wrong one both refuse.
     import zlib
     from rosbags.rosbag2 import Reader
-    from interaction_estimator.bag import _mcap_plan
+    from interaction_estimator.io.bag import _mcap_plan
     _raw_bag(tmp_path / "b", n=6000)
     data = next((tmp_path / "b").glob("*.mcap"))
     raw = bytearray(data.read_bytes())

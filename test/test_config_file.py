@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import yaml
 
-from interaction_estimator import config_file
-from interaction_estimator.model import RobotModel
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import (SPEC_BY_NAME, SPECS, Settings, flatten,
+from interaction_estimator.io import parameter_file as config_file
+from interaction_estimator.core.model import RobotModel
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import (SPEC_BY_NAME, SPECS, Settings, flatten,
                                             load_parameter_file)
 
 from ros_harness import REPO
@@ -22,7 +22,7 @@ DEMO_YAML = REPO / "config" / "marten_demo.yaml"
 
 def test_committed_default_equals_the_generated_file():
     # reference: the generator run on today's SPECS; regenerate with
-    #   python -m interaction_estimator.config_file --write config/default.yaml
+    #   python -m interaction_estimator.io.parameter_file --write config/default.yaml
     assert DEFAULT_YAML.read_text(encoding="utf-8") == config_file.generate()
     assert config_file.main(["--check", str(DEFAULT_YAML)]) == 0
 

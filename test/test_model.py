@@ -3,10 +3,10 @@ import numpy as np
 import pinocchio as pin
 import pytest
 
-from interaction_estimator.model import ModelError, RobotModel
-from interaction_estimator.samples import Sample, SampleRejected
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import STANDARD_GRAVITY
+from interaction_estimator.core.model import ModelError, RobotModel
+from interaction_estimator.core.samples import Sample, SampleRejected
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import STANDARD_GRAVITY
 
 # Two-link planar elbow arm in the vertical x-z plane (joint axes along -y, so a positive angle
 # raises the link), parameters chosen for the test.

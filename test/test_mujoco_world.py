@@ -24,7 +24,7 @@ from scipy import stats
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import mujoco_world as mw  # noqa: E402
 
-ROBOTS = Path(__file__).resolve().parents[1] / "interaction_estimator" / "scenarios" / "robots"
+ROBOTS = Path(__file__).resolve().parents[1] / "interaction_estimator" / "sim" / "robots"
 ARM = ROBOTS / "marten_arm.urdf"
 MOBILE = ROBOTS / "marten_mobile.urdf"
 G0 = 9.80665  # m/s^2, CGPM standard gravity

@@ -20,11 +20,11 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import String
 from std_srvs.srv import Trigger
 
-from interaction_estimator.environment import PARAMETER_NAMES, PARAMETER_UNITS
-from interaction_estimator.model import ModelError, RobotModel
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import load_parameter_file
+from interaction_estimator.core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from interaction_estimator.core.model import ModelError, RobotModel
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import load_parameter_file
 
 from ros_harness import (REPO, NodeProcess, Peer, contact_scenario, level, next_domain,
                          publish_paced, sample_of, still_scenario, values)

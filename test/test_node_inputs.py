@@ -22,12 +22,12 @@ from rclpy.serialization import deserialize_message, serialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 
-from interaction_estimator import node_messages as nm
-from interaction_estimator.node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
-from interaction_estimator.node_messages import outputs_finite
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import Settings
+from interaction_estimator.ros import messages as nm
+from interaction_estimator.ros.inputs import EffortMatcher, LatencyMeter, WarningThrottle
+from interaction_estimator.ros.messages import outputs_finite
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import Settings
 
 from ros_harness import contact_scenario
 

@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from interaction_estimator.model import RobotModel
-from interaction_estimator.observer import BiasEstimator, ContactMonitor, MomentumObserver
+from interaction_estimator.core.model import RobotModel
+from interaction_estimator.core.observer import BiasEstimator, ContactMonitor, MomentumObserver
 
 MASS = 2.5  # kg, a single prismatic slider moving horizontally
 SLIDER = ('<robot name="slider"><link name="rail"/><joint name="s" type="prismatic">'
@@ -95,7 +95,7 @@ def test_kalman_form_equals_filterpy_step_for_step():
     # on irregular intervals.
     from filterpy.kalman import KalmanFilter
 
-    from interaction_estimator.observer import KalmanMomentumObserver
+    from interaction_estimator.core.observer import KalmanMomentumObserver
 
     w, sv, se, m = 70.0, 0.004, 0.2, 1.7
     obs = KalmanMomentumObserver(np.array([w]), sv, se, max_gap=1.0, settle_steps=0)
@@ -127,7 +127,7 @@ def test_kalman_form_tracks_a_ramp_without_lag():
     # Disturbance modelled as a doubly integrated random walk: a ramp of external torque is
     # inside the model, so the steady-state error vanishes (internal model principle; Francis
     # and Wonham, Automatica 1976). The first-order form lags a ramp by slope / K_O.
-    from interaction_estimator.observer import KalmanMomentumObserver
+    from interaction_estimator.core.observer import KalmanMomentumObserver
 
     model = RobotModel(SLIDER, "cart")
     kal = KalmanMomentumObserver(np.array([60.0]), 0.003, 0.1, max_gap=1.0)

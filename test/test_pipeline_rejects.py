@@ -11,10 +11,10 @@ import math
 import numpy as np
 import pytest
 
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.samples import Sample
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import Settings
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.samples import Sample
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import Settings
 
 
 def motion(n: int, names: tuple[str, ...]):

@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 
 from interaction_estimator import cli
-from interaction_estimator.bag import (JOINT_STATE, STRING, BagWriter, JointStateEncoder,
+from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateEncoder,
                                        RecordedBag, encode_string, write_simulated_bag)
-from interaction_estimator.estimates import read_csv
-from interaction_estimator.report import display
-from interaction_estimator.scenarios.simulator import simulate
+from interaction_estimator.io.estimates import read_csv
+from interaction_estimator.offline.report import display
+from interaction_estimator.sim.simulator import simulate
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -136,7 +136,7 @@ def test_mcap_and_sqlite3_give_identical_estimates(drawer_replays):
     a = (drawer_replays / "mcap" / "estimates.csv").read_bytes()
     b = (drawer_replays / "sqlite" / "estimates.csv").read_bytes()
     assert a == b and len(a.splitlines()) == 3502
-    from interaction_estimator.estimates import comparable
+    from interaction_estimator.io.estimates import comparable
     sa = json.loads((drawer_replays / "mcap" / "summary.json").read_text())
     sb = json.loads((drawer_replays / "sqlite" / "summary.json").read_text())
     assert comparable(sa) == comparable(sb)
@@ -450,7 +450,7 @@ def test_csv_text_is_every_value_formatted_on_its_own(tmp_path):
     """Reference: Python's own "%.17g" of each value, row by row (17 significant digits read
     back bit-identical, IEEE 754 binary64), and float() of that text; the writer copies a value
     equal to the one above it, so runs, signed zeros, NaN and infinities are mixed in."""
-    from interaction_estimator.estimates import COLUMN_NAMES, _INTEGER_COLUMNS, write_csv
+    from interaction_estimator.io.estimates import COLUMN_NAMES, _INTEGER_COLUMNS, write_csv
     rng = np.random.default_rng(11)
     n = 5000
     cols: dict[str, np.ndarray] = {}
@@ -490,7 +490,7 @@ def test_float_text_equals_python_percent_17g():
     round up to the next power of ten, halfway cases (18 significant digits ending in 5), whole
     numbers and short decimals (trailing zeros dropped), runs of equal values (copied from the
     row above by the writer)."""
-    from interaction_estimator.estimates import float_texts
+    from interaction_estimator.io.estimates import float_texts
     rng = np.random.default_rng(3)
     bits = rng.integers(0, 2**64 - 1, 100_000, dtype=np.uint64, endpoint=True).view(np.float64)
     spread = 10.0 ** rng.uniform(-9, 19, 100_000) * rng.choice([-1.0, 1.0], 100_000)
@@ -518,7 +518,7 @@ def test_csv_of_a_tables_own_rows_equals_python_formatting_row_by_row(tmp_path):
     columns and from copies of them (both stacked a chunk at a time), in chunks of 100 rows;
     rows the compiled writer refuses (1e-300, -1e300, a level of 7, a flag of 2.5, the words
     '' and 'paused') fall inside chunks and on their edges, so Python writes those."""
-    from interaction_estimator.estimates import (_CSV_ORDER, _INTEGER_COLUMNS, _IS_INTEGER,
+    from interaction_estimator.io.estimates import (_CSV_ORDER, _INTEGER_COLUMNS, _IS_INTEGER,
                                                  _NUMERIC, _STATE_CODES, COLUMN_NAMES, STATES,
                                                  EstimateTable, _text_rows, write_csv)
     rng = np.random.default_rng(21)
@@ -585,7 +585,7 @@ def test_csv_of_a_tables_own_rows_equals_python_formatting_row_by_row(tmp_path):
 def test_csv_writer_names_a_value_it_cannot_write(tmp_path):
     """Reference: the column and value put in; an infinite level has no integer text
     (common practice, no source: say what was wrong and what was expected)."""
-    from interaction_estimator.estimates import EstimateTable, _NUMERIC, write_csv
+    from interaction_estimator.io.estimates import EstimateTable, _NUMERIC, write_csv
     table = EstimateTable()
     row = [0.0] * len(_NUMERIC)
     row[_NUMERIC.index("level")] = math.inf
@@ -600,7 +600,7 @@ def test_plot_thinning_keeps_each_spans_first_sample_and_extremes():
     """Reference: per span of samples (bounds from numpy.linspace), its first sample and
     numpy's nanargmin and nanargmax of the first series (spans without a finite value keep
     their first sample only), plus the last sample."""
-    from interaction_estimator.report import _MAX_POINTS, _thin
+    from interaction_estimator.offline.report import _MAX_POINTS, _thin
     rng = np.random.default_rng(4)
     for n in (1501, 4000, 12345):
         t = np.arange(n) * 1e-3

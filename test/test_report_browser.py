@@ -13,10 +13,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from interaction_estimator import report
-from interaction_estimator.bag import write_simulated_bag
-from interaction_estimator.replay import ReplayRequest, replay
-from interaction_estimator.scenarios.simulator import simulate
+from interaction_estimator.offline import report
+from interaction_estimator.io.bag import write_simulated_bag
+from interaction_estimator.offline.replay import ReplayRequest, replay
+from interaction_estimator.sim.simulator import simulate
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(

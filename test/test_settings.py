@@ -1,7 +1,7 @@
 """Settings registry and the ROS 2 parameter-file format."""
 import pytest
 
-from interaction_estimator.settings import (SPECS, Settings, SettingsError, load_parameter_file,
+from interaction_estimator.core.settings import (SPECS, Settings, SettingsError, load_parameter_file,
                                             parameters_from_yaml, per_joint)
 
 

@@ -1,4 +1,4 @@
-"""Tests of the built-in scenarios and their simulator (interaction_estimator.scenarios.simulator).
+"""Tests of the built-in scenarios and their simulator (interaction_estimator.sim.simulator).
 
 Each check names the outside reference it is held against: Newton's second law and the
 work-energy theorem on the object, standard gravity (CGPM), the statics of a manipulator
@@ -16,8 +16,8 @@ import pinocchio as pin
 import pytest
 from scipy import integrate, stats
 
-from interaction_estimator import settings as settings_module
-from interaction_estimator.scenarios import simulator as sim
+from interaction_estimator.core import settings as settings_module
+from interaction_estimator.sim import simulator as sim
 
 G0 = 9.80665  # m/s^2, standard gravity, CGPM 1901
 
@@ -459,7 +459,7 @@ def test_commissioning_measurements_are_corrupted_like_the_other_scenarios():
 
 def test_commissioning_bag_says_it_has_no_object(tmp_path, capsys):
     from interaction_estimator import cli
-    from interaction_estimator.bag import RecordedBag
+    from interaction_estimator.io.bag import RecordedBag
     out = tmp_path / "commissioning_bag"
     assert cli.main(["simulate", "commissioning", "--out", str(out), "--duration", "4.5",
                      "--rate", "200", "--effort-side", "motor"]) == 0

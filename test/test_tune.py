@@ -1,7 +1,7 @@
 """Tests of the tuning command (issue 6): bias, friction and noise from recorded data.
 
 References outside the package, named beside each check:
-* the simulator's ground truth (interaction_estimator.scenarios.simulator: known bias, friction
+* the simulator's ground truth (interaction_estimator.sim.simulator: known bias, friction
   coefficients, effort and velocity noise, contact time, object parameters, true force);
 * scipy.stats.chi2 for the 95 % interval of a time-averaged NIS (Bar-Shalom, Li and Kirubarajan,
   Estimation with Applications to Tracking and Navigation, 2001, sec. 5.4);
@@ -27,13 +27,13 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from interaction_estimator import tune as T
-from interaction_estimator.bag import SIMULATED_TIME_OFFSET, write_simulated_bag
-from interaction_estimator.environment import PARAMETER_NAMES
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.samples import Sample
-from interaction_estimator.scenarios.simulator import simulate
-from interaction_estimator.settings import (SPEC_BY_NAME, Settings, load_parameter_file,
+from interaction_estimator.offline import tune as T
+from interaction_estimator.io.bag import SIMULATED_TIME_OFFSET, write_simulated_bag
+from interaction_estimator.core.environment import PARAMETER_NAMES
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.samples import Sample
+from interaction_estimator.sim.simulator import simulate
+from interaction_estimator.core.settings import (SPEC_BY_NAME, Settings, load_parameter_file,
                                             parameters_from_yaml)
 
 DURATION = {"drawer": 5.0, "toolbox": 6.0, "commissioning": 12.0}
@@ -380,7 +380,7 @@ def test_command_line_commissioning_bag_and_one_task_with_report(bags, runs, tmp
 
 
 def test_module_runs_on_its_own():
-    done = subprocess.run([sys.executable, "-m", "interaction_estimator.tune", "--help"],
+    done = subprocess.run([sys.executable, "-m", "interaction_estimator.offline.tune", "--help"],
                           capture_output=True, text=True, timeout=60)
     assert done.returncode == 0 and "--out" in done.stdout and "--report" in done.stdout
 

@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 from scipy.signal import savgol_filter
 
-from interaction_estimator.wrench import AlongKinematics, Direction, WrenchMap
+from interaction_estimator.core.wrench import AlongKinematics, Direction, WrenchMap
 
 
 def test_force_is_least_squares_solution_with_robot_sign():
@@ -87,7 +87,7 @@ def test_jacobi_eigensolver_matches_numpy_eigh(seed):
     # matrices up to a condition number of 1e8, the smallest eigenvalue to high relative
     # accuracy (Demmel and Veselic, SIAM J. Matrix Anal. Appl. 1992: Jacobi's method is
     # relatively accurate on such matrices when they are well scaled).
-    from interaction_estimator.wrench import symmetric_eigen
+    from interaction_estimator.core.wrench import symmetric_eigen
 
     rng = np.random.default_rng(seed)
     for m in (3, 6):

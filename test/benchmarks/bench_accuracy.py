@@ -14,10 +14,10 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import mujoco_world as mw  # noqa: E402
-from interaction_estimator.pipeline import Pipeline  # noqa: E402
-from interaction_estimator.samples import Sample  # noqa: E402
-from interaction_estimator.scenarios import marten  # noqa: E402
-from interaction_estimator.settings import Settings  # noqa: E402
+from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
+from interaction_estimator.core.samples import Sample  # noqa: E402
+from interaction_estimator.sim import marten  # noqa: E402
+from interaction_estimator.core.settings import Settings  # noqa: E402
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 

@@ -12,8 +12,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from interaction_estimator.environment import EnvironmentFilter  # noqa: E402
-from interaction_estimator.settings import Settings  # noqa: E402
+from interaction_estimator.core.environment import EnvironmentFilter  # noqa: E402
+from interaction_estimator.core.settings import Settings  # noqa: E402
 
 N = 20000
 REPEATS = 3

@@ -5,7 +5,7 @@ to each subject in turn, in its own namespace:
 
 - floor: this script's own node, the same executor loop and QoS, answering each JointState with
   an empty WrenchStamped on ``~/wrench`` (the cost of rclpy and DDS alone);
-- estimator: ``python -m interaction_estimator.node`` with the Marten URDF.
+- estimator: ``python -m interaction_estimator.ros.node`` with the Marten URDF.
 
 Figures per subject: fraction of joint states answered by a wrench, latency from the input stamp
 to the wrench's reception by this process's middleware (p50, p99, max; both clocks are this
@@ -113,7 +113,7 @@ def cpu_seconds(pid: int) -> float:
 
 def joint_states_cycle(seconds: float, rate: float) -> list[JointState]:
     """One cycle of Marten moving and pushing an object (from the tests' scenario)."""
-    from interaction_estimator.scenarios import marten
+    from interaction_estimator.sim import marten
     from ros_harness import contact_scenario
     steps = contact_scenario(marten.mobile_urdf(), duration=seconds, dt=1.0 / rate,
                              contact_at=1.5)
@@ -307,8 +307,8 @@ def measure_all(subjects: dict, cycle: list[JointState], seconds: float, turn: f
 
 
 def estimator_command(rate: float, namespace: str) -> list[str]:
-    from interaction_estimator.scenarios import marten
-    return [sys.executable, "-m", "interaction_estimator.node", "--ros-args", "-r",
+    from interaction_estimator.sim import marten
+    return [sys.executable, "-m", "interaction_estimator.ros.node", "--ros-args", "-r",
             f"__ns:={namespace}", "-p", f"robot_description_file:={marten.MOBILE_URDF}", "-p",
             "input.expected_rate:=" + str(float(rate))]
 

@@ -1,6 +1,6 @@
 """The node's own cost per joint state, in one process, without DDS timing noise. Prints only.
 
-An :class:`~interaction_estimator.node.EstimatorNode` is built in this process (rclpy, its own
+An :class:`~interaction_estimator.ros.node.EstimatorNode` is built in this process (rclpy, its own
 domain, discovery range LOCALHOST) with the 10-joint Marten URDF, and its joint-state callback
 is called directly with the CDR bytes of JointState messages made by rclpy's serializer (what
 the middleware hands over). A node whose subscription takes message objects is given
@@ -54,9 +54,9 @@ from rclpy.serialization import deserialize_message, serialize_message  # noqa: 
 from sensor_msgs.msg import JointState  # noqa: E402
 
 from interaction_estimator import node as node_module  # noqa: E402
-from interaction_estimator.node_messages import sample_from_joint_state  # noqa: E402
-from interaction_estimator.pipeline import Pipeline  # noqa: E402
-from interaction_estimator.scenarios import marten  # noqa: E402
+from interaction_estimator.ros.messages import sample_from_joint_state  # noqa: E402
+from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
+from interaction_estimator.sim import marten  # noqa: E402
 
 
 def messages(n: int, rate: float) -> list[JointState]:

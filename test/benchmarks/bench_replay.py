@@ -28,14 +28,14 @@ from pathlib import Path
 import numpy as np
 import pinocchio as pin
 
-from interaction_estimator.bag import (JOINT_STATE, STRING, BagWriter, JointStateDecoder,
+from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateDecoder,
                                        JointStateEncoder, RecordedBag, encode_string,
                                        seconds_to_stamp, typestore)
-from interaction_estimator.model import RobotModel
-from interaction_estimator.pipeline import Pipeline
-from interaction_estimator.replay import ReplayRequest, replay, run_pipeline
-from interaction_estimator.scenarios import marten
-from interaction_estimator.settings import Settings
+from interaction_estimator.core.model import RobotModel
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.offline.replay import ReplayRequest, replay, run_pipeline
+from interaction_estimator.sim import marten
+from interaction_estimator.core.settings import Settings
 
 RATE = 1000.0  # Hz
 

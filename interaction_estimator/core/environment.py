@@ -676,7 +676,7 @@ class EnvironmentFilter:
        / (1 + rho); Box, Jenkins and Reinsel, Time Series Analysis, 4th ed. 2008, Sec. 2.1).
 
     Bad input (non-finite t, h or f; time going backwards) raises
-    :class:`~interaction_estimator.samples.SampleRejected`, is counted in :attr:`rejected` and
+    :class:`~interaction_estimator.core.samples.SampleRejected`, is counted in :attr:`rejected` and
     leaves the state untouched.
 
     Storage: state ``st`` (FILTER_STATE_SIZE,), configuration ``cf`` (FILTER_CONFIG_SIZE,) and

@@ -1,12 +1,12 @@
 """The Pipeline's per-sample arithmetic, compiled: the stages of one sample in one call.
 
-:class:`~interaction_estimator.pipeline.Pipeline` keeps every stage's state in a few float arrays
+:class:`~interaction_estimator.core.pipeline.Pipeline` keeps every stage's state in a few float arrays
 (layout below) and hands each stage object views into them, so the stages' own methods and this
 step work on the same numbers. Per sample the Pipeline makes the Pinocchio calls, then calls
 :func:`pipeline_step` once; the step calls the stages' compiled functions in the order of the
 design (observer with bias and friction removed, contact monitor with bias and noise learning,
 wrench map, direction, kinematics along u, environment filter) and writes one output row, from
-which the Pipeline builds the :class:`~interaction_estimator.pipeline.Estimate` and the health
+which the Pipeline builds the :class:`~interaction_estimator.core.pipeline.Estimate` and the health
 verdict. Only pipeline.py and this module compose the stages.
 
 Arrays (nv joints):

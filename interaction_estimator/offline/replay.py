@@ -34,12 +34,12 @@ from typing import Any, Callable, TextIO
 
 import numpy as np
 
-from .bag import BagError, BagWriter, GroundTruth, RecordedBag, TopicNames
-from .estimates import EstimateTable, ForceReference, summarize, write_csv
-from .model import ModelError
-from .pipeline import Pipeline
-from .samples import Sample
-from .settings import NODE_NAME, Settings, SettingsError, load_parameter_file
+from ..io.bag import BagError, BagWriter, GroundTruth, RecordedBag, TopicNames
+from ..io.estimates import EstimateTable, ForceReference, summarize, write_csv
+from ..core.model import ModelError
+from ..core.pipeline import Pipeline
+from ..core.samples import Sample
+from ..core.settings import NODE_NAME, Settings, SettingsError, load_parameter_file
 
 OUTPUT_FILES = ("estimates.csv", "summary.json", "report.html")
 OUTPUT_BAG_DIR = "estimates_bag"
@@ -237,7 +237,7 @@ class NodeOutputBag:
         try:
             from rclpy.serialization import serialize_message
 
-            from . import node_messages as nm
+            from ..ros import messages as nm
         except ImportError as exc:
             raise ReplayError(f"--output-bag needs the ROS 2 Python messages (rclpy): {exc}; "
                               "install them or leave --output-bag out") from None

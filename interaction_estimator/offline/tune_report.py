@@ -30,8 +30,8 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS
-from .settings import Settings
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.settings import Settings
 from .tune import (CONTACT, FREE_ONLY_USE, HELD_OUT_FRACTION, LEARNING, Recording, Trace,
                    TuneResult, bag_settings, build_entries, fit_filter_noise, identify, replay_filter,
                    run_pass, steady_mask)

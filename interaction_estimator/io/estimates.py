@@ -19,8 +19,8 @@ from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from .compiled import kernel
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.compiled import kernel
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 
 STATES = ("learning_bias", "free_motion", "in_contact", "converged", "contact_lost")
 LEVEL_NAMES = ("OK", "WARN", "ERROR", "STALE")

@@ -1,56 +1,14 @@
-"""The one decorator for the estimator's compiled per-sample arithmetic, and its cache.
-
-The stages' per-sample arithmetic (observer, bias, contact monitor, wrench map, direction,
-kinematics, environment filter) is written as plain Python functions on float arrays and compiled
-to machine code by Numba (Lam, Pitrou and Seibert, "Numba: a LLVM-based Python JIT compiler",
-LLVM-HPC 2015). Each stage's class calls its own functions; the Pipeline calls all of them in one
-compiled step (:mod:`.pipeline_step`), so a sample costs one call from Python instead of a hundred
-small numpy calls. The estimates.csv writer (:mod:`.estimates`) writes its rows the same way.
-
-- ``error_model="numpy"``: a division by zero gives inf or NaN, as numpy does, instead of raising;
-  every stage checks its outputs for finiteness where it matters.
-- no ``fastmath``: NaN and infinity keep their IEEE 754 meaning (the finiteness checks rely on it).
-- ``cache=True``: the machine code is kept on disk, so a new process loads it (a fraction of a
-  second) instead of compiling (about a minute on a small computer). The cache directory is
-  ``$NUMBA_CACHE_DIR`` or ``~/.cache/interaction_estimator``, in a subdirectory named by a hash
-  of the sources of every module with compiled functions (and of the Numba version): Numba
-  checks only the file of the function it loads, not the files of the functions it calls, so
-  without the hash an edit of one stage could leave a stale Pipeline step in the cache.
-
-``python -m interaction_estimator.compiled`` compiles (or loads) every function once and says
-how long it took; ``make setup`` runs it, so that a test, the demo or the node never compiles
-while it runs.
+"""Compile (or load from the cache) every compiled function before a node, a replay or a test
+needs it. ``python -m interaction_estimator.core.warmup`` does it once and says how long it took;
+``make setup`` runs it, so that no test, demo or node compiles while it runs.
 """
 from __future__ import annotations
 
-import hashlib
-import os
 import sys
 import time
 from pathlib import Path
 
-import numba
-
-# the modules whose functions are compiled (their sources name the cache directory)
-KERNEL_MODULES = ("compiled", "health", "observer", "wrench", "environment", "pipeline_step",
-                  "estimates")
-
-
-def _cache_dir() -> Path:
-    here = Path(__file__).resolve().parent
-    digest = hashlib.sha256(numba.__version__.encode())
-    for name in KERNEL_MODULES:
-        digest.update((here / f"{name}.py").read_bytes())
-    base = os.environ.get("NUMBA_CACHE_DIR") or os.path.join(
-        os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"),
-        "interaction_estimator")
-    return Path(base) / f"kernels-{digest.hexdigest()[:16]}"
-
-
-CACHE_DIR = _cache_dir()
-numba.config.CACHE_DIR = str(CACHE_DIR)   # read when each function below is decorated
-
-kernel = numba.njit(cache=True, nogil=True, error_model="numpy")
+from .compiled import CACHE_DIR
 
 
 def warm_up() -> float:
@@ -63,12 +21,12 @@ def warm_up() -> float:
     import numpy as np
 
     from .environment import EnvironmentFilter
-    from .estimates import _NUMERIC, STATES, EstimateTable, float_texts, write_csv
+    from ..io.estimates import _NUMERIC, STATES, EstimateTable, float_texts, write_csv
     from .observer import (BiasEstimator, ContactMonitor, FrictionModel,
                            KalmanMomentumObserver, MomentumObserver)
     from .pipeline import Pipeline
     from .samples import Sample, SampleBlock
-    from .scenarios import marten
+    from ..sim import marten
     from .settings import Settings
     from .wrench import AlongKinematics, Direction, WrenchMap
 

@@ -1,7 +1,7 @@
 """Conversions between ROS 2 messages and the pipeline's records; no node, no I/O.
 
-JointState -> :class:`~interaction_estimator.samples.Sample`, and
-:class:`~interaction_estimator.pipeline.Estimate` -> WrenchStamped, Float64MultiArray and
+JointState -> :class:`~interaction_estimator.core.samples.Sample`, and
+:class:`~interaction_estimator.core.pipeline.Estimate` -> WrenchStamped, Float64MultiArray and
 DiagnosticStatus, as message objects and as the CDR bytes the node actually reads and publishes
 (:class:`JointStateReader`, :class:`WrenchEncoder`, :class:`EnvironmentEncoder`,
 :class:`StatusEncoder`; same content, checked against rclpy's deserializer). Kept apart from the
@@ -32,10 +32,10 @@ from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
-from .bag import JointStateDecoder
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS
-from .health import ERROR, OK, STALE, WARN
-from .samples import Sample
+from ..io.bag import JointStateDecoder
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.health import ERROR, OK, STALE, WARN
+from ..core.samples import Sample
 
 # Layout of ~/environment: data[row * 4 + column]; row 0 the values, row 1 their standard
 # deviations; column i is parameter PARAMETER_NAMES[i] in PARAMETER_UNITS[i].

@@ -1,7 +1,7 @@
 """Commissioning from recorded data: torque bias, joint friction and noise levels, into a parameter file.
 
 ``interaction-estimator tune BAG [BAG ...] --out FILE [--params BASE] [--urdf FILE] [--report DIR]``
-(or ``python -m interaction_estimator.tune ...``) runs the recorded joint states through the
+(or ``python -m interaction_estimator.offline.tune ...``) runs the recorded joint states through the
 package's own :class:`~.pipeline.Pipeline` and identifies, from the data:
 
 1. **Segments.** Free motion and contact, as the Pipeline's contact monitor sees them
@@ -71,12 +71,12 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS, EnvironmentFilter
-from .model import ModelError
-from .observer import KalmanMomentumObserver, MomentumObserver
-from .pipeline import Pipeline
-from .samples import Sample
-from .settings import (NODE_NAME, SPEC_BY_NAME, SPECS, Settings, SettingsError, nest,
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS, EnvironmentFilter
+from ..core.model import ModelError
+from ..core.observer import KalmanMomentumObserver, MomentumObserver
+from ..core.pipeline import Pipeline
+from ..core.samples import Sample
+from ..core.settings import (NODE_NAME, SPEC_BY_NAME, SPECS, Settings, SettingsError, nest,
                        per_joint)
 
 PROG = "interaction-estimator tune"
@@ -167,7 +167,7 @@ def recording_from_run(run: Any, name: str | None = None) -> Recording:
 
 def read_bag(path: Path, topics: Sequence[str] = ()) -> Recording:
     """Read a rosbag2 bag through :class:`~.bag.RecordedBag` (raises BagError on bad bags)."""
-    from .bag import RecordedBag, TopicNames
+    from ..io.bag import RecordedBag, TopicNames
     with RecordedBag(path, TopicNames().with_overrides(list(topics))) as bag:
         samples = list(bag.samples())
         urdf = bag.urdf()
@@ -1624,7 +1624,7 @@ def _check_out(out: Path, report: Path | None) -> None:
 
 
 def _load_inputs(args: argparse.Namespace) -> tuple[list[Recording], str, dict[str, Any], str]:
-    from .settings import load_parameter_file, parameters_from_yaml
+    from ..core.settings import load_parameter_file, parameters_from_yaml
     recs = [read_bag(Path(b), args.topics) for b in args.bags]
     params: dict[str, Any] = {}
     base_source = "defaults and the bags' recommended settings"
@@ -1662,7 +1662,7 @@ def _load_urdf(urdf: Path | None, params: Mapping[str, Any], recs: Sequence[Reco
 
 def run(args: argparse.Namespace) -> int:
     """Run the tuning for parsed arguments; returns the exit code (0 ok, 2 bad input)."""
-    from .bag import BagError
+    from ..io.bag import BagError
     try:
         _check_out(Path(args.out), args.report)
         recs, urdf, params, base_source = _load_inputs(args)

@@ -5,8 +5,8 @@ description with its unit and allowed values, a FloatingPointRange or IntegerRan
 setting is bounded (step 0: any value in the range), and ``read_only`` where the setting needs a
 restart. rclpy checks the descriptor's range first (its refusal names the parameter, the value
 and the bounds); everything else (types, lengths, choices, open bounds, per-joint lists,
-cross-setting rules) is checked by :func:`~interaction_estimator.settings.validate_value` and
-:class:`~interaction_estimator.settings.Settings`, whose message becomes the refusal reason.
+cross-setting rules) is checked by :func:`~interaction_estimator.core.settings.validate_value` and
+:class:`~interaction_estimator.core.settings.Settings`, whose message becomes the refusal reason.
 
 Typing: strings, booleans and integers are statically typed. Floats and arrays are declared with
 ``dynamic_typing`` so that a parameter file may write ``9`` for ``9.0``, ``[40, 30]`` for a list
@@ -26,7 +26,7 @@ import yaml
 from rcl_interfaces.msg import FloatingPointRange, IntegerRange, ParameterDescriptor
 from rclpy.parameter import Parameter
 
-from .settings import (PER_JOINT, SPEC_BY_NAME, SPECS, ParamSpec, Settings, SettingsError,
+from ..core.settings import (PER_JOINT, SPEC_BY_NAME, SPECS, ParamSpec, Settings, SettingsError,
                        per_joint, validate_value)
 
 _STATIC_TYPES = {

@@ -9,7 +9,7 @@ settings they get the same numbers. Memory is bounded: no history grows with run
 
 Per sample, :meth:`Pipeline.process` validates the sample, maps it onto the model's joints, makes
 the Pinocchio calls, and then runs every stage's arithmetic in one compiled call
-(:func:`~interaction_estimator.pipeline_step.pipeline_step`) on the stages' state, which lives in
+(:func:`~interaction_estimator.core.pipeline_step.pipeline_step`) on the stages' state, which lives in
 the Pipeline's arrays (the stage objects hold views into them, so their methods see the same
 numbers); the output row becomes the :class:`Estimate` and the health verdict.
 """

@@ -1,6 +1,6 @@
 """The default parameter file, generated from the settings registry so it never drifts.
 
-``python -m interaction_estimator.config_file`` prints it; ``--write config/default.yaml``
+``python -m interaction_estimator.io.parameter_file`` prints it; ``--write config/default.yaml``
 rewrites the committed copy; ``--check config/default.yaml`` exits 1 if that copy is out of date.
 Every entry is commented with its type, unit, meaning, allowed values and, where it helps, how to
 tune it. The format is the ROS 2 parameter file: ``interaction_estimator:`` then
@@ -16,7 +16,7 @@ import textwrap
 from pathlib import Path
 from typing import Any, Sequence
 
-from .settings import NODE_NAME, SPECS, ParamSpec
+from ..core.settings import NODE_NAME, SPECS, ParamSpec
 
 WIDTH = 96  # characters per comment line
 # The file's section: this node's name in any namespace. A plain "interaction_estimator:" would
@@ -28,7 +28,7 @@ HEADER = f"""\
 # Parameters of the interaction_estimator node, the replay and the tuning command.
 #
 # GENERATED from the settings registry (interaction_estimator/settings.py) by
-#   python -m interaction_estimator.config_file --write config/default.yaml
+#   python -m interaction_estimator.io.parameter_file --write config/default.yaml
 # Do not edit this copy: copy it to your robot's package, change what you need there, and pass
 # it with `--ros-args --params-file FILE` (or the launch argument params_file). Values here are
 # the defaults; a file needs only the entries it changes.
@@ -182,7 +182,7 @@ def generate() -> str:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m interaction_estimator.config_file",
+    parser = argparse.ArgumentParser(prog="python -m interaction_estimator.io.parameter_file",
                                      description="Print, write or check the default parameter "
                                                  "file generated from the settings registry.")
     group = parser.add_mutually_exclusive_group()
@@ -199,7 +199,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         current = path.read_text(encoding="utf-8") if path.exists() else ""
         if current != text:
             print(f"{path} is out of date: regenerate it with python -m "
-                  f"interaction_estimator.config_file --write {path}", file=sys.stderr)
+                  f"interaction_estimator.io.parameter_file --write {path}", file=sys.stderr)
             return 1
         return 0
     sys.stdout.write(text)

@@ -26,8 +26,8 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
-from .environment import PARAMETER_NAMES, PARAMETER_UNITS
-from .estimates import LEVEL_NAMES, STATES, ForceReference, match_reference
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..io.estimates import LEVEL_NAMES, STATES, ForceReference, match_reference
 
 # Our palette (hex): ink and paper, estimate, its band, the reference, the truth.
 INK = "#1d2731"

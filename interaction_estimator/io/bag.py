@@ -50,7 +50,7 @@ from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
 
-from .samples import Sample, SampleBlock
+from ..core.samples import Sample, SampleBlock
 
 JOINT_STATE = "sensor_msgs/msg/JointState"
 STRING = "std_msgs/msg/String"
@@ -1115,7 +1115,7 @@ def write_simulated_bag(path: str | Path, run: Any, storage: str = "mcap",
     root, N; zero throughout for a scenario without an object) and the ground truth on
     ``/ground_truth/parameters`` and in the metadata (parameters and contact time null when the
     scenario has no object)."""
-    from .model import RobotModel  # only for the root frame name
+    from ..core.model import RobotModel  # only for the root frame name
     root = RobotModel(run.urdf, run.contact_frame).root_frame
     truth_params = None
     if run.truth.get("has_object", True):

@@ -112,7 +112,7 @@ class SampleValidator:
 @dataclass(frozen=True)
 class SampleBlock:
     """Consecutive joint-space samples with the same joint names (k of them, n joints), as a
-    recording holds them: what :meth:`~interaction_estimator.pipeline.Pipeline.process_block`
+    recording holds them: what :meth:`~interaction_estimator.core.pipeline.Pipeline.process_block`
     takes. ``sample(i)`` is the i-th as a :class:`Sample` (its arrays are views of the rows).
 
     time (k,) stamps, s; position, velocity, effort (k, n) rad or m, rad/s or m/s, N·m or N;

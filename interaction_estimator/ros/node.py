@@ -1,6 +1,6 @@
 """The ROS 2 node ``interaction_estimator``: JointState in, wrench and object estimates out.
 
-A thin adapter around :class:`~interaction_estimator.pipeline.Pipeline`:
+A thin adapter around :class:`~interaction_estimator.core.pipeline.Pipeline`:
 message -> Sample -> Pipeline -> Estimate -> messages. Topics (relative names, so namespaces and
 remapping apply):
 
@@ -53,19 +53,20 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
 
-from . import node_params
-from .compiled import CACHE_DIR, warm_up
-from .health import ERROR, STALE, WARN
-from .model import ModelError
-from .node_inputs import EffortMatcher, LatencyMeter, WarningThrottle
-from .node_messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
+from . import parameters as node_params
+from ..core.compiled import CACHE_DIR
+from ..core.warmup import warm_up
+from ..core.health import ERROR, STALE, WARN
+from ..core.model import ModelError
+from .inputs import EffortMatcher, LatencyMeter, WarningThrottle
+from .messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
                             EnvironmentEncoder, JointStateReader, NodeFigures, StatusEncoder,
                             StatusFields, WrenchEncoder, efforts_for_state, idle_fields,
                             output_numbers, sample_from_joint_state, sample_from_parts,
                             seconds_to_stamp, stamp_is_zero, stamp_seconds, status_fields)
-from .pipeline import Estimate, Pipeline
-from .samples import RejectCounts, Sample, SampleRejected
-from .settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
+from ..core.pipeline import Estimate, Pipeline
+from ..core.samples import RejectCounts, Sample, SampleRejected
+from ..core.settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
 
 # Topic and service names, relative (namespaces and remapping apply).
 JOINT_STATES_TOPIC = "joint_states"
