@@ -3,7 +3,9 @@ import numpy as np
 import pytest
 
 from interaction_estimator.core.model import RobotModel
-from interaction_estimator.core.observer import BiasEstimator, ContactMonitor, MomentumObserver
+from interaction_estimator.core.compensation import BiasEstimator
+from interaction_estimator.core.contact import ContactMonitor
+from interaction_estimator.core.observer import MomentumObserver
 
 MASS = 2.5  # kg, a single prismatic slider moving horizontally
 SLIDER = ('<robot name="slider"><link name="rail"/><joint name="s" type="prismatic">'

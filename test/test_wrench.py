@@ -3,7 +3,9 @@ import numpy as np
 import pytest
 from scipy.signal import savgol_filter
 
-from interaction_estimator.core.wrench import AlongKinematics, Direction, WrenchMap
+from interaction_estimator.core.direction import Direction
+from interaction_estimator.core.kinematics import AlongKinematics
+from interaction_estimator.core.wrench import WrenchMap
 
 
 def test_force_is_least_squares_solution_with_robot_sign():
@@ -34,7 +36,7 @@ def test_full_wrench_and_damping_match_closed_form():
 
 def test_savitzky_golay_acceleration_matches_scipy():
     dt = 1e-3
-    kin = AlongKinematics(window=0.031, polyorder=2, nominal_dt=dt, observer_gain=50.0)
+    kin = AlongKinematics(window=0.031, polyorder=2, nominal_dt=dt)
     t = np.arange(200) * dt
     vel = 0.2 * np.sin(3.0 * t) + 0.05 * t
     for ti, vi in zip(t, vel):

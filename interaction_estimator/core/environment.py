@@ -1,35 +1,25 @@
 """Environment-parameter filter: an adaptive Kalman filter on the object's parameters.
 
-Along the manipulation direction the object is modelled as
+The object model (:mod:`.object_models`) gives a measurement row: the force f (N) and the
+regressor h (m,) with ``f = h . theta + v``; theta holds the model's m parameters (for the
+default model along the direction: [mass kg, damping N·s/m, stiffness N/m, static_force N] with
+h = [x'', x', x, 1]). The parameters follow a random walk, theta_k = theta_{k-1} + w_k with
+w_k ~ N(0, diag(q^2) dt), and the measurement noise v_k ~ N(0, R). This is a linear Kalman
+filter with F = I and a time-varying 1 x m measurement matrix h_k (Kalman 1960; the same
+equations as filterpy's ``KalmanFilter``, with the Joseph-form covariance update of Bucy and
+Joseph 1968). Nothing here knows m: every loop runs over the parameters the model declares.
 
-    f = mass * x'' + damping * x' + stiffness * x + static_force      (N)
+On top of it (each one cited where it is implemented): measurement-noise adaptation
+(fading-memory Sage-Husa, or covariance matching), optional diagonal process-noise adaptation,
+non-negativity of the parameters the model declares non-negative by projection, excitation
+monitoring with a Schmidt ("consider") gain for parameters the motion does not excite, NIS
+consistency against chi-square bounds, CUSUM change detection, and the widening of the
+standard deviations for correlated innovations.
 
-with theta = [mass (kg), damping (N·s/m), stiffness (N/m), static_force (N)] and the regressor
-row h = [x'' (m/s^2), x' (m/s), x (m), 1]. The parameters follow a random walk,
-theta_k = theta_{k-1} + w_k with w_k ~ N(0, diag(process_std^2) * dt), and the measurement is
-f_k = h_k theta_k + v_k with v_k ~ N(0, R). This is a linear Kalman filter with F = I and a
-time-varying 1x4 measurement matrix h_k (Kalman 1960; the same equations as filterpy's
-``KalmanFilter``, with the Joseph-form covariance update of Bucy and Joseph 1968).
-
-On top of it (each one cited where it is implemented):
-
-- measurement-noise adaptation, fading-memory Sage-Husa (Sage and Husa 1969) or covariance
-  matching over a window (Mehra, IEEE TAC 1972), both in the residual form of Mohamed and
-  Schwarz (J. Geodesy 1999) so that R stays positive, and floored;
-- optional diagonal Sage-Husa process-noise adaptation, floored at zero;
-- non-negative mass, damping and stiffness by projecting the estimate onto the constraint with
-  the weight P^-1 (Simon and Chia 2002; Simon 2010);
-- excitation monitoring: a parameter whose regressor is not excited is a "consider" parameter
-  (Schmidt 1966): its uncertainty enters the innovation variance, but its gain is zero, so it
-  keeps its prior;
-- consistency by the normalized innovation squared (NIS) against two-sided chi-square bounds
-  (Bar-Shalom, Li and Kirubarajan 2001), and change detection by a one-sided CUSUM of the NIS
-  (Page 1954), which inflates the covariance.
-
-Memory is bounded (fixed-size windows only). The state lives in float arrays and an update is
-compiled (:mod:`.compiled`): the 10 distinct entries of the symmetric 4x4 covariance are written
-out, so an update is a few hundred float operations. scipy is used only when settings are
-applied.
+Records (:class:`FilterRecords`): configuration :data:`PARAMS` and per-parameter
+:data:`PARAMETER_PARAMS`; state :data:`STATE`, per-parameter :data:`PARAMETERS` and the
+covariance (m, m); the NIS bounds table and the two windows; the last update's figures
+:data:`OUTPUT` and per-parameter :data:`PARAMETER_OUTPUT`. Memory is bounded (fixed windows).
 """
 from __future__ import annotations
 
@@ -39,42 +29,555 @@ from typing import NamedTuple
 import numpy as np
 
 from .compiled import kernel
+from .object_models import ALONG_DIRECTION, ObjectModel
+from .records import B1, F8, I1, I8, record
 from .samples import SampleRejected
 from .settings import Settings, SettingsError
 
-PARAMETER_NAMES = ("mass", "damping", "stiffness", "static_force")
-PARAMETER_UNITS = ("kg", "N·s/m", "N/m", "N")
-REGRESSOR_NAMES = ("acceleration", "velocity", "position", "one")
-REGRESSOR_UNITS = ("m/s^2", "m/s", "m", "1")
+# kept for callers that name the default model's parameters
+PARAMETER_NAMES = ALONG_DIRECTION.parameter_names
+PARAMETER_UNITS = ALONG_DIRECTION.parameter_units
 NIS_CONFIDENCE = 0.95  # two-sided probability of the NIS interval (Bar-Shalom et al. 2001)
 
-_H_LABELS = ("h[0] (x'', m/s^2)", "h[1] (x', m/s)", "h[2] (x, m)", "h[3] (constant 1)")
+CHANGE_REGAINED = 1  # the contact started again (the Pipeline's inflation)
+CHANGE_CUSUM = 2     # the innovation CUSUM crossed its threshold
+CHANGE_TEXT = 4      # an inflation asked for through EnvironmentFilter.inflate (its text)
+
+UPDATED, REJECT_NON_FINITE, REJECT_TIME_BACKWARDS = 0, 1, 2
+ADAPT_FIXED, ADAPT_SAGE_HUSA, ADAPT_MATCHING = 0, 1, 2
+_ADAPTATION = {"fixed": ADAPT_FIXED, "sage_husa": ADAPT_SAGE_HUSA, "matching": ADAPT_MATCHING}
+
+PARAMS = record(
+    "environment filter parameters",
+    ("r0", F8, "N^2", "measurement variance to start from (filter.measurement_std^2)"),
+    ("measurement_std0", F8, "N", "filter.measurement_std, reported before the first update"),
+    ("r_floor", F8, "N^2", "floor of the adapted measurement variance"),
+    ("noise_adaptation", I1, "", "ADAPT_FIXED, ADAPT_SAGE_HUSA or ADAPT_MATCHING"),
+    ("fading", F8, "", "Sage-Husa fading factor b"),
+    ("process_adaptation", I1, "", "ADAPT_FIXED or ADAPT_SAGE_HUSA"),
+    ("change_threshold", F8, "", "CUSUM threshold on the NIS"),
+    ("change_drift", F8, "", "CUSUM drift"),
+    ("change_inflation", F8, "", "covariance factor at a change"),
+    ("excitation_window_s", F8, "s", "forgetting time of the excitation measure"),
+    ("converged_rel", F8, "", "relative std below which a parameter converged"),
+    ("correlation", B1, "", "widen the std for correlated innovations"),
+    ("nis_window", I8, "updates", "NIS averaging window"),
+    ("matching_window", I8, "updates", "covariance-matching window"),
+)
+PARAMETER_PARAMS = record(
+    "environment filter, per parameter",
+    ("prior_mean", F8, "(parameter unit)", "prior mean"),
+    ("prior_std", F8, "(parameter unit)", "prior standard deviation"),
+    ("prior_var", F8, "(parameter unit)^2", "prior variance"),
+    ("process_var", F8, "(parameter unit)^2/s", "random-walk intensity q^2 to start from"),
+    ("excitation_min", F8, "(regressor unit)", "RMS of h_i below which i is not excited"),
+    ("converged_std", F8, "(parameter unit)", "std below which i counts as converged"),
+    ("nonnegative", B1, "", "kept >= 0 by projection"),
+)
+STATE = record(
+    "environment filter state",
+    ("r", F8, "N^2", "measurement variance R now"),
+    ("has_update", B1, "", "updated since the last reset"),
+    ("last_time_s", F8, "s", "time of the last update"),
+    ("samples", I8, "", "updates since the last reset"),
+    ("fading_power", F8, "", "b^k"),
+    ("cusum", F8, "", "CUSUM of the NIS"),
+    ("z_prev", F8, "", "previous normalized innovation"),
+    ("corr_lag", F8, "", "decaying sum of z_k z_(k-1)"),
+    ("corr_zero", F8, "", "decaying sum of z_k^2"),
+    ("excitation_weight", F8, "", "decaying count of the excitation sums"),
+    ("pending_change", I8, "", "CHANGE_* bits to report at the next update"),
+    ("pending_g", F8, "", "the CUSUM value that declared a pending change"),
+    ("nis_index", I8, "", "NIS window: next slot"),
+    ("nis_count", I8, "", "NIS window: values held"),
+    ("nis_sum", F8, "", "NIS window: running sum"),
+    ("match_index", I8, "", "matching window: next slot"),
+    ("match_count", I8, "", "matching window: values held"),
+    ("match_sum", F8, "N^2", "matching window: running sum"),
+    ("rejected", I8, "", "updates refused since start"),
+)
+PARAMETERS = record(
+    "environment filter state, per parameter",
+    ("theta", F8, "(parameter unit)", "estimate"),
+    ("process_var", F8, "(parameter unit)^2/s", "random-walk intensity q^2 now"),
+    ("excitation_sum", F8, "(regressor unit)^2", "decaying sum of h_i^2"),
+)
+NIS_BOUNDS = record(
+    "NIS interval by number of updates averaged",
+    ("lower", F8, "", "chi2.ppf(a/2, n) / n"),
+    ("upper", F8, "", "chi2.ppf(1 - a/2, n) / n"),
+)
+OUTPUT = record(
+    "environment filter, last update",
+    ("time_s", F8, "s", "time of the update"),
+    ("force", F8, "N", "measured force f"),
+    ("innovation", F8, "N", "f - h theta_prior"),
+    ("innovation_var", F8, "N^2", "S = h P h^T + R"),
+    ("nis", F8, "", "innovation^2 / S"),
+    ("nis_average", F8, "", "mean NIS over the NIS window"),
+    ("nis_lower", F8, "", "lower bound of that mean (95 %)"),
+    ("nis_upper", F8, "", "upper bound"),
+    ("r", F8, "N^2", "R used at this update"),
+    ("change", I8, "", "CHANGE_* bits declared at (or just before) this update"),
+    ("change_g", F8, "", "the CUSUM value of a CUSUM change"),
+    ("samples", I8, "", "updates since the last reset, this one included"),
+    ("all_excited", B1, "", "every parameter excited"),
+    ("all_converged", B1, "", "every parameter converged"),
+)
+PARAMETER_OUTPUT = record(
+    "environment filter, last update, per parameter",
+    ("value", F8, "(parameter unit)", "estimate"),
+    ("std", F8, "(parameter unit)", "standard deviation (widened for correlation)"),
+    ("excitation", F8, "(regressor unit)", "RMS of h_i over the excitation window"),
+    ("excited", B1, "", "updated at this step"),
+    ("converged", B1, "", "excited and std below its threshold"),
+    ("regressor", F8, "(regressor unit)", "h_i of this update"),
+)
 
 
-def _flag_array(bits: int) -> np.ndarray:
-    a = np.array([bool(bits >> i & 1) for i in range(4)])
-    a.setflags(write=False)
-    return a
+class FilterRecords(NamedTuple):
+    """The filter's records, as the compiled update takes them."""
+
+    params: np.ndarray            # (1,) PARAMS
+    parameter_params: np.ndarray  # (m,) PARAMETER_PARAMS
+    state: np.ndarray             # (1,) STATE
+    parameters: np.ndarray        # (m,) PARAMETERS
+    covariance: np.ndarray        # (m, m) float
+    nis_bounds: np.ndarray        # (nis_window + 1,) NIS_BOUNDS
+    nis_ring: np.ndarray          # (nis_window,) float
+    match_ring: np.ndarray        # (matching_window,) float
+    output: np.ndarray            # (1,) OUTPUT
+    parameter_output: np.ndarray  # (m,) PARAMETER_OUTPUT
 
 
-# the (4,) bool arrays of every flag pattern, read-only and shared by the records that carry them
-_FLAGS = tuple(_flag_array(bits) for bits in range(16))
+def nis_bounds_table(n_max: int) -> np.ndarray:
+    """Two-sided 95 % interval of the mean of n NIS values of a 1-D measurement, n = 1..n_max,
+    as an (n_max + 1,) NIS_BOUNDS array (index 0 unused, NaN).
+
+    n times that mean is chi-square with n degrees of freedom when the filter is consistent
+    (Bar-Shalom, Li and Kirubarajan 2001, sec. 5.4), so the bounds are chi2.ppf(a/2, n) / n and
+    chi2.ppf(1 - a/2, n) / n.
+    """
+    from scipy.stats import chi2  # settings time only, never in the update
+
+    n = np.arange(1, n_max + 1, dtype=float)
+    alpha = 1.0 - NIS_CONFIDENCE
+    table = NIS_BOUNDS.many(n_max + 1)
+    table[0] = (math.nan, math.nan)
+    table["lower"][1:] = chi2.ppf(alpha / 2.0, n) / n
+    table["upper"][1:] = chi2.ppf(1.0 - alpha / 2.0, n) / n
+    return table
+
+
+@kernel
+def _exact_sum(buf):
+    """Sum of buf with Neumaier's compensation (error about one rounding of the result, like
+    math.fsum for these magnitudes; Neumaier, ZAMM 1974)."""
+    s = 0.0
+    comp = 0.0
+    for k in range(buf.shape[0]):
+        x = buf[k]
+        t = s + x
+        if abs(s) >= abs(x):
+            comp += (s - t) + x
+        else:
+            comp += (x - t) + s
+        s = t
+    return s + comp
+
+
+@kernel
+def _window_push(ring, index, count, total, value):
+    """Mean of the last len(ring) values after adding ``value``; returns (mean, index, count,
+    total). The sum is recomputed with compensation each time the ring wraps, so rounding
+    errors do not accumulate."""
+    size = ring.shape[0]
+    total += value - ring[index]
+    ring[index] = value
+    index += 1
+    if count < size:
+        count += 1
+    if index == size:
+        index = 0
+        total = _exact_sum(ring)
+    return total / count, index, count, total
+
+
+@kernel
+def filter_inflate(fr, reason):
+    """Multiply P by the change inflation; rows and columns whose variance would exceed the
+    prior variance are scaled down together (P -> D P D), which keeps P positive semi-definite
+    and the correlations unchanged. ``reason``: a CHANGE_* bit reported at the next update."""
+    P = fr.covariance
+    m = P.shape[0]
+    infl = fr.params[0].change_inflation
+    scale = np.ones(m)
+    for i in range(m):
+        for j in range(m):
+            P[i, j] *= infl
+    for i in range(m):
+        prior = fr.parameter_params[i].prior_var
+        if P[i, i] > prior:
+            scale[i] = math.sqrt(prior / P[i, i])
+    for i in range(m):
+        for j in range(m):
+            P[i, j] *= scale[i] * scale[j]
+    s = fr.state[0]
+    s.cusum = 0.0
+    s.pending_change |= reason
+
+
+@kernel
+def filter_reset(fr):
+    """Back to the prior: theta = prior mean, P = diag(prior variance), R = r0 (floored),
+    q^2 = the process variance; windows, CUSUM and sample count cleared. The rejected count is
+    kept."""
+    p, s = fr.params[0], fr.state[0]
+    P = fr.covariance
+    m = P.shape[0]
+    for i in range(m):
+        pp, ps = fr.parameter_params[i], fr.parameters[i]
+        ps.theta = pp.prior_mean
+        ps.process_var = pp.process_var
+        ps.excitation_sum = 0.0
+        for j in range(m):
+            P[i, j] = 0.0
+        P[i, i] = pp.prior_var
+    s.r = max(p.r0, p.r_floor)
+    s.has_update = False
+    s.last_time_s = 0.0
+    s.samples = 0
+    s.fading_power = 1.0
+    s.cusum = 0.0
+    s.z_prev = 0.0
+    s.corr_lag = 0.0
+    s.corr_zero = 0.0
+    s.excitation_weight = 0.0
+    s.pending_change = 0
+    s.pending_g = 0.0
+    s.nis_index = s.nis_count = 0
+    s.nis_sum = 0.0
+    s.match_index = s.match_count = 0
+    s.match_sum = 0.0
+    fr.nis_ring[:] = 0.0
+    fr.match_ring[:] = 0.0
+
+
+@kernel
+def _solve_active(P, active, n_active, th0):
+    """z = P_AA^-1 theta_A for the active bounds A (numpy.linalg.solve, LAPACK's dgesv);
+    returns (z, False) when P_AA is singular."""
+    A = np.empty((n_active, n_active))
+    b = np.empty(n_active)
+    for r in range(n_active):
+        b[r] = th0[active[r]]
+        for c in range(n_active):
+            A[r, c] = P[active[r], active[c]]
+    try:
+        return np.linalg.solve(A, b), True
+    except Exception:   # numpy.linalg.LinAlgError: singular
+        return b, False
+
+
+@kernel
+def filter_project(theta, P, excited, nonnegative):
+    """Estimate projection onto the bounds x_i >= 0 of the non-negative parameters (Simon and
+    Chia 2002), in place.
+
+    theta (m,), P (m, m), excited and nonnegative (m,) bool: theta becomes the minimiser of
+    (x - theta)^T P_EE^-1 (x - theta) over the excited parameters E with x_i >= 0 for the
+    excited non-negative ones. For an active set A (bounds held at zero) the minimiser is
+    x_E = theta_E - P_EA z with z = P_AA^-1 theta_A (the conditional mean given x_A = 0), and
+    the bound a really binds only where z_a < 0 (its Lagrange multiplier is -z_a). An
+    active-set iteration (Nocedal and Wright, Numerical Optimization, 2nd ed. 2006, ch. 16.5)
+    adds the most violated bound, releases the one whose multiplier has the wrong sign, and
+    stops at the KKT point; with one violated bound (the usual case) it is one division.
+    Not-excited parameters are not moved unless they are themselves negative (possible only
+    after a settings change); then they are set to zero.
+    """
+    m = theta.shape[0]
+    all_excited = True
+    for i in range(m):
+        if not excited[i]:
+            all_excited = False
+    if all_excited:
+        # the usual case, without the general iteration: all excited and one bound violated;
+        # it binds (z < 0), and if the shift violates no other bound, that is the KKT point
+        count = 0
+        a = 0
+        for i in range(m):
+            if nonnegative[i] and theta[i] < 0.0:
+                count += 1
+                a = i
+        if count == 1:
+            p = P[a, a]
+            if p > 0.0:
+                z = theta[a] / p
+                x = np.empty(m)
+                for e in range(m):
+                    x[e] = theta[e] - P[e, a] * z
+                x[a] = 0.0
+                ok = True
+                for e in range(m):
+                    if nonnegative[e] and not x[e] >= 0.0:
+                        ok = False
+                if ok:
+                    for e in range(m):
+                        theta[e] = x[e]
+                    return
+    th0 = theta.copy()
+    bounds = 0
+    for i in range(m):
+        if nonnegative[i]:
+            bounds += 1
+            if th0[i] < 0.0 and not excited[i]:
+                th0[i] = 0.0
+    x = th0.copy()
+    active = np.zeros(max(bounds, 1), np.int64)
+    n_active = 0
+    for _ in range(max(8, 2 * bounds + 2)):   # a handful of steps reach the KKT point
+        pick = -1
+        for i in range(m):
+            if nonnegative[i] and excited[i] and x[i] < 0.0:
+                taken = False
+                for k in range(n_active):
+                    if active[k] == i:
+                        taken = True
+                if not taken and (pick < 0 or x[i] < x[pick]):
+                    pick = i
+        if pick < 0:
+            break
+        active[n_active] = pick
+        n_active += 1
+        released_all = True
+        while n_active > 0:
+            z, ok = _solve_active(P, active, n_active, th0)
+            if not ok:   # a singular P_AA: no correction, the bounds set to zero
+                for i in range(m):
+                    x[i] = th0[i]
+                for k in range(n_active):
+                    x[active[k]] = 0.0
+                released_all = False
+                break
+            worst = 0
+            for k in range(1, n_active):
+                if z[k] > z[worst]:
+                    worst = k
+            if z[worst] <= 0.0:   # every multiplier >= 0: these bounds bind
+                for e in range(m):
+                    x[e] = th0[e]
+                    if excited[e]:
+                        s = 0.0
+                        for k in range(n_active):
+                            s += P[e, active[k]] * z[k]
+                        x[e] -= s
+                for k in range(n_active):
+                    x[active[k]] = 0.0
+                released_all = False
+                break
+            for k in range(worst, n_active - 1):   # this bound does not bind: release it
+                active[k] = active[k + 1]
+            n_active -= 1
+        if released_all:
+            for i in range(m):
+                x[i] = th0[i]
+    for i in range(m):
+        theta[i] = max(x[i], 0.0) if nonnegative[i] else x[i]
+
+
+@kernel
+def filter_update(fr, t, h, f):
+    """One step of the adaptive filter (see :class:`EnvironmentFilter` for the steps): time t
+    (s), regressor h (m,), force f (N).
+
+    Returns UPDATED, or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS with the state untouched
+    (the refusal counted in ``state.rejected``). The step's figures are in ``fr.output`` and
+    ``fr.parameter_output``."""
+    p, s, out = fr.params[0], fr.state[0], fr.output[0]
+    pp, ps, po = fr.parameter_params, fr.parameters, fr.parameter_output
+    P = fr.covariance
+    m = h.shape[0]
+    # Innovation first: it is non-finite whenever h or f is (NaN and inf propagate through the
+    # dot product), so one test covers all inputs
+    predicted = 0.0
+    for i in range(m):
+        predicted += h[i] * ps[i].theta
+    y = f - predicted
+    if not (math.isfinite(y) and math.isfinite(t)):
+        s.rejected += 1
+        return REJECT_NON_FINITE
+    dt = 0.0
+    if s.has_update:
+        dt = t - s.last_time_s
+        if dt < 0.0:
+            s.rejected += 1
+            return REJECT_TIME_BACKWARDS
+
+    # 1. random-walk prediction (F = I): P += diag(q^2) dt
+    if dt > 0.0:
+        for i in range(m):
+            P[i, i] += ps[i].process_var * dt
+
+    # 2. excitation: exponentially weighted mean square of each regressor
+    decay = math.exp(-dt / p.excitation_window_s)
+    excitation_weight = s.excitation_weight * decay + 1.0
+    excitation_sum = np.empty(m)
+    excited = np.empty(m, np.bool_)
+    all_excited = True
+    for i in range(m):
+        excitation_sum[i] = ps[i].excitation_sum * decay + h[i] * h[i]
+        excited[i] = math.sqrt(excitation_sum[i] / excitation_weight) >= pp[i].excitation_min
+        all_excited = all_excited and excited[i]
+
+    # 3. Schmidt-Kalman update, Joseph form
+    a = np.empty(m)   # P h
+    for i in range(m):
+        acc = 0.0
+        for j in range(m):
+            acc += P[i, j] * h[j]
+        a[i] = acc
+    hph = 0.0
+    for i in range(m):
+        hph += h[i] * a[i]
+    R = s.r
+    S = hph + R
+    k = np.empty(m)
+    if all_excited:
+        for i in range(m):
+            k[i] = a[i] / S
+        # P - K K^T S (= P - P h^T h P / S), exactly symmetric
+        for i in range(m):
+            for j in range(i, m):
+                P[i, j] -= k[i] * a[j]
+                P[j, i] = P[i, j]
+    else:
+        for i in range(m):
+            k[i] = a[i] / S if excited[i] else 0.0
+        # P - (K (Ph)^T + (Ph) K^T) + S K K^T
+        for i in range(m):
+            b = S * k[i]
+            for j in range(i, m):
+                P[i, j] += -(k[i] * a[j] + a[i] * k[j]) + b * k[j]
+                P[j, i] = P[i, j]
+    theta = np.empty(m)
+    for i in range(m):
+        theta[i] = ps[i].theta + k[i] * y
+
+    # 4. non-negativity of the parameters the model declares non-negative
+    violated = False
+    for i in range(m):
+        if pp[i].nonnegative and theta[i] < 0.0:
+            violated = True
+    if violated:
+        filter_project(theta, P, excited, pp.nonnegative)
+    for i in range(m):
+        ps[i].theta = theta[i]
+
+    # 5.-6. noise adaptation
+    nis = y * y / S
+    samples = s.samples
+    if p.noise_adaptation != ADAPT_FIXED or p.process_adaptation != ADAPT_FIXED:
+        fading = p.fading
+        s.fading_power *= fading
+        d = (1.0 - fading) / (1.0 - s.fading_power)
+        if p.noise_adaptation != ADAPT_FIXED:
+            # residual form of Mohamed and Schwarz (1999): g = R (R NIS + h P h^T) / S >= 0
+            g = R * (R * nis + hph) / S
+            if p.noise_adaptation == ADAPT_SAGE_HUSA:
+                r_new = (1.0 - d) * R + d * g
+            else:
+                r_new, s.match_index, s.match_count, s.match_sum = _window_push(
+                    fr.match_ring, s.match_index, s.match_count, s.match_sum, g)
+            s.r = r_new if r_new > p.r_floor else p.r_floor
+        if p.process_adaptation != ADAPT_FIXED and dt > 0.0:
+            # diagonal Sage-Husa: q^2 += d K (y^2 - S) K^T / dt, floored at zero
+            gq = d * (y * y - S) / dt
+            for i in range(m):
+                ps[i].process_var = max(ps[i].process_var + gq * k[i] * k[i], 0.0)
+
+    # 7. NIS average and its chi-square interval
+    nis_avg, s.nis_index, s.nis_count, s.nis_sum = _window_push(
+        fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis)
+
+    # 8. CUSUM change detection (the step reports the variances before an inflation)
+    variance = np.empty(m)
+    for i in range(m):
+        variance[i] = P[i, i]
+    gc = s.cusum + nis - p.change_drift
+    s.cusum = gc if gc > 0.0 else 0.0
+    if gc > p.change_threshold:
+        filter_inflate(fr, CHANGE_CUSUM)
+        s.pending_g = gc
+    out.change = s.pending_change
+    out.change_g = s.pending_g
+    s.pending_change = 0
+
+    for i in range(m):
+        ps[i].excitation_sum = excitation_sum[i]
+    s.excitation_weight = excitation_weight
+    s.has_update = True
+    s.last_time_s = t
+    s.samples = samples + 1
+    # 9. correlated innovations: the standard deviations widened by the AR(1) variance
+    # inflation factor (1 + rho) / (1 - rho) (Box, Jenkins and Reinsel 2008, Sec. 2.1)
+    z = y / math.sqrt(S)
+    s.corr_lag = s.corr_lag * decay + z * s.z_prev
+    s.corr_zero = s.corr_zero * decay + z * z
+    s.z_prev = z
+    inflation = 1.0
+    if p.correlation and s.corr_zero > 0.0:
+        rho = min(max(s.corr_lag / s.corr_zero, 0.0), 0.998)
+        inflation = (1.0 + rho) / (1.0 - rho)
+    all_converged = True
+    for i in range(m):
+        v = variance[i]
+        std = math.sqrt(v * inflation) if v > 0.0 else 0.0
+        o = po[i]
+        o.value = theta[i]
+        o.std = std
+        o.excited = excited[i]
+        o.converged = excited[i] and std < max(pp[i].converged_std, p.converged_rel * abs(theta[i]))
+        all_converged = all_converged and o.converged
+        o.excitation = math.sqrt(excitation_sum[i] / excitation_weight)
+        o.regressor = h[i]
+    out.time_s = t
+    out.force = f
+    out.innovation = y
+    out.innovation_var = S
+    out.nis = nis
+    out.nis_average = nis_avg
+    out.nis_lower = fr.nis_bounds[s.nis_count].lower
+    out.nis_upper = fr.nis_bounds[s.nis_count].upper
+    out.r = R
+    out.samples = samples + 1
+    out.all_excited = all_excited
+    out.all_converged = all_converged
+    return UPDATED
+
+
+def change_text(bits: int, g: float, threshold: float, text: str = "") -> str:
+    """The ``change`` words of a step from its CHANGE_* bits (``text``: inflations asked for by
+    name through :meth:`EnvironmentFilter.inflate`)."""
+    parts = [text] if bits & CHANGE_TEXT and text else []
+    if bits & CHANGE_REGAINED:
+        parts.append("contact regained")
+    if bits & CHANGE_CUSUM:
+        parts.append(f"innovation CUSUM {g:.1f} > {threshold:g}")
+    return "; ".join(parts)
 
 
 class FilterStep(NamedTuple):
-    """One record per update; all SI.
+    """One record per update; all SI, the parameters in the model's order and units.
 
-    theta (4,): estimate [kg, N·s/m, N/m, N]. std (4,): standard deviations, same units.
-    innovation: f - h theta_prior, N. innovation_var: S = h P h^T + R, N^2.
-    nis: innovation^2 / S. nis_average: mean NIS over the last filter.nis_window updates.
-    nis_bounds: two-sided 95 % chi-square interval of that average (chi2(n)/n, n the number of
-    updates averaged). measurement_var: R used at this step, N^2.
-    excitation (4,): RMS of each regressor [x'' m/s^2, x' m/s, x m, 1] over the excitation window.
-    excited (4,) bool: the parameter was updated at this step. converged (4,) bool: excited and
-    std below filter.converged_std or filter.converged_rel_std * |theta|. Both read-only (shared).
-    change: "" or why a change was declared at (or just before) this step.
-    samples: updates since the last reset, this one included.
-    pattern: the excited flags as bits 0-3 and the converged flags as bits 4-7 (for Health).
+    theta (m,): estimate. std (m,): standard deviations. innovation: f - h theta_prior, N.
+    innovation_var: S = h P h^T + R, N^2. nis: innovation^2 / S. nis_average: mean NIS over the
+    last filter.nis_window updates. nis_bounds: two-sided 95 % chi-square interval of that
+    average (chi2(n)/n, n the number of updates averaged). measurement_var: R used at this
+    step, N^2. excitation (m,): RMS of each regressor over the excitation window. excited (m,)
+    bool: the parameter was updated at this step. converged (m,) bool: excited and std below
+    its threshold (filter.converged_std or filter.converged_rel_std * |theta|). change: "" or
+    why a change was declared at (or just before) this step. samples: updates since the last
+    reset, this one included.
     """
 
     theta: np.ndarray
@@ -90,539 +593,72 @@ class FilterStep(NamedTuple):
     converged: np.ndarray
     change: str
     samples: int
-    pattern: int = 0
 
 
-class _Config:
-    """The filter.* settings as numbers and arrays, checked for cross-setting rules."""
-
-    def __init__(self, s: Settings):
-        self.initial_mean = np.array(s["filter.initial_mean"], dtype=float)
-        self.initial_std = np.array(s["filter.initial_std"], dtype=float)
-        self.process_var = np.array(s["filter.process_std"], dtype=float) ** 2
-        self.measurement_var = float(s["filter.measurement_std"]) ** 2
-        self.measurement_var_floor = float(s["filter.measurement_std_floor"]) ** 2
-        self.noise_adaptation = s["filter.noise_adaptation"]
-        self.fading = float(s["filter.fading_factor"])
-        self.matching_window = int(s["filter.matching_window"])
-        self.process_adaptation = s["filter.process_adaptation"]
-        self.nis_window = int(s["filter.nis_window"])
-        self.change_threshold = float(s["filter.change_threshold"])
-        self.change_drift = float(s["filter.change_drift"])
-        self.change_inflation = float(s["filter.change_inflation"])
-        self.excitation_window = float(s["filter.excitation_window"])
-        self.excitation_min = np.array(s["filter.excitation_min"], dtype=float)
-        self.converged_std = np.array(s["filter.converged_std"], dtype=float)
-        self.converged_rel = float(s["filter.converged_rel_std"])
-        self.nonnegative = bool(s["filter.nonnegative"])
-        self.correlation_correction = bool(s["filter.correlation_correction"])
-        self.excitation_min_list = self.excitation_min.tolist()
-        self.converged_std_list = self.converged_std.tolist()
-        if self.nonnegative:
-            for i in range(3):
-                if self.initial_mean[i] < 0.0:
-                    raise SettingsError(
-                        f"filter.initial_mean[{i}]: {self.initial_mean[i]!r} {PARAMETER_UNITS[i]}"
-                        f" ({PARAMETER_NAMES[i]}) is negative while filter.nonnegative is true;"
-                        f" expected a value >= 0")
+def _per_parameter(s: Settings, name: str, model: ObjectModel) -> list[float]:
+    values = list(s[name])
+    if len(values) != model.size:
+        raise SettingsError(f"{name}: {values!r} has {len(values)} numbers; expected "
+                            f"{model.size} (one per parameter of the {model.name} model: "
+                            f"{', '.join(model.parameter_names)})")
+    return values
 
 
-def _nis_bounds_table(n_max: int) -> tuple[list[float], list[float]]:
-    """Two-sided 95 % interval of the mean of n NIS values of a 1-D measurement, n = 1..n_max.
-
-    n times that mean is chi-square with n degrees of freedom when the filter is consistent
-    (Bar-Shalom, Li and Kirubarajan 2001, sec. 5.4), so the bounds are chi2.ppf(a/2, n) / n and
-    chi2.ppf(1 - a/2, n) / n. Index 0 is unused.
-    """
-    from scipy.stats import chi2  # settings time only, never in the update
-
-    n = np.arange(1, n_max + 1, dtype=float)
-    alpha = 1.0 - NIS_CONFIDENCE
-    lo = chi2.ppf(alpha / 2.0, n) / n
-    hi = chi2.ppf(1.0 - alpha / 2.0, n) / n
-    return [math.nan] + lo.tolist(), [math.nan] + hi.tolist()
-
-
-# --- storage layouts ------------------------------------------------------------------------
-# state (float array of FILTER_STATE_SIZE)
-EF_TH = 0            # 0..3 theta
-EF_P = 4             # 4..19 P, row-major
-EF_R = 20            # measurement variance R, N^2
-EF_Q2 = 21           # 21..24 random-walk intensities q^2, per second
-EF_T_PREV = 25       # s (NaN: no update yet)
-EF_SAMPLES = 26      # updates since the last reset
-EF_FADING_POWER = 27  # b^k
-EF_CUSUM = 28
-EF_Z_PREV = 29       # previous normalized innovation
-EF_CORR = 30         # 30..31 decaying sums of z_k z_(k-1) and z_k^2
-EF_EX = 32           # 32..35 decaying sums of h_i^2
-EF_EX_DEN = 36       # decaying count
-EF_PENDING = 37      # changes waiting for the next update (CHANGE_* bits)
-EF_PENDING_G = 38    # the CUSUM value that declared a pending change
-EF_NIS_WIN = 39      # 39..41 NIS window: index, count, running sum
-EF_MATCH_WIN = 42    # 42..44 covariance-matching window: index, count, running sum
-EF_REJECTED = 45     # updates refused
-FILTER_STATE_SIZE = 46
-# configuration (float array of FILTER_CONFIG_SIZE), from the filter.* settings
-EC_P0 = 0            # 0..3 prior variances
-EC_R_FLOOR = 4
-EC_NOISE_ADAPTATION = 5   # 0 fixed, 1 sage_husa, 2 matching
-EC_FADING = 6
-EC_PROCESS_ADAPTATION = 7  # 0 fixed, 1 sage_husa
-EC_THRESHOLD = 8
-EC_DRIFT = 9
-EC_INFLATION = 10
-EC_EX_WINDOW = 11    # s
-EC_EX_MIN = 12       # 12..15
-EC_CONVERGED_STD = 16  # 16..19
-EC_CONVERGED_REL = 20
-EC_NONNEGATIVE = 21
-EC_CORRELATION = 22
-EC_NIS_WINDOW = 23
-EC_MATCH_WINDOW = 24
-EC_MEAN0 = 25        # 25..28 prior mean
-EC_R0 = 29           # filter.measurement_std^2
-FILTER_CONFIG_SIZE = 30
-# output of the last update (float array of FILTER_OUTPUT_SIZE): what FilterStep holds
-EO_THETA = 0         # 0..3
-EO_STD = 4           # 4..7
-EO_EXCITATION = 8    # 8..11
-EO_INNOVATION = 12
-EO_S = 13
-EO_NIS = 14
-EO_NIS_AVERAGE = 15
-EO_NIS_LO = 16
-EO_NIS_HI = 17
-EO_R = 18
-EO_PATTERN = 19      # excited bits 0-3, converged bits 4-7 (health.ALL_CONVERGED)
-EO_CHANGE = 20       # CHANGE_* bits declared at (or just before) this update
-EO_CHANGE_G = 21     # the CUSUM value of a CUSUM change
-EO_SAMPLES = 22
-EO_H = 23            # 23..26 the regressor of this update
-EO_F = 27            # the force of this update, N
-EO_T = 28            # its time, s
-FILTER_OUTPUT_SIZE = 29
-# windows array W: NIS bounds lo (n+1), hi (n+1), NIS window (n), matching window (m)
-
-CHANGE_REGAINED = 1  # the contact started again (the Pipeline's inflation)
-CHANGE_CUSUM = 2     # the innovation CUSUM crossed its threshold
-CHANGE_TEXT = 4      # an inflation asked for through EnvironmentFilter.inflate (its text)
-
-UPDATED, REJECT_NON_FINITE, REJECT_TIME_BACKWARDS = 0, 1, 2
-_ADAPTATION = {"fixed": 0.0, "sage_husa": 1.0, "matching": 2.0}
+def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
+    """Write the filter.* settings into the configuration records (checked for cross-setting
+    rules; raises SettingsError naming the bad value)."""
+    mean = _per_parameter(s, "filter.initial_mean", model)
+    nonnegative = bool(s["filter.nonnegative"])
+    if nonnegative:
+        for i, (x, nonneg) in enumerate(zip(mean, model.nonnegative)):
+            if nonneg and x < 0.0:
+                raise SettingsError(
+                    f"filter.initial_mean[{i}]: {x!r} {model.parameter_units[i]}"
+                    f" ({model.parameter_names[i]}) is negative while filter.nonnegative is"
+                    f" true; expected a value >= 0")
+    p = fr.params[0]
+    p["measurement_std0"] = float(s["filter.measurement_std"])
+    p["r0"] = float(s["filter.measurement_std"]) ** 2
+    p["r_floor"] = float(s["filter.measurement_std_floor"]) ** 2
+    p["noise_adaptation"] = _ADAPTATION[s["filter.noise_adaptation"]]
+    p["fading"] = float(s["filter.fading_factor"])
+    p["process_adaptation"] = _ADAPTATION[s["filter.process_adaptation"]]
+    p["change_threshold"] = float(s["filter.change_threshold"])
+    p["change_drift"] = float(s["filter.change_drift"])
+    p["change_inflation"] = float(s["filter.change_inflation"])
+    p["excitation_window_s"] = float(s["filter.excitation_window"])
+    p["converged_rel"] = float(s["filter.converged_rel_std"])
+    p["correlation"] = bool(s["filter.correlation_correction"])
+    p["nis_window"] = int(s["filter.nis_window"])
+    p["matching_window"] = int(s["filter.matching_window"])
+    pp = fr.parameter_params
+    pp["prior_mean"] = mean
+    pp["prior_std"] = _per_parameter(s, "filter.initial_std", model)
+    pp["prior_var"] = np.square(pp["prior_std"])
+    pp["process_var"] = np.square(_per_parameter(s, "filter.process_std", model))
+    pp["excitation_min"] = _per_parameter(s, "filter.excitation_min", model)
+    pp["converged_std"] = _per_parameter(s, "filter.converged_std", model)
+    pp["nonnegative"] = [nonnegative and x for x in model.nonnegative]
 
 
-def configuration(c: _Config) -> np.ndarray:
-    """The filter.* settings as the compiled update's configuration array."""
-    cf = np.zeros(FILTER_CONFIG_SIZE)
-    cf[EC_P0:EC_P0 + 4] = c.initial_std ** 2
-    cf[EC_R_FLOOR] = c.measurement_var_floor
-    cf[EC_NOISE_ADAPTATION] = _ADAPTATION[c.noise_adaptation]
-    cf[EC_FADING] = c.fading
-    cf[EC_PROCESS_ADAPTATION] = _ADAPTATION[c.process_adaptation]
-    cf[EC_THRESHOLD], cf[EC_DRIFT] = c.change_threshold, c.change_drift
-    cf[EC_INFLATION], cf[EC_EX_WINDOW] = c.change_inflation, c.excitation_window
-    cf[EC_EX_MIN:EC_EX_MIN + 4] = c.excitation_min
-    cf[EC_CONVERGED_STD:EC_CONVERGED_STD + 4] = c.converged_std
-    cf[EC_CONVERGED_REL] = c.converged_rel
-    cf[EC_NONNEGATIVE], cf[EC_CORRELATION] = c.nonnegative, c.correlation_correction
-    cf[EC_NIS_WINDOW], cf[EC_MATCH_WINDOW] = c.nis_window, c.matching_window
-    cf[EC_MEAN0:EC_MEAN0 + 4] = c.initial_mean
-    cf[EC_R0] = c.measurement_var
-    return cf
-
-
-def windows(c: _Config) -> np.ndarray:
-    """The windows array W for the nis and matching windows of ``c`` (bounds filled)."""
-    n, m = c.nis_window, c.matching_window
-    W = np.zeros(2 * (n + 1) + n + m)
-    lo, hi = _nis_bounds_table(n)
-    W[:n + 1], W[n + 1:2 * (n + 1)] = lo, hi
-    return W
-
-
-@kernel
-def _exact_sum(buf, start, size):
-    """Sum of buf[start:start + size] with Neumaier's compensation (error about one rounding
-    of the result, like math.fsum for these magnitudes; Neumaier, ZAMM 1974)."""
-    s = 0.0
-    comp = 0.0
-    for k in range(start, start + size):
-        x = buf[k]
-        t = s + x
-        if abs(s) >= abs(x):
-            comp += (s - t) + x
-        else:
-            comp += (x - t) + s
-        s = t
-    return s + comp
-
-
-@kernel
-def _window_push(W, start, size, st, at, value):
-    """Mean of the last ``size`` values after adding ``value``: ring buffer W[start:start +
-    size], index, count and running sum in st[at:at + 3]. The sum is recomputed with
-    compensation each time the buffer wraps, so rounding errors do not accumulate."""
-    i = int(st[at])
-    st[at + 2] += value - W[start + i]
-    W[start + i] = value
-    i += 1
-    if st[at + 1] < size:
-        st[at + 1] += 1.0
-    if i == size:
-        i = 0
-        st[at + 2] = _exact_sum(W, start, size)
-    st[at] = i
-    return st[at + 2] / st[at + 1]
-
-
-@kernel
-def filter_inflate(st, cf, reason):
-    """Multiply P by filter.change_inflation; rows and columns whose variance would exceed the
-    prior variance are scaled down together (P -> D P D), which keeps P positive semi-definite
-    and the correlations unchanged. ``reason``: a CHANGE_* bit reported at the next update."""
-    infl = cf[EC_INFLATION]
-    scale = np.ones(4)
-    for i in range(4):
-        for j in range(4):
-            st[EF_P + 4 * i + j] *= infl
-    for i in range(4):
-        d = st[EF_P + 5 * i]
-        if d > cf[EC_P0 + i]:
-            scale[i] = math.sqrt(cf[EC_P0 + i] / d)
-    for i in range(4):
-        for j in range(4):
-            st[EF_P + 4 * i + j] *= scale[i] * scale[j]
-    st[EF_CUSUM] = 0.0
-    st[EF_PENDING] = float(int(st[EF_PENDING]) | reason)
-
-
-@kernel
-def filter_reset(st, cf, W):
-    """Back to the prior: theta = filter.initial_mean, P = diag(filter.initial_std^2),
-    R = filter.measurement_std^2 (floored), q = filter.process_std; windows, CUSUM and sample
-    count cleared. The rejected count is kept (q^2 is set by the caller)."""
-    rejected = st[EF_REJECTED]
-    st[:] = 0.0
-    st[EF_REJECTED] = rejected
-    for i in range(4):
-        st[EF_TH + i] = cf[EC_MEAN0 + i]
-        st[EF_P + 5 * i] = cf[EC_P0 + i]
-    st[EF_R] = max(cf[EC_R0], cf[EC_R_FLOOR])
-    st[EF_T_PREV] = math.nan
-    st[EF_FADING_POWER] = 1.0
-    n = int(cf[EC_NIS_WINDOW])
-    for k in range(2 * (n + 1), W.shape[0]):
-        W[k] = 0.0
-
-
-@kernel
-def _solve_active(P, active, n_active, th0):
-    """z = P_AA^-1 theta_A for the active bounds A (numpy.linalg.solve, LAPACK's dgesv);
-    returns (z, False) when P_AA is singular."""
-    A = np.empty((n_active, n_active))
-    b = np.empty(n_active)
-    for r in range(n_active):
-        b[r] = th0[active[r]]
-        for c in range(n_active):
-            A[r, c] = P[4 * active[r] + active[c]]
-    try:
-        return np.linalg.solve(A, b), True
-    except Exception:   # numpy.linalg.LinAlgError: singular
-        return b, False
-
-
-@kernel
-def filter_project(theta, P, excited_bits):
-    """Estimate projection onto mass, damping, stiffness >= 0 (Simon and Chia 2002), in place.
-
-    theta (4,), P (16,) row-major: theta becomes the minimiser of (x - theta)^T P_EE^-1
-    (x - theta) over the excited parameters E with x_i >= 0 for the excited ones among mass,
-    damping and stiffness. For an active set A (bounds held at zero) the minimiser is
-    x_E = theta_E - P_EA z with z = P_AA^-1 theta_A (the conditional mean given x_A = 0), and
-    the bound a really binds only where z_a < 0 (its Lagrange multiplier is -z_a). An
-    active-set iteration (Nocedal and Wright, Numerical Optimization, 2nd ed. 2006, ch. 16.5)
-    adds the most violated bound, releases the one whose multiplier has the wrong sign, and
-    stops at the KKT point; with one violated bound (the usual case) it is one division.
-    Not-excited parameters are not moved unless they are themselves negative (possible only
-    after a settings change); then they are set to zero.
-    """
-    if excited_bits == 15:
-        # the usual case, without the general iteration: all excited and one bound violated;
-        # it binds (z < 0), and if the shift violates no other bound, that is the KKT point
-        count = 0
-        a = 0
-        for i in range(3):
-            if theta[i] < 0.0:
-                count += 1
-                a = i
-        if count == 1:
-            p = P[5 * a]
-            if p > 0.0:
-                z = theta[a] / p
-                x0 = theta[0] - P[a] * z
-                x1 = theta[1] - P[4 + a] * z
-                x2 = theta[2] - P[8 + a] * z
-                x3 = theta[3] - P[12 + a] * z
-                if a == 0:
-                    x0 = 0.0
-                elif a == 1:
-                    x1 = 0.0
-                else:
-                    x2 = 0.0
-                if x0 >= 0.0 and x1 >= 0.0 and x2 >= 0.0:
-                    theta[0], theta[1], theta[2], theta[3] = x0, x1, x2, x3
-                    return
-    th0 = theta.copy()
-    for i in range(3):
-        if th0[i] < 0.0 and not (excited_bits >> i) & 1:
-            th0[i] = 0.0
-    x = th0.copy()
-    active = np.zeros(3, np.int64)
-    n_active = 0
-    for _ in range(8):   # at most 3 bounds: a handful of steps reach the KKT point
-        pick = -1
-        for i in range(3):
-            if (excited_bits >> i) & 1 and x[i] < 0.0:
-                taken = False
-                for k in range(n_active):
-                    if active[k] == i:
-                        taken = True
-                if not taken and (pick < 0 or x[i] < x[pick]):
-                    pick = i
-        if pick < 0:
-            break
-        active[n_active] = pick
-        n_active += 1
-        released_all = True
-        while n_active > 0:
-            z, ok = _solve_active(P, active, n_active, th0)
-            if not ok:   # a singular P_AA: no correction, the bounds set to zero
-                for i in range(4):
-                    x[i] = th0[i]
-                for k in range(n_active):
-                    x[active[k]] = 0.0
-                released_all = False
-                break
-            worst = 0
-            for k in range(1, n_active):
-                if z[k] > z[worst]:
-                    worst = k
-            if z[worst] <= 0.0:   # every multiplier >= 0: these bounds bind
-                for e in range(4):
-                    x[e] = th0[e]
-                    if (excited_bits >> e) & 1:
-                        s = 0.0
-                        for k in range(n_active):
-                            s += P[4 * e + active[k]] * z[k]
-                        x[e] -= s
-                for k in range(n_active):
-                    x[active[k]] = 0.0
-                released_all = False
-                break
-            for k in range(worst, n_active - 1):   # this bound does not bind: release it
-                active[k] = active[k + 1]
-            n_active -= 1
-        if released_all:
-            for i in range(4):
-                x[i] = th0[i]
-    for i in range(4):
-        theta[i] = max(x[i], 0.0) if i < 3 else x[i]
-
-
-@kernel
-def filter_update(st, cf, W, fo, t, h0, h1, h2, h3, f):
-    """One step of the adaptive filter (see :class:`EnvironmentFilter` for the steps).
-
-    Returns UPDATED, or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS with the state untouched
-    (the refusal counted in st[EF_REJECTED]). The step's figures are in ``fo``."""
-    th0, th1, th2, th3 = st[EF_TH], st[EF_TH + 1], st[EF_TH + 2], st[EF_TH + 3]
-    # Innovation first: it is non-finite whenever h or f is (NaN and inf propagate through the
-    # dot product), so one test covers all inputs
-    y = f - (h0 * th0 + h1 * th1 + h2 * th2 + h3 * th3)
-    if not (math.isfinite(y) and math.isfinite(t)):
-        st[EF_REJECTED] += 1.0
-        return REJECT_NON_FINITE
-    t_prev = st[EF_T_PREV]
-    dt = 0.0
-    if t_prev == t_prev:
-        dt = t - t_prev
-        if dt < 0.0:
-            st[EF_REJECTED] += 1.0
-            return REJECT_TIME_BACKWARDS
-
-    # 1. random-walk prediction (F = I): P += diag(q^2) dt
-    p00, p01, p02, p03 = st[EF_P], st[EF_P + 1], st[EF_P + 2], st[EF_P + 3]
-    p11, p12, p13 = st[EF_P + 5], st[EF_P + 6], st[EF_P + 7]
-    p22, p23, p33 = st[EF_P + 10], st[EF_P + 11], st[EF_P + 15]
-    if dt > 0.0:
-        p00 += st[EF_Q2] * dt
-        p11 += st[EF_Q2 + 1] * dt
-        p22 += st[EF_Q2 + 2] * dt
-        p33 += st[EF_Q2 + 3] * dt
-
-    # 2. excitation: exponentially weighted mean square of each regressor
-    decay = math.exp(-dt / cf[EC_EX_WINDOW])
-    e0 = st[EF_EX] * decay + h0 * h0
-    e1 = st[EF_EX + 1] * decay + h1 * h1
-    e2 = st[EF_EX + 2] * decay + h2 * h2
-    e3 = st[EF_EX + 3] * decay + h3 * h3
-    ex_den = st[EF_EX_DEN] * decay + 1.0
-    x0 = math.sqrt(e0 / ex_den) >= cf[EC_EX_MIN]
-    x1 = math.sqrt(e1 / ex_den) >= cf[EC_EX_MIN + 1]
-    x2 = math.sqrt(e2 / ex_den) >= cf[EC_EX_MIN + 2]
-    x3 = math.sqrt(e3 / ex_den) >= cf[EC_EX_MIN + 3]
-
-    # 3. Schmidt-Kalman update, Joseph form
-    a0 = p00 * h0 + p01 * h1 + p02 * h2 + p03 * h3   # P h
-    a1 = p01 * h0 + p11 * h1 + p12 * h2 + p13 * h3
-    a2 = p02 * h0 + p12 * h1 + p22 * h2 + p23 * h3
-    a3 = p03 * h0 + p13 * h1 + p23 * h2 + p33 * h3
-    hph = h0 * a0 + h1 * a1 + h2 * a2 + h3 * a3
-    R = st[EF_R]
-    S = hph + R
-    if x0 and x1 and x2 and x3:
-        k0, k1, k2, k3 = a0 / S, a1 / S, a2 / S, a3 / S
-        # P - K K^T S (= P - P h^T h P / S), exactly symmetric
-        p00 -= k0 * a0
-        p01 -= k0 * a1
-        p02 -= k0 * a2
-        p03 -= k0 * a3
-        p11 -= k1 * a1
-        p12 -= k1 * a2
-        p13 -= k1 * a3
-        p22 -= k2 * a2
-        p23 -= k2 * a3
-        p33 -= k3 * a3
-    else:
-        k0 = a0 / S if x0 else 0.0
-        k1 = a1 / S if x1 else 0.0
-        k2 = a2 / S if x2 else 0.0
-        k3 = a3 / S if x3 else 0.0
-        # P - (K (Ph)^T + (Ph) K^T) + S K K^T
-        b0, b1, b2, b3 = S * k0, S * k1, S * k2, S * k3
-        p00 += -(k0 * a0 + a0 * k0) + b0 * k0
-        p01 += -(k0 * a1 + a0 * k1) + b0 * k1
-        p02 += -(k0 * a2 + a0 * k2) + b0 * k2
-        p03 += -(k0 * a3 + a0 * k3) + b0 * k3
-        p11 += -(k1 * a1 + a1 * k1) + b1 * k1
-        p12 += -(k1 * a2 + a1 * k2) + b1 * k2
-        p13 += -(k1 * a3 + a1 * k3) + b1 * k3
-        p22 += -(k2 * a2 + a2 * k2) + b2 * k2
-        p23 += -(k2 * a3 + a2 * k3) + b2 * k3
-        p33 += -(k3 * a3 + a3 * k3) + b3 * k3
-    P = st[EF_P:EF_P + 16]
-    P[0], P[1], P[2], P[3] = p00, p01, p02, p03
-    P[4], P[5], P[6], P[7] = p01, p11, p12, p13
-    P[8], P[9], P[10], P[11] = p02, p12, p22, p23
-    P[12], P[13], P[14], P[15] = p03, p13, p23, p33
-    theta = st[EF_TH:EF_TH + 4]
-    theta[0], theta[1], theta[2], theta[3] = th0 + k0 * y, th1 + k1 * y, th2 + k2 * y, th3 + k3 * y
-    excited_bits = int(x0) | int(x1) << 1 | int(x2) << 2 | int(x3) << 3
-
-    # 4. non-negative mass, damping, stiffness
-    if cf[EC_NONNEGATIVE] != 0.0 and (theta[0] < 0.0 or theta[1] < 0.0 or theta[2] < 0.0):
-        filter_project(theta, P, excited_bits)
-
-    # 5.-6. noise adaptation
-    nis = y * y / S
-    k = st[EF_SAMPLES]
-    noise_ad, process_ad = cf[EC_NOISE_ADAPTATION], cf[EC_PROCESS_ADAPTATION]
-    if noise_ad != 0.0 or process_ad != 0.0:
-        fading = cf[EC_FADING]
-        st[EF_FADING_POWER] *= fading
-        d = (1.0 - fading) / (1.0 - st[EF_FADING_POWER])
-        if noise_ad != 0.0:
-            # residual form of Mohamed and Schwarz (1999): g = R (R NIS + h P h^T) / S >= 0
-            g = R * (R * nis + hph) / S
-            if noise_ad == 1.0:
-                R_new = (1.0 - d) * R + d * g
-            else:
-                n = int(cf[EC_NIS_WINDOW])
-                R_new = _window_push(W, 3 * n + 2, int(cf[EC_MATCH_WINDOW]), st, EF_MATCH_WIN, g)
-            st[EF_R] = R_new if R_new > cf[EC_R_FLOOR] else cf[EC_R_FLOOR]
-        if process_ad != 0.0 and dt > 0.0:
-            # diagonal Sage-Husa: q^2 += d K (y^2 - S) K^T / dt, floored at zero
-            gq = d * (y * y - S) / dt
-            st[EF_Q2] = max(st[EF_Q2] + gq * k0 * k0, 0.0)
-            st[EF_Q2 + 1] = max(st[EF_Q2 + 1] + gq * k1 * k1, 0.0)
-            st[EF_Q2 + 2] = max(st[EF_Q2 + 2] + gq * k2 * k2, 0.0)
-            st[EF_Q2 + 3] = max(st[EF_Q2 + 3] + gq * k3 * k3, 0.0)
-
-    # 7. NIS average and its chi-square interval
-    n = int(cf[EC_NIS_WINDOW])
-    nis_avg = _window_push(W, 2 * (n + 1), n, st, EF_NIS_WIN, nis)
-    count = int(st[EF_NIS_WIN + 1])
-
-    # 8. CUSUM change detection (the step reports the variances before an inflation)
-    v0, v1, v2, v3 = P[0], P[5], P[10], P[15]
-    gc = st[EF_CUSUM] + nis - cf[EC_DRIFT]
-    st[EF_CUSUM] = gc if gc > 0.0 else 0.0
-    if gc > cf[EC_THRESHOLD]:
-        filter_inflate(st, cf, CHANGE_CUSUM)
-        st[EF_PENDING_G] = gc
-    fo[EO_CHANGE] = st[EF_PENDING]
-    fo[EO_CHANGE_G] = st[EF_PENDING_G]
-    st[EF_PENDING] = 0.0
-
-    st[EF_EX], st[EF_EX + 1], st[EF_EX + 2], st[EF_EX + 3] = e0, e1, e2, e3
-    st[EF_EX_DEN] = ex_den
-    st[EF_T_PREV] = t
-    st[EF_SAMPLES] = k + 1.0
-    # 9. correlated innovations: the standard deviations widened by the AR(1) variance
-    # inflation factor (1 + rho) / (1 - rho) (Box, Jenkins and Reinsel 2008, Sec. 2.1)
-    z = y / math.sqrt(S)
-    st[EF_CORR] = st[EF_CORR] * decay + z * st[EF_Z_PREV]
-    st[EF_CORR + 1] = st[EF_CORR + 1] * decay + z * z
-    st[EF_Z_PREV] = z
-    inflation = 1.0
-    if cf[EC_CORRELATION] != 0.0 and st[EF_CORR + 1] > 0.0:
-        rho = min(max(st[EF_CORR] / st[EF_CORR + 1], 0.0), 0.998)
-        inflation = (1.0 + rho) / (1.0 - rho)
-    converged_bits = 0
-    rel = cf[EC_CONVERGED_REL]
-    for i in range(4):
-        v = v0 if i == 0 else (v1 if i == 1 else (v2 if i == 2 else v3))
-        s = math.sqrt(v * inflation) if v > 0.0 else 0.0
-        fo[EO_THETA + i] = theta[i]
-        fo[EO_STD + i] = s
-        if (excited_bits >> i) & 1 and s < max(cf[EC_CONVERGED_STD + i], rel * abs(theta[i])):
-            converged_bits |= 1 << i
-    fo[EO_EXCITATION] = math.sqrt(e0 / ex_den)
-    fo[EO_EXCITATION + 1] = math.sqrt(e1 / ex_den)
-    fo[EO_EXCITATION + 2] = math.sqrt(e2 / ex_den)
-    fo[EO_EXCITATION + 3] = math.sqrt(e3 / ex_den)
-    fo[EO_INNOVATION] = y
-    fo[EO_S] = S
-    fo[EO_NIS] = nis
-    fo[EO_NIS_AVERAGE] = nis_avg
-    fo[EO_NIS_LO] = W[count]
-    fo[EO_NIS_HI] = W[n + 1 + count]
-    fo[EO_R] = R
-    fo[EO_PATTERN] = excited_bits | converged_bits << 4   # layout: health.ALL_CONVERGED
-    fo[EO_SAMPLES] = k + 1.0
-    fo[EO_H], fo[EO_H + 1], fo[EO_H + 2], fo[EO_H + 3] = h0, h1, h2, h3
-    fo[EO_F] = f
-    fo[EO_T] = t
-    return UPDATED
-
-
-def change_text(bits: int, g: float, threshold: float, text: str = "") -> str:
-    """The ``change`` words of a step from its CHANGE_* bits (``text``: inflations asked for by
-    name through :meth:`EnvironmentFilter.inflate`)."""
-    parts = [text] if bits & CHANGE_TEXT and text else []
-    if bits & CHANGE_REGAINED:
-        parts.append("contact regained")
-    if bits & CHANGE_CUSUM:
-        parts.append(f"innovation CUSUM {g:.1f} > {threshold:g}")
-    return "; ".join(parts)
+def new_records(s: Settings, model: ObjectModel) -> FilterRecords:
+    """Records for ``model`` configured from ``s`` and reset to the prior."""
+    m = model.size
+    n, w = int(s["filter.nis_window"]), int(s["filter.matching_window"])
+    fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(), PARAMETERS.many(m),
+                       np.zeros((m, m)), nis_bounds_table(n), np.zeros(n), np.zeros(w),
+                       OUTPUT.one(), PARAMETER_OUTPUT.many(m))
+    configure(fr, s, model)
+    filter_reset(fr)
+    return fr
 
 
 class EnvironmentFilter:
-    """Adaptive Kalman filter on theta = [mass kg, damping N·s/m, stiffness N/m, static_force N].
+    """Adaptive Kalman filter on the parameters theta of an object model (default: along the
+    direction, theta = [mass kg, damping N·s/m, stiffness N/m, static_force N]).
 
-    Call :meth:`update` once per sample with the time t (s), the regressor h (4,) =
-    [x'' m/s^2, x' m/s, x m, 1] and the force f (N) along the direction; it returns a
+    Call :meth:`update` once per sample with the time t (s), the regressor h (m,) (for the
+    default model [x'' m/s^2, x' m/s, x m, 1]) and the force f (N); it returns a
     :class:`FilterStep`. The filter reads only the ``filter.*`` settings.
 
     Per update (:func:`filter_update`, compiled):
@@ -638,13 +674,13 @@ class EnvironmentFilter:
        the NIS stays consistent). The covariance update
        P+ = P - K h P - P h^T K^T + S K K^T is the Joseph form (Bucy and Joseph 1968), valid
        for this sub-optimal gain; with every parameter excited it is the ordinary Kalman update.
-    4. Non-negativity (filter.nonnegative): if mass, damping or stiffness is negative, the
-       estimate is projected onto the constraint, minimising (x - theta)^T P^-1 (x - theta)
-       over the excited parameters subject to those bounds (an active-set iteration, see
-       :func:`filter_project`; Simon and Chia, "Kalman filtering with state equality
-       constraints", IEEE TAES 2002; Simon, "Kalman filtering with state constraints: a survey
-       of linear and nonlinear algorithms", IET Control Theory Appl. 2010, estimate
-       projection). P is not changed.
+    4. Non-negativity (filter.nonnegative, for the parameters the model declares non-negative):
+       a negative estimate is projected onto the constraint, minimising
+       (x - theta)^T P^-1 (x - theta) over the excited parameters subject to the bounds (an
+       active-set iteration, see :func:`filter_project`; Simon and Chia, "Kalman filtering with
+       state equality constraints", IEEE TAES 2002; Simon, "Kalman filtering with state
+       constraints: a survey of linear and nonlinear algorithms", IET Control Theory Appl.
+       2010, estimate projection). P is not changed.
     5. Measurement noise R (filter.noise_adaptation). The classic Sage-Husa estimate
        R_k = (1 - d_k) R_{k-1} + d_k (y^2 - h P h^T), with d_k = (1 - b) / (1 - b^(k+1)) and
        fading factor b (Sage and Husa 1969), can go negative. We use instead the residual form
@@ -676,23 +712,14 @@ class EnvironmentFilter:
        / (1 + rho); Box, Jenkins and Reinsel, Time Series Analysis, 4th ed. 2008, Sec. 2.1).
 
     Bad input (non-finite t, h or f; time going backwards) raises
-    :class:`~interaction_estimator.core.samples.SampleRejected`, is counted in :attr:`rejected` and
-    leaves the state untouched.
-
-    Storage: state ``st`` (FILTER_STATE_SIZE,), configuration ``cf`` (FILTER_CONFIG_SIZE,) and
-    the last update's figures ``fo`` (FILTER_OUTPUT_SIZE,): views into the Pipeline's storage
-    when it passes them, else the filter's own; the windows array :attr:`windows_array`.
+    :class:`~interaction_estimator.core.samples.SampleRejected`, is counted in
+    :attr:`rejected` and leaves the state untouched.
     """
 
-    def __init__(self, settings: Settings, st: np.ndarray | None = None,
-                 cf: np.ndarray | None = None, fo: np.ndarray | None = None):
-        self._cfg = _Config(settings)
-        self._st = np.zeros(FILTER_STATE_SIZE) if st is None else st
-        self._cf = np.zeros(FILTER_CONFIG_SIZE) if cf is None else cf
-        self._fo = np.zeros(FILTER_OUTPUT_SIZE) if fo is None else fo
-        self._st[:] = 0.0
-        self._cf[:] = configuration(self._cfg)
-        self.windows_array = windows(self._cfg)
+    def __init__(self, settings: Settings, model: ObjectModel = ALONG_DIRECTION):
+        self.model = model
+        self.records = new_records(settings, model)
+        self._change_threshold = float(settings["filter.change_threshold"])
         self._resets = 0
         self._text = ""            # pending inflation reasons asked for by name
         self._last: FilterStep | None = None
@@ -706,9 +733,8 @@ class EnvironmentFilter:
         """Back to the prior: theta = filter.initial_mean, P = diag(filter.initial_std^2),
         R = filter.measurement_std^2, q = filter.process_std; windows, CUSUM and sample count
         cleared. The rejected count is kept."""
-        filter_reset(self._st, self._cf, self.windows_array)
+        filter_reset(self.records)
         self.reset_reason = reason   # why the filter last started from its prior
-        self._st[EF_Q2:EF_Q2 + 4] = self._cfg.process_var
         self._resets += 1
         self._text = ""
         self._last, self._last_key = None, None
@@ -720,7 +746,7 @@ class EnvironmentFilter:
         No parameter's variance is taken beyond its prior variance: rows and columns whose
         variance would exceed it are scaled down together (P -> D P D, D diagonal), which keeps
         P positive semi-definite and the correlations unchanged."""
-        filter_inflate(self._st, self._cf, CHANGE_TEXT)
+        filter_inflate(self.records, CHANGE_TEXT)
         self._text = f"{self._text}; {reason}" if self._text else reason
 
     def update_settings(self, settings: Settings) -> None:
@@ -731,73 +757,75 @@ class EnvironmentFilter:
         filter.process_std when process_adaptation is 'fixed'. A changed nis_window or
         matching_window restarts that window. The prior (initial_mean, initial_std) is used at
         the next reset. Raises SettingsError (state untouched) for a bad combination."""
-        new = _Config(settings)
-        old = self._cfg
-        st = self._st
-        if new.nis_window != old.nis_window or new.matching_window != old.matching_window:
-            W = windows(new)
-            if new.nis_window == old.nis_window:   # keep the NIS window
-                n = old.nis_window
-                W[2 * (n + 1):3 * n + 2] = self.windows_array[2 * (n + 1):3 * n + 2]
-            else:
-                st[EF_NIS_WIN:EF_NIS_WIN + 3] = 0.0
-            if new.matching_window == old.matching_window:   # keep the matching window
-                m, n_old, n_new = old.matching_window, old.nis_window, new.nis_window
-                W[3 * n_new + 2:3 * n_new + 2 + m] = self.windows_array[3 * n_old + 2:
-                                                                        3 * n_old + 2 + m]
-            else:
-                st[EF_MATCH_WIN:EF_MATCH_WIN + 3] = 0.0
-            self.windows_array = W
-        if new.noise_adaptation == "fixed":
-            st[EF_R] = max(new.measurement_var, new.measurement_var_floor)
+        old = self.records
+        new = new_records(settings, self.model)   # checks everything before anything changes
+        p_old, p_new = old.params[0], new.params[0]
+        s = old.state[0]
+        nis_ring, nis_bounds, match_ring = old.nis_ring, old.nis_bounds, old.match_ring
+        if p_new["nis_window"] != p_old["nis_window"]:
+            nis_ring, nis_bounds = new.nis_ring, new.nis_bounds
+            s["nis_index"] = s["nis_count"] = 0
+            s["nis_sum"] = 0.0
+        if p_new["matching_window"] != p_old["matching_window"]:
+            match_ring = new.match_ring
+            s["match_index"] = s["match_count"] = 0
+            s["match_sum"] = 0.0
+        if p_new["noise_adaptation"] == ADAPT_FIXED:
+            s["r"] = max(p_new["r0"], p_new["r_floor"])
         else:
-            st[EF_R] = max(st[EF_R], new.measurement_var_floor)
-        if new.process_adaptation == "fixed":
-            st[EF_Q2:EF_Q2 + 4] = new.process_var
-        if new.fading != old.fading:
+            s["r"] = max(s["r"], p_new["r_floor"])
+        if p_new["process_adaptation"] == ADAPT_FIXED:
+            old.parameters["process_var"] = new.parameter_params["process_var"]
+        if p_new["fading"] != p_old["fading"]:
             # keeps d_k = (1-b)/(1-b^(k+1))
-            st[EF_FADING_POWER] = new.fading ** st[EF_SAMPLES]
-        self._cfg = new
-        self._cf[:] = configuration(new)
+            s["fading_power"] = p_new["fading"] ** s["samples"]
+        self.records = FilterRecords(new.params, new.parameter_params, old.state,
+                                     old.parameters, old.covariance, nis_bounds, nis_ring,
+                                     match_ring, old.output, old.parameter_output)
+        self._change_threshold = float(settings["filter.change_threshold"])
 
     # ----------------------------------------------------------------------------------------
     # read-only views
 
     @property
     def theta(self) -> np.ndarray:
-        """(4,) current estimate [kg, N·s/m, N/m, N] (a copy)."""
-        return self._st[EF_TH:EF_TH + 4].copy()
+        """(m,) current estimate, in the model's units (a copy)."""
+        return self.records.parameters["theta"].copy()
 
     @property
     def covariance(self) -> np.ndarray:
-        """(4, 4) current covariance of theta, SI units squared (a copy)."""
-        return self._st[EF_P:EF_P + 16].reshape(4, 4).copy()
+        """(m, m) current covariance of theta, the model's units squared (a copy)."""
+        return self.records.covariance.copy()
 
     @property
     def measurement_var(self) -> float:
         """Current measurement-noise variance R, N^2."""
-        return float(self._st[EF_R])
+        return float(self.records.state[0]["r"])
 
     @property
     def process_std(self) -> np.ndarray:
-        """(4,) current random-walk intensity [kg/√s, N·s/m/√s, N/m/√s, N/√s]."""
-        return np.sqrt(self._st[EF_Q2:EF_Q2 + 4])
+        """(m,) current random-walk intensity (parameter unit per square root of a second)."""
+        return np.sqrt(self.records.parameters["process_var"])
 
     @property
     def samples(self) -> int:
         """Updates since the last reset."""
-        return int(self._st[EF_SAMPLES])
+        return int(self.records.state[0]["samples"])
 
     @property
     def rejected(self) -> int:
         """Updates refused (non-finite input, time going backwards) since start."""
-        return int(self._st[EF_REJECTED])
+        return int(self.records.state[0]["rejected"])
+
+    @property
+    def change_threshold(self) -> float:
+        return self._change_threshold
 
     @property
     def last(self) -> FilterStep | None:
         """The :class:`FilterStep` of the last update (None before the first one after a
         reset); the same object until the next update."""
-        n = int(self._st[EF_SAMPLES])
+        n = self.samples
         if n == 0:
             return None
         if self._last_key != (self._resets, n):
@@ -806,72 +834,68 @@ class EnvironmentFilter:
         return self._last
 
     def _step(self, text: str) -> FilterStep:
-        fo = self._fo
-        numbers = fo[:12].copy()
-        pattern = int(fo[EO_PATTERN])
-        return FilterStep(numbers[:4], numbers[4:8], float(fo[EO_INNOVATION]), float(fo[EO_S]),
-                          float(fo[EO_NIS]), float(fo[EO_NIS_AVERAGE]),
-                          (float(fo[EO_NIS_LO]), float(fo[EO_NIS_HI])), float(fo[EO_R]),
-                          numbers[8:], _FLAGS[pattern & 15], _FLAGS[pattern >> 4],
-                          change_text(int(fo[EO_CHANGE]), float(fo[EO_CHANGE_G]),
-                                      self._cfg.change_threshold, text),
-                          int(fo[EO_SAMPLES]), pattern)
+        out, po = self.records.output[0], self.records.parameter_output
+        return FilterStep(po["value"].copy(), po["std"].copy(), float(out["innovation"]),
+                          float(out["innovation_var"]), float(out["nis"]),
+                          float(out["nis_average"]),
+                          (float(out["nis_lower"]), float(out["nis_upper"])), float(out["r"]),
+                          po["excitation"].copy(), po["excited"].copy(), po["converged"].copy(),
+                          change_text(int(out["change"]), float(out["change_g"]),
+                                      self._change_threshold, text),
+                          int(out["samples"]))
 
     # ----------------------------------------------------------------------------------------
     # the update
 
-    def _refuse(self, code: int, t: float, h: tuple[float, ...], f: float) -> None:
-        """Raise SampleRejected naming the bad input (the compiled update refused it)."""
+    def refusal(self, code: int, t: float, h: np.ndarray, f: float) -> SampleRejected:
+        """The SampleRejected naming the bad input of an update the compiled code refused."""
         if code == REJECT_TIME_BACKWARDS:
-            raise SampleRejected("time_backwards",
-                                 f"environment filter: t = {t:.6f} s is older than the previous"
-                                 f" {float(self._st[EF_T_PREV]):.6f} s")
+            return SampleRejected(
+                "time_backwards",
+                f"environment filter: t = {t:.6f} s is older than the previous "
+                f"{float(self.records.state[0]['last_time_s']):.6f} s")
         if not math.isfinite(t):
-            raise SampleRejected("non_finite_output", f"environment filter: time t is {t!r} s")
-        for i in range(4):
+            return SampleRejected("non_finite_output", f"environment filter: time t is {t!r} s")
+        for i, label in enumerate(self.model.regressor_labels):
             if not math.isfinite(h[i]):
-                raise SampleRejected(
+                return SampleRejected(
                     "non_finite_output",
-                    f"environment filter: regressor {_H_LABELS[i]} is {float(h[i])!r}")
+                    f"environment filter: regressor {label} is {float(h[i])!r}")
         if not math.isfinite(f):
-            raise SampleRejected("non_finite_output", f"environment filter: force f is {f!r} N")
-        raise SampleRejected(
+            return SampleRejected("non_finite_output", f"environment filter: force f is {f!r} N")
+        return SampleRejected(
             "non_finite_output",
             f"environment filter: predicted force h theta overflowed for h = "
             f"{[float(v) for v in h]} and theta = {self.theta.tolist()}")
 
-    def update(self, t: float, h: np.ndarray, f: float) -> FilterStep:
+    def update(self, t: float, h, f: float) -> FilterStep:
         """One filter step.
 
-        t: time in s (must not decrease); h: (4,) regressor [x'' m/s^2, x' m/s, x m, 1];
-        f: force along the direction, N. Returns the :class:`FilterStep` (also kept in
-        :attr:`last`). Raises SampleRejected('non_finite_output') for a non-finite t, h or f
-        and SampleRejected('time_backwards') when t is older than the previous update; the
+        t: time in s (must not decrease); h: (m,) regressor (for the default model [x'' m/s^2,
+        x' m/s, x m, 1]); f: force along the direction, N. Returns the :class:`FilterStep` (also
+        kept in :attr:`last`). Raises SampleRejected('non_finite_output') for a non-finite t, h
+        or f and SampleRejected('time_backwards') when t is older than the previous update; the
         state is then untouched and :attr:`rejected` counts it.
         """
-        if type(h) is tuple and len(h) == 4:
-            h0, h1, h2, h3 = (float(v) for v in h)
-        else:
-            h = np.asarray(h, dtype=float)
-            if h.shape != (4,):
-                raise ValueError(f"environment filter: regressor h has shape {h.shape}; "
-                                 "expected (4,) = [x'' m/s^2, x' m/s, x m, 1]")
-            h0, h1, h2, h3 = h.tolist()
+        h = np.array(h, dtype=float)
+        if h.shape != (self.model.size,):
+            raise ValueError(f"environment filter: regressor h has shape {h.shape}; expected "
+                             f"({self.model.size},) = {list(self.model.regressor_labels)}")
         t, f = float(t), float(f)
-        code = filter_update(self._st, self._cf, self.windows_array, self._fo, t, h0, h1, h2,
-                             h3, f)
+        code = filter_update(self.records, t, h, f)
         if code != UPDATED:
-            self._refuse(code, t, (h0, h1, h2, h3), f)
+            raise self.refusal(code, t, h, f)
         step = self._step(self._text)
         self._text = ""
-        self._last, self._last_key = step, (self._resets, int(self._st[EF_SAMPLES]))
+        self._last, self._last_key = step, (self._resets, self.samples)
         return step
 
     @staticmethod
-    def _project(theta: list[float], P: list[float], excited: tuple[bool, ...]) -> list[float]:
-        """:func:`filter_project` on plain lists: theta (4,), P (16,) row-major, excited flags;
-        returns the projected theta."""
+    def _project(theta, P, excited, nonnegative=(True, True, True, False)) -> list[float]:
+        """:func:`filter_project` on plain sequences: theta (m,), P (m, m) or (m*m,) row-major,
+        excited and nonnegative flags (m,); returns the projected theta."""
         th = np.array(theta, dtype=float)
-        filter_project(th, np.array(P, dtype=float),
-                       sum(int(bool(x)) << i for i, x in enumerate(excited)))
+        m = len(th)
+        filter_project(th, np.array(P, dtype=float).reshape(m, m),
+                       np.array(excited, dtype=np.bool_), np.array(nonnegative, dtype=np.bool_))
         return th.tolist()

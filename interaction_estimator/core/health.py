@@ -12,14 +12,13 @@ parameters are excited and converged, is built once per pattern and kept.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
+
 from .compiled import kernel
+from .records import F8, record
 
 OK, WARN, ERROR, STALE = 0, 1, 2, 3
 LEVEL_NAMES = {OK: "OK", WARN: "WARN", ERROR: "ERROR", STALE: "STALE"}
-PARAMETERS = ("mass", "damping", "stiffness", "static_force")
-# The parameters' flags as one int (FilterStep.pattern): bit i set when parameter i (mass,
-# damping, stiffness, static_force) is excited, bit i + 4 when it has converged.
-ALL_CONVERGED = 0b1111 << 4
 # The Pipeline's phases (the contact monitor's view of the sample)
 PHASE_LEARNING, PHASE_FREE, PHASE_CONTACT = 0, 1, 2
 PHASES = ("learning_bias", "free", "contact")
@@ -33,17 +32,24 @@ FINDING_LOW_RATE = 4     # the input rate is below health.min_rate
 FINDING_NO_STAMPS = 8    # stamps are zero: the receive time is used
 FINDING_NIS = 16         # the innovations are inconsistent (in contact only)
 
+PARAMS = record(
+    "health parameters",
+    ("condition_limit", F8, "", "Jacobian condition number above which the wrench is suspect"),
+    ("min_rate_hz", F8, "Hz", "input rate below which the status warns (0: not checked)"),
+    ("stale_after_s", F8, "s", "time after a contact ended beyond which estimates are STALE"),
+)
+
 
 @kernel
-def health_verdict(phase, since_contact_end, pattern, nis_average, nis_lo, nis_hi,
+def health_verdict(p, phase, since_contact_end, all_converged, nis_average, nis_lo, nis_hi,
                    filter_samples, jacobian_condition, recent_rejects, rate_hz,
-                   stamp_from_receive, condition_limit, min_rate_hz, stale_after):
-    """(level, state code, findings bits) of one sample. phase: PHASE_*; since_contact_end s
-    (inf: never in contact); pattern: the parameters' excited and converged flags as bits (see
-    ALL_CONVERGED); nis_average and its interval [nis_lo, nis_hi]; filter_samples: updates since
-    the filter's last reset; jacobian_condition; recent_rejects: samples rejected over the last
-    second; rate_hz: input rate from the stamps; stamp_from_receive: 1 when stamps are zero.
-    condition_limit, min_rate_hz (0: no rate check), stale_after s: the settings."""
+                   stamp_from_receive):
+    """(level, state code, findings bits) of one sample. p: PARAMS record; phase: PHASE_*;
+    since_contact_end s (inf: never in contact); all_converged: every parameter converged;
+    nis_average and its interval [nis_lo, nis_hi]; filter_samples: updates since the filter's
+    last reset; jacobian_condition; recent_rejects: samples rejected over the last second;
+    rate_hz: input rate from the stamps; stamp_from_receive: the stamp is the receive time."""
+    condition_limit, min_rate_hz, stale_after = p.condition_limit, p.min_rate_hz, p.stale_after_s
     bits = 0
     if jacobian_condition > condition_limit:
         bits |= FINDING_SINGULAR
@@ -58,8 +64,7 @@ def health_verdict(phase, since_contact_end, pattern, nis_average, nis_lo, nis_h
         bits |= FINDING_NIS
     level = WARN if bits else OK
     if contact:
-        state = (STATE_CONVERGED if pattern & ALL_CONVERGED == ALL_CONVERGED
-                 else STATE_IN_CONTACT)
+        state = STATE_CONVERGED if all_converged else STATE_IN_CONTACT
     elif phase == PHASE_LEARNING:
         level, state = WARN, STATE_LEARNING
     elif math.isfinite(since_contact_end):
@@ -74,39 +79,49 @@ class Health:
     """Words the verdict of :func:`health_verdict` for a person. condition_limit: Jacobian
     condition number above which the wrench is suspect; min_rate_hz: input rate below which a
     warning is raised (0: none); stale_after s: time after a contact ended beyond which the held
-    object estimates are STALE."""
+    object estimates are STALE; parameter_names: the object model's parameters."""
 
-    def __init__(self, condition_limit: float, min_rate_hz: float, stale_after: float):
-        self.condition_limit = condition_limit
-        self.min_rate_hz = min_rate_hz
-        self.stale_after = stale_after
-        self._contact_words: dict[int, str] = {}
+    def __init__(self, condition_limit: float, min_rate_hz: float, stale_after: float,
+                 parameter_names: Sequence[str] = ("mass", "damping", "stiffness",
+                                                   "static_force")):
+        self.params = PARAMS.one()
+        p = self.params[0]
+        p["condition_limit"], p["min_rate_hz"], p["stale_after_s"] = (condition_limit,
+                                                                      min_rate_hz, stale_after)
+        self.parameter_names = tuple(parameter_names)
+        self._contact_words: dict[tuple[tuple[bool, ...], tuple[bool, ...]], str] = {}
 
-    def _in_contact(self, pattern: int) -> str:
-        words = self._contact_words.get(pattern)
+    condition_limit = property(lambda self: float(self.params[0]["condition_limit"]))
+    min_rate_hz = property(lambda self: float(self.params[0]["min_rate_hz"]))
+    stale_after = property(lambda self: float(self.params[0]["stale_after_s"]))
+
+    def _in_contact(self, excited: tuple[bool, ...], converged: tuple[bool, ...]) -> str:
+        key = (excited, converged)
+        words = self._contact_words.get(key)
         if words is None:
-            if pattern & ALL_CONVERGED == ALL_CONVERGED:
-                words = "in contact, all four parameters converged"
+            names = self.parameter_names
+            if all(converged):
+                words = f"in contact, all {len(names)} parameters converged"
             else:
-                idle = [p for i, p in enumerate(PARAMETERS) if not pattern >> i & 1]
-                pending = [p for i, p in enumerate(PARAMETERS)
-                           if pattern >> i & 1 and not pattern >> (i + 4) & 1]
+                idle = [p for p, x in zip(names, excited) if not x]
+                pending = [p for p, x, c in zip(names, excited, converged) if x and not c]
                 parts = []
                 if pending:
                     parts.append("converging: " + ", ".join(pending))
                 if idle:
                     parts.append("not excited by the motion: " + ", ".join(idle))
                 words = "in contact, " + "; ".join(parts) if parts else "in contact"
-            self._contact_words[pattern] = words
+            self._contact_words[key] = words
         return words
 
     def message(self, state: int, findings: int, startup_remaining: float,
-                since_contact_end: float, pattern: int, nis_average: float, nis_lo: float,
+                since_contact_end: float, excited: tuple[bool, ...],
+                converged: tuple[bool, ...], nis_average: float, nis_lo: float,
                 nis_hi: float, jacobian_condition: float, recent_rejects: int,
                 rate_hz: float) -> str:
         """The verdict in words: the state's sentence, then each finding. Arguments as for
-        :func:`health_verdict`; state and findings as it returned them; startup_remaining s of
-        bias learning left."""
+        :func:`health_verdict`; state and findings as it returned them; excited and converged:
+        the parameters' flags; startup_remaining s of bias learning left."""
         warnings = ""
         if findings & FINDING_SINGULAR:
             warnings += (f"; contact Jacobian near singular (condition {jacobian_condition:.0f}"
@@ -121,7 +136,7 @@ class Health:
             warnings += (f"; innovations inconsistent (NIS {nis_average:.2f} outside "
                          f"[{nis_lo:.2f}, {nis_hi:.2f}])")
         if state == STATE_IN_CONTACT or state == STATE_CONVERGED:
-            return self._in_contact(pattern) + warnings
+            return self._in_contact(excited, converged) + warnings
         if state == STATE_LEARNING:
             return (f"learning torque bias, {startup_remaining:.1f} s left: keep the robot "
                     "clear of contact" + warnings)

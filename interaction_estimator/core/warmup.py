@@ -1,42 +1,60 @@
-"""Compile (or load from the cache) every compiled function before a node, a replay or a test
-needs it. ``python -m interaction_estimator.core.warmup`` does it once and says how long it took;
-``make setup`` runs it, so that no test, demo or node compiles while it runs.
+"""Compile (or load from the cache) every compiled function of the core before a node, a replay
+or a test needs it. ``python -m interaction_estimator.core.warmup`` does it once and says how
+long it took; ``make setup`` runs it, so that no test, demo or node compiles while it runs.
 """
 from __future__ import annotations
 
 import sys
 import time
-from pathlib import Path
+
+import numpy as np
 
 from .compiled import CACHE_DIR
+
+# A small robot of our own, only to run every compiled path once: a revolute joint, a
+# continuous joint and a prismatic joint, and a tool tip.
+_LINK = ('<link name="{name}"><inertial><origin xyz="0 0 0.1"/><mass value="{mass}"/>'
+         '<inertia ixx="0.01" ixy="0" ixz="0" iyy="0.01" iyz="0" izz="0.005"/></inertial>'
+         '</link>')
+WARMUP_URDF = (
+    '<?xml version="1.0"?><robot name="warmup_arm"><link name="base"/>'
+    + _LINK.format(name="upper", mass=2.0) + _LINK.format(name="fore", mass=1.0)
+    + _LINK.format(name="slide", mass=0.5)
+    + '<link name="tool_tip"/>'
+    '<joint name="shoulder" type="revolute"><parent link="base"/><child link="upper"/>'
+    '<axis xyz="0 1 0"/><limit lower="-3" upper="3" effort="50" velocity="2"/></joint>'
+    '<joint name="elbow" type="continuous"><parent link="upper"/><child link="fore"/>'
+    '<origin xyz="0 0 0.3"/><axis xyz="0 1 0"/></joint>'
+    '<joint name="extend" type="prismatic"><parent link="fore"/><child link="slide"/>'
+    '<origin xyz="0 0 0.3"/><axis xyz="1 0 0"/>'
+    '<limit lower="-0.2" upper="0.2" effort="50" velocity="1"/></joint>'
+    '<joint name="tip" type="fixed"><parent link="slide"/><child link="tool_tip"/>'
+    '<origin xyz="0.1 0 0"/></joint></robot>')
 
 
 def warm_up() -> float:
     """Compile, or load from the cache, every compiled function for the argument types the
-    package uses: a Pipeline on the built-in robot in both observer forms and both wrench
-    modes, through contact, each stage on its own, and the estimates.csv writer on a small
-    table. Returns the seconds it took."""
-    import tempfile
-
-    import numpy as np
-
+    package uses: a Pipeline in both observer forms and both wrench modes, through contact,
+    one sample at a time and in blocks, and each stage on its own. Returns the seconds it
+    took."""
+    from .compensation import BiasEstimator, FrictionModel
+    from .contact import ContactMonitor
+    from .direction import Direction
     from .environment import EnvironmentFilter
-    from ..io.estimates import _NUMERIC, STATES, EstimateTable, float_texts, write_csv
-    from .observer import (BiasEstimator, ContactMonitor, FrictionModel,
-                           KalmanMomentumObserver, MomentumObserver)
+    from .kinematics import AlongKinematics
+    from .observer import KalmanMomentumObserver, MomentumObserver
     from .pipeline import Pipeline
     from .samples import Sample, SampleBlock
-    from ..sim import marten
     from .settings import Settings
-    from .wrench import AlongKinematics, Direction, WrenchMap
+    from .wrench import WrenchMap
 
     start = time.perf_counter()
-    urdf = marten.arm_urdf()
     for extra in ({}, {"observer.form": "first_order", "wrench.mode": "wrench",
                        "direction.mode": "estimated", "effort_side": "motor",
-                       "friction.viscous": [0.1]}):
+                       "friction.viscous": [0.1], "filter.noise_adaptation": "matching",
+                       "filter.process_adaptation": "sage_husa"}):
         settings = Settings({"contact.hold_time": 0.0, "bias.startup": 0.01, **extra})
-        pipe = Pipeline(settings, urdf)
+        pipe = Pipeline(settings, WARMUP_URDF)
         names = pipe.model.joint_names
         zeros = np.zeros(len(names))
         for k in range(60):
@@ -46,11 +64,11 @@ def warm_up() -> float:
         pipe.process_block(SampleBlock(np.arange(60, 80) * 1e-3, names, rows * 0.3,
                                        rows * 0.6, rows * 30.0, np.zeros(20, bool)))
     n = 2
-    obs = [KalmanMomentumObserver(np.full(n, 50.0), 0.003, 0.1, 1.0),
-           KalmanMomentumObserver(np.array([50.0, 60.0]), 0.003, 0.1, 1.0),
-           MomentumObserver(np.full(n, 50.0), 1.0)]
+    observers = [KalmanMomentumObserver(np.full(n, 50.0), 0.003, 0.1, 1.0),
+                 KalmanMomentumObserver(np.array([50.0, 60.0]), 0.003, 0.1, 1.0),
+                 MomentumObserver(np.full(n, 50.0), 1.0)]
     for k in range(3):
-        for o in obs:
+        for o in observers:
             o.step(k * 1e-3, np.ones(n), np.zeros(n), np.eye(n))
     FrictionModel(np.ones(n), np.ones(n), 0.01, True).torque(np.ones(n))
     bias = BiasEstimator(np.zeros(n), 0.2, 10.0, 10.0, True)
@@ -61,21 +79,15 @@ def warm_up() -> float:
     _ = monitor.weights
     WrenchMap(False, 1e-3).solve(np.ones((6, n)), np.ones(n), np.ones(n))
     Direction("estimated", [1, 0, 0], 0.5, 10.0, 0.0).update(1e-3, np.eye(3), np.ones(3))
-    kin = AlongKinematics(0.01, 2, 1e-3, 50.0)
+    kin = AlongKinematics(0.01, 2, 1e-3)
     for k in range(20):
         kin.push(k * 1e-3, 1e-4, 0.1, 1.0)
-    kin.aligned_row(1e-3)
+    kin.centre()
     kin.start_contact(0.0)
     flt = EnvironmentFilter(Settings())
     flt.update(0.0, np.array([0.1, 0.2, 0.01, 1.0]), 3.0)
     flt.inflate("warm-up")
-    EnvironmentFilter._project([1.0, -1.0, -1.0, 0.0], np.eye(4).ravel().tolist(), (True,) * 4)
-    table = EstimateTable()
-    for k in range(3):
-        table.append_values([float(k)] * len(_NUMERIC), STATES[k])
-    with tempfile.TemporaryDirectory() as tmp:
-        write_csv(Path(tmp) / "estimates.csv", table)
-    float_texts(np.array([0.1, -2.5e-7]))
+    EnvironmentFilter._project([1.0, -1.0, -1.0, 0.0], np.eye(4), (True,) * 4)
     return time.perf_counter() - start
 
 

@@ -1,0 +1,230 @@
+"""The outputs of one sample: one record schema for the Estimate, estimates.csv and the messages.
+
+:data:`SAMPLE` is what the compiled step writes per sample, :data:`PARAMETER` per parameter of
+the object model (m of them) and :data:`JOINT` per joint (nv). :func:`columns` turns a block of
+them into the named columns of estimates.csv (the contract of DESIGN.md, section 4, with the
+parameters' names taken from the object model), and :func:`message_numbers` into the numbers
+``~/wrench`` and ``~/environment`` carry: every consumer reads the same fields.
+"""
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from .health import PHASE_CONTACT, STATES
+from .object_models import ObjectModel
+from .records import B1, F8, I1, I8, record
+
+# events of a sample
+EV_NONE, EV_RESTARTED, EV_BEGIN, EV_END, EV_RESUMED, EV_CHANGE = range(6)
+EVENTS = ("", "observer_restarted", "contact_begin", "contact_end", "contact_resumed", "change")
+FILTER_NOT_UPDATED = -1   # SAMPLE.filter_code when the filter was not updated at the sample
+
+SAMPLE = record(
+    "outputs of one sample",
+    ("force", F8, (3,), "N", "force the robot applies to the environment, world frame"),
+    ("torque", F8, (3,), "N·m", "torque the robot applies (zero in force mode)"),
+    ("direction", F8, (3,), "", "manipulation direction u, unit, world frame"),
+    ("force_along", F8, "N", "u . force"),
+    ("position_along", F8, "m", "position along u from the contact onset (window centre)"),
+    ("velocity_along", F8, "m/s", "velocity of the contact point along u (now)"),
+    ("acceleration_along", F8, "m/s^2", "acceleration along u (window centre)"),
+    ("nis", F8, "", "normalized innovation squared of the last filter update"),
+    ("nis_average", F8, "", "its mean over the NIS window"),
+    ("nis_lower", F8, "", "lower bound of that mean (95 %)"),
+    ("nis_upper", F8, "", "upper bound"),
+    ("measurement_std", F8, "N", "the filter's measurement standard deviation"),
+    ("contact_level", F8, "", "residual level in units of its free-motion noise"),
+    ("jacobian_condition", F8, "", "condition number of the contact Jacobian rows used"),
+    ("rate_hz", F8, "Hz", "input rate from the stamps"),
+    ("kinematics_lag_s", F8, "s", "lag of the window centre behind the sample"),
+    ("bias_age_s", F8, "s", "time since the bias was last learned (inf: never)"),
+    ("phase", I1, "", "health.PHASE_*"),
+    ("event", I1, "", "EV_*"),
+    ("all_converged", B1, "", "in contact and every parameter converged"),
+    ("filter_samples", I8, "", "filter updates since its last reset"),
+    ("startup_remaining_s", F8, "s", "bias-learning time left"),
+    ("since_contact_end_s", F8, "s", "time since the last contact ended (inf: never)"),
+    ("change", I8, "", "environment.CHANGE_* bits of this sample's filter update"),
+    ("change_g", F8, "", "the CUSUM value of a CUSUM change"),
+    ("observer_restarts", I8, "", "observer restarts so far"),
+    ("filter_code", I1, "", "FILTER_NOT_UPDATED, environment.UPDATED or its refusal code"),
+    ("filter_time_s", F8, "s", "time of the filter's measurement row (window centre)"),
+    ("filter_force", F8, "N", "force of that row"),
+    ("regained", B1, "", "a contact began after one had ended: the covariance was inflated"),
+    ("level", I1, "", "health level: OK 0, WARN 1, ERROR 2, STALE 3"),
+    ("state", I1, "", "health.STATE_* (word: health.STATES)"),
+    ("findings", I8, "", "health.FINDING_* bits"),
+)
+PARAMETER = record(
+    "outputs of one sample, per parameter of the object model",
+    ("value", F8, "(parameter unit)", "estimate (the prior before the first update)"),
+    ("std", F8, "(parameter unit)", "standard deviation"),
+    ("excited", B1, "", "excited by the motion"),
+    ("converged", B1, "", "converged (in contact only)"),
+)
+JOINT = record(
+    "outputs of one sample, per joint",
+    ("external_torque", F8, "N·m or N", "the observer's residual with the bias removed"),
+    ("bias", F8, "N·m or N", "the bias b"),
+    ("raw_residual", F8, "N·m or N", "the observer's output before the bias"),
+)
+
+
+@dataclass(slots=True)
+class Estimate:
+    """Everything the pipeline knows after one sample. SI units; world frame = URDF root.
+
+    force (3,) N and torque (3,) N·m: what the robot applies to the environment at the contact
+    frame (torque zero in force mode). direction (3,): unit u. force_along N,
+    position_along m (from contact onset), velocity_along m/s, acceleration_along m/s^2 (at
+    ``kinematics_lag`` s before ``time``). parameters (m,) in the object model's order and units
+    (default [kg, N·s/m, N/m, N]) and their standard deviations; per-parameter excited/converged
+    flags; converged: all converged. external_torque (nv,) N·m, bias (nv,) N·m in model joint
+    order. parameter_names: the object model's.
+    """
+
+    time: float
+    force: np.ndarray
+    torque: np.ndarray
+    direction: np.ndarray
+    force_along: float
+    position_along: float
+    velocity_along: float
+    acceleration_along: float
+    parameters: np.ndarray
+    parameter_std: np.ndarray
+    excited: np.ndarray
+    parameter_converged: np.ndarray
+    converged: bool
+    in_contact: bool
+    phase: str
+    level: int
+    state: str
+    message: str
+    nis: float
+    nis_average: float
+    nis_bounds: tuple[float, float]
+    measurement_std: float
+    external_torque: np.ndarray
+    bias: np.ndarray
+    bias_age: float
+    contact_level: float
+    jacobian_condition: float
+    observer_restarts: int
+    rejected: int
+    rate_hz: float
+    kinematics_lag: float
+    event: str
+    stamp_from_receive: bool
+    parameter_names: tuple[str, ...] = ()
+
+
+class EstimateBlock:
+    """The estimates of the accepted samples of one block, as columns (k rows): ``time`` (k,) s,
+    ``rows`` (k,) :data:`SAMPLE` records and ``parameters_out`` (k, m) :data:`PARAMETER`
+    records; the properties below read them as :class:`Estimate`'s fields do."""
+
+    __slots__ = ("time", "rows", "parameters_out", "model")
+
+    def __init__(self, time: np.ndarray, rows: np.ndarray, parameters_out: np.ndarray,
+                 model: ObjectModel):
+        self.time, self.rows, self.parameters_out, self.model = (time, rows, parameters_out,
+                                                                 model)
+
+    def __len__(self) -> int:
+        return len(self.time)
+
+    force = property(lambda self: self.rows["force"])
+    direction = property(lambda self: self.rows["direction"])
+    force_along = property(lambda self: self.rows["force_along"])
+    position_along = property(lambda self: self.rows["position_along"])
+    velocity_along = property(lambda self: self.rows["velocity_along"])
+    acceleration_along = property(lambda self: self.rows["acceleration_along"])
+    parameters = property(lambda self: self.parameters_out["value"])
+    parameter_std = property(lambda self: self.parameters_out["std"])
+    excited = property(lambda self: self.parameters_out["excited"])
+    parameter_converged = property(lambda self: self.parameters_out["converged"])
+    converged = property(lambda self: self.rows["all_converged"])
+    nis = property(lambda self: self.rows["nis"])
+    nis_average = property(lambda self: self.rows["nis_average"])
+    nis_bounds = property(lambda self: (self.rows["nis_lower"], self.rows["nis_upper"]))
+    measurement_std = property(lambda self: self.rows["measurement_std"])
+    contact_level = property(lambda self: self.rows["contact_level"])
+    jacobian_condition = property(lambda self: self.rows["jacobian_condition"])
+    kinematics_lag = property(lambda self: self.rows["kinematics_lag_s"])
+    bias_age = property(lambda self: self.rows["bias_age_s"])
+    in_contact = property(lambda self: self.rows["phase"] == PHASE_CONTACT)
+    level = property(lambda self: self.rows["level"])
+
+    @property
+    def state(self) -> np.ndarray:
+        """(k,) the state words."""
+        return np.array(STATES, dtype=object)[self.rows["state"]]
+
+
+def column_names(model: ObjectModel) -> list[str]:
+    """The columns of estimates.csv, in order, for ``model``."""
+    names = list(model.parameter_names)
+    return (["time", "force_x", "force_y", "force_z", "force_along", "position_along",
+             "velocity_along", "acceleration_along"] + names + [f"{p}_std" for p in names]
+            + ["converged", "in_contact", "level", "state", "direction_x", "direction_y",
+               "direction_z", "nis", "nis_average", "nis_lower", "nis_upper",
+               "measurement_std"]
+            + [f"{p}_converged" for p in names] + [f"{p}_excited" for p in names]
+            + ["contact_level", "jacobian_condition", "bias_age", "kinematics_lag"])
+
+
+def columns(time: np.ndarray, rows: np.ndarray, parameters_out: np.ndarray,
+            model: ObjectModel) -> dict[str, np.ndarray]:
+    """estimates.csv's columns (see :func:`column_names`) from a block's records: floats for
+    numbers, int8 0/1 for flags, int8 levels and the state words (object array)."""
+    names = model.parameter_names
+    out: dict[str, np.ndarray] = {"time": np.asarray(time, dtype=float)}
+    for i, axis in enumerate("xyz"):
+        out[f"force_{axis}"] = rows["force"][:, i]
+    for name in ("force_along", "position_along", "velocity_along", "acceleration_along"):
+        out[name] = rows[name]
+    for i, p in enumerate(names):
+        out[p] = parameters_out["value"][:, i]
+    for i, p in enumerate(names):
+        out[f"{p}_std"] = parameters_out["std"][:, i]
+    out["converged"] = rows["all_converged"].astype(np.int8)
+    out["in_contact"] = (rows["phase"] == PHASE_CONTACT).astype(np.int8)
+    out["level"] = rows["level"]
+    out["state"] = np.array(STATES, dtype=object)[rows["state"]]
+    for i, axis in enumerate("xyz"):
+        out[f"direction_{axis}"] = rows["direction"][:, i]
+    for name in ("nis", "nis_average", "nis_lower", "nis_upper", "measurement_std"):
+        out[name] = rows[name]
+    for i, p in enumerate(names):
+        out[f"{p}_converged"] = parameters_out["converged"][:, i].astype(np.int8)
+    for i, p in enumerate(names):
+        out[f"{p}_excited"] = parameters_out["excited"][:, i].astype(np.int8)
+    out["contact_level"] = rows["contact_level"]
+    out["jacobian_condition"] = rows["jacobian_condition"]
+    out["bias_age"] = rows["bias_age_s"]
+    out["kinematics_lag"] = rows["kinematics_lag_s"]
+    return out
+
+
+def message_numbers(row: np.ndarray, parameters_out: np.ndarray, full_wrench: bool
+                    ) -> list[float]:
+    """What ``~/wrench`` and ``~/environment`` carry, from one sample's records: force (3) N
+    and torque (3) N·m the robot applies, world frame (torque 0 in force mode), then the m
+    parameters and their m standard deviations (the model's units)."""
+    torque = row["torque"].tolist() if full_wrench else [0.0, 0.0, 0.0]
+    return (row["force"].tolist() + torque + parameters_out["value"].tolist()
+            + parameters_out["std"].tolist())
+
+
+def describe_columns(model: ObjectModel) -> Mapping[str, str]:
+    """Each estimates.csv column's unit ("" where none), for documentation and reports."""
+    units = {"time": "s", "force_x": "N", "force_y": "N", "force_z": "N", "force_along": "N",
+             "position_along": "m", "velocity_along": "m/s", "acceleration_along": "m/s^2",
+             "measurement_std": "N", "bias_age": "s", "kinematics_lag": "s"}
+    for p, unit in zip(model.parameter_names, model.parameter_units):
+        units[p] = units[f"{p}_std"] = unit
+    return {name: units.get(name, "") for name in column_names(model)}

@@ -1,0 +1,486 @@
+"""One sample through every stage, compiled: the Pipeline's per-sample arithmetic.
+
+:func:`pipeline_step` reads top to bottom in the order of the design's data flow, each stage a
+function of its own records (:class:`Storage`): validate the sample's numbers; the momentum
+observer with friction and bias removed (:func:`observe`); the contact monitor with bias and
+noise learning (:func:`monitor`); the wrench map; the direction and the projections on it
+(:func:`project`); the kinematics along u and the environment filter (:func:`estimate_object`);
+the health verdict and the output records (:func:`write_outputs`). The Pinocchio calls that
+feed it (M, C, g, the contact Jacobian and pose) are made by the Pipeline before the call, and
+the sample's joints are already in model order. :func:`pipeline_run` steps a block of samples.
+"""
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+import numpy as np
+
+from . import (compensation, contact, direction, environment, health, kinematics,
+               object_models, observer, outputs, wrench)
+from .compiled import entry_kernel, kernel
+from .health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING
+from .outputs import EV_BEGIN, EV_CHANGE, EV_END, EV_NONE, EV_RESTARTED, EV_RESUMED
+from .records import B1, F8, I8, record
+
+STEP_DONE, STEP_NON_FINITE_WRENCH, STEP_FILTER_REFUSED, STEP_INVALID_SAMPLE = 0, 1, 2, 3
+
+PARAMS = record(
+    "pipeline parameters",
+    ("startup_s", F8, "s", "bias-learning phase after start or reset (bias.startup)"),
+    ("forget_after_s", F8, "s", "a contact regained later than this after one ended is new"),
+)
+STATE = record(
+    "pipeline state",
+    ("started", B1, "", "a sample has been processed since the last reset"),
+    ("last_time_s", F8, "s", "stamp of the last processed sample"),
+    ("has_valid", B1, "", "a sample passed validation since the last reset"),
+    ("last_valid_s", F8, "s", "stamp of the last sample that passed validation"),
+    ("learning_pending", B1, "", "a bias-learning phase starts at the next sample"),
+    ("learning_start_s", F8, "s", "start of the current bias-learning phase"),
+    ("learning_s", F8, "s", "length of the current bias-learning phase"),
+    ("ever_contact", B1, "", "a contact began since the last reset"),
+    ("contact_end_s", F8, "s", "when the last contact ended"),
+    ("quiet_position_m", F8, "m", "position along u where the residual was last quiet"),
+    ("dt_average_s", F8, "s", "running mean sample interval"),
+    ("point_valid", B1, "", "point holds the previous contact point"),
+    ("point", F8, (3,), "m", "previous contact point, world frame"),
+    ("recent_rejects", I8, "", "samples rejected over the second before this one (caller)"),
+    ("stamp_from_receive", B1, "", "this sample's stamp is its receive time (caller)"),
+)
+JOINTS = record(
+    "pipeline, per joint",
+    ("residual", F8, "N·m or N", "the observer's output with the bias removed"),
+)
+
+
+class KinematicsRecords(NamedTuple):
+    params: np.ndarray        # (1,) kinematics.PARAMS
+    state: np.ndarray         # (1,) kinematics.STATE
+    ring: np.ndarray          # (2n,) kinematics.RING
+    coefficients: np.ndarray  # (n,) kinematics.COEFFICIENTS
+
+
+class Storage(NamedTuple):
+    """Every stage's records: what :func:`pipeline_step` reads and changes."""
+
+    params: np.ndarray                      # (1,) PARAMS
+    state: np.ndarray                       # (1,) STATE
+    joints: np.ndarray                      # (nv,) JOINTS
+    observer: observer.ObserverRecords
+    friction: compensation.FrictionRecords
+    bias: compensation.BiasRecords
+    contact: contact.ContactRecords
+    wrench: np.ndarray                      # (1,) wrench.PARAMS
+    direction_params: np.ndarray            # (1,) direction.PARAMS
+    direction_state: np.ndarray             # (1,) direction.STATE
+    kinematics: KinematicsRecords
+    model: object_models.ModelRecords
+    filter: environment.FilterRecords
+    health: np.ndarray                      # (1,) health.PARAMS
+
+
+def new_storage(nv: int, m: int, nis_window: int, matching_window: int) -> Storage:
+    """Zeroed records for nv joints and m object parameters (the Pipeline configures them;
+    the kinematics are a placeholder until the nominal sample interval is known)."""
+    fr = environment.FilterRecords(
+        environment.PARAMS.one(), environment.PARAMETER_PARAMS.many(m),
+        environment.STATE.one(), environment.PARAMETERS.many(m), np.zeros((m, m)),
+        environment.NIS_BOUNDS.many(nis_window + 1), np.zeros(nis_window),
+        np.zeros(matching_window), environment.OUTPUT.one(),
+        environment.PARAMETER_OUTPUT.many(m))
+    return Storage(
+        PARAMS.one(), STATE.one(), JOINTS.many(nv), observer.new_records(nv),
+        compensation.FrictionRecords(compensation.FRICTION_PARAMS.one(),
+                                     compensation.FRICTION_JOINTS.many(nv)),
+        compensation.BiasRecords(compensation.BIAS_PARAMS.one(), compensation.BIAS_STATE.one(),
+                                 compensation.BIAS_JOINTS.many(nv)),
+        contact.ContactRecords(contact.PARAMS.one(), contact.STATE.one(),
+                               contact.JOINTS.many(nv)),
+        wrench.PARAMS.one(), direction.PARAMS.one(), direction.STATE.one(),
+        KinematicsRecords(*kinematics.placeholder()),
+        object_models.ModelRecords(object_models.PARAMS.one(), object_models.STATE.one(),
+                                   object_models.ROW.many(m)),
+        fr, health.PARAMS.one())
+
+
+@kernel
+def validate(s, t, q, v, effort):
+    """The checks of samples.SampleValidator that need the numbers (finite stamp, positions,
+    velocities and efforts; stamp after the last valid one); on success the stamp is kept."""
+    if not math.isfinite(t) or (s.has_valid and t <= s.last_valid_s):
+        return False
+    for x in q:
+        if not math.isfinite(x):
+            return False
+    for j in range(v.shape[0]):
+        if not (math.isfinite(v[j]) and math.isfinite(effort[j])):
+            return False
+    s.has_valid = True
+    s.last_valid_s = t
+    return True
+
+
+@kernel
+def observe(st, t, v, effort, M, C, g):
+    """Momentum observer on tau = effort - friction: p = M v, beta = tau + C^T v - g; the
+    residual with the bias removed in ``st.joints.residual``. Returns True on a restart."""
+    js = st.joints
+    nv = v.shape[0]
+    fr = st.friction
+    beta = np.empty(nv)
+    if fr.params[0].enabled:
+        compensation.friction_torque(beta, v, fr.joints, fr.params[0].smoothing_velocity)
+        for j in range(nv):
+            beta[j] = effort[j] - beta[j]
+    else:
+        for j in range(nv):
+            beta[j] = effort[j]
+    momentum = np.empty(nv)
+    for j in range(nv):
+        ctv = 0.0
+        p = 0.0
+        for i in range(nv):
+            ctv += v[i] * C[i, j]
+            p += M[j, i] * v[i]
+        beta[j] = beta[j] + ctv - g[j]
+        momentum[j] = p
+    ob = st.observer
+    restarted = observer.observer_step(ob.params[0], ob.state[0], ob.joint_params, ob.joints, t,
+                                       momentum, beta, M)
+    bias = st.bias.joints
+    for j in range(nv):
+        js[j].residual = ob.joints[j].torque + bias[j].value
+    return restarted
+
+
+@kernel
+def monitor(st, t, dt):
+    """Bias learning (start-up phase, then quiet free motion), the contact monitor and the
+    residual's noise learning. Returns (phase, contact event, contact level)."""
+    s = st.state[0]
+    nv = st.joints.shape[0]
+    bp, bs, bj = st.bias.params[0], st.bias.state[0], st.bias.joints
+    cp, cs, cj = st.contact.params[0], st.contact.state[0], st.contact.joints
+    raw = np.empty(nv)
+    for j in range(nv):
+        raw[j] = st.observer.joints[j].torque
+    scratch = np.empty(nv)
+    elapsed = t - s.learning_start_s
+    startup = s.learning_s
+    if elapsed < startup:
+        # the noise only in the second half (the bias has settled), 4x faster than when free
+        compensation.bias_update(bp, bs, bj, t, dt, raw)
+        if elapsed > 0.5 * startup:
+            tmp = np.empty(nv)
+            for j in range(nv):
+                tmp[j] = raw[j] + bj[j].value
+            if contact.gather_quiet(cs, cj, dt, tmp) >= cp.learn_interval_s:
+                contact.learn_quiet(cp, cs, cj,
+                                    4.0 * cp.noise_time_constant_s / max(startup, 1e-3), scratch)
+        return PHASE_LEARNING, contact.EVENT_NONE, 0.0
+    residual = np.empty(nv)
+    for j in range(nv):
+        residual[j] = st.joints[j].residual
+    level, event = contact.contact_step(cp, cs, cj, t, residual)
+    if cs.in_contact:
+        return PHASE_CONTACT, event, level
+    # learn only from quiet free motion: a residual above the exit level may be a contact
+    # building up, and must not be learned as bias or noise; nor right after a contact ended
+    # (it may resume: a held object's force passing through zero)
+    if (not cs.pending and level < cp.exit_level
+            and t - s.contact_end_s > st.params[0].forget_after_s):
+        compensation.bias_update(bp, bs, bj, t, dt, raw)
+        for j in range(nv):
+            st.joints[j].residual = raw[j] + bj[j].value
+            residual[j] = st.joints[j].residual
+        if contact.gather_quiet(cs, cj, dt, residual) >= cp.learn_interval_s:
+            contact.learn_quiet(cp, cs, cj, 1.0, scratch)
+    elif cs.quiet_count > 0:
+        # quiet no more (a contact may be building up): learn the samples gathered so far at
+        # once, as a per-sample average would have, before judging more
+        contact.learn_quiet(cp, cs, cj, 1.0, scratch)
+    return PHASE_FREE, event, level
+
+
+@kernel
+def project(st, out, dt, J, v, H):
+    """Direction u after this sample and the projections on it: returns (force along u N,
+    velocity along u m/s, displacement along u since the last sample m)."""
+    s = st.state[0]
+    nv = v.shape[0]
+    pv0 = J[0, 0] * v[0]
+    pv1 = J[1, 0] * v[0]
+    pv2 = J[2, 0] * v[0]
+    for j in range(1, nv):
+        pv0 += J[0, j] * v[j]
+        pv1 += J[1, j] * v[j]
+        pv2 += J[2, j] * v[j]
+    point_velocity = np.empty(3)
+    point_velocity[0], point_velocity[1], point_velocity[2] = pv0, pv1, pv2
+    ds = st.direction_state[0]
+    direction.direction_update(st.direction_params[0], ds, dt, H[:3, :3], point_velocity)
+    u0, u1, u2 = ds.u[0], ds.u[1], ds.u[2]
+    f = out.force
+    force_along = u0 * f[0] + u1 * f[1] + u2 * f[2]
+    p0, p1, p2 = H[0, 3], H[1, 3], H[2, 3]
+    dx = 0.0
+    if s.point_valid:
+        dx = u0 * (p0 - s.point[0]) + u1 * (p1 - s.point[1]) + u2 * (p2 - s.point[2])
+    s.point[0], s.point[1], s.point[2] = p0, p1, p2
+    s.point_valid = True
+    for r in range(3):
+        out.direction[r] = ds.u[r]
+    return force_along, u0 * pv0 + u1 * pv1 + u2 * pv2, dx
+
+
+@kernel
+def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, force_along):
+    """Kinematics along u, and in contact the object model's measurement row through the
+    environment filter. Returns (event, code): the event possibly changed (a resumed contact, a
+    change the filter declared), code STEP_DONE or STEP_FILTER_REFUSED (its reason in
+    out.filter_code)."""
+    s = st.state[0]
+    kp, ks = st.kinematics.params[0], st.kinematics.state[0]
+    ring = st.kinematics.ring
+    out.filter_code = outputs.FILTER_NOT_UPDATED
+    out.regained = False
+    out.change = 0
+    out.change_g = 0.0
+    out.position_along = out.acceleration_along = out.kinematics_lag_s = 0.0
+    if not kp.ready:
+        return event, STEP_DONE
+    if event == EV_BEGIN:
+        if not s.ever_contact or t - s.contact_end_s > st.params[0].forget_after_s:
+            # a new contact: x from where the residual last was quiet (the contact began there,
+            # before the monitor could tell); estimates uncertain again
+            kinematics.kinematics_start_contact(ks, ring, s.quiet_position_m)
+            st.model.state[0].filtered = False
+            if s.ever_contact:
+                environment.filter_inflate(st.filter, environment.CHANGE_REGAINED)
+                out.regained = True
+        else:
+            event = EV_RESUMED
+        s.ever_contact = True
+    kinematics.kinematics_push(kp, ks, ring, st.kinematics.coefficients, t, dx, velocity_along,
+                               force_along)
+    if phase != PHASE_CONTACT:
+        if level < st.contact.params[0].exit_level:
+            s.quiet_position_m = ks.position_m
+    else:
+        full, acc, vel, pos, force, time = kinematics.kinematics_centre(kp, ks, ring)
+        if full:
+            row = st.model.row
+            object_models.measurement_row(st.model.params[0], st.model.state[0], row, dt, acc,
+                                          vel, pos)
+            h = np.empty(row.shape[0])
+            for i in range(row.shape[0]):
+                h[i] = row[i].regressor
+            out.filter_time_s = time
+            out.filter_force = force
+            code = environment.filter_update(st.filter, time, h, force)
+            out.filter_code = code
+            if code != environment.UPDATED:
+                return event, STEP_FILTER_REFUSED
+            fo = st.filter.output[0]
+            out.change = fo.change
+            out.change_g = fo.change_g
+            if fo.change != 0:
+                event = EV_CHANGE
+    out.position_along = ks.position_m
+    out.acceleration_along = ks.acceleration
+    out.kinematics_lag_s = kp.half * kp.nominal_dt_s
+    return event, STEP_DONE
+
+
+@kernel
+def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condition):
+    """The sample's output records and its health verdict."""
+    s = st.state[0]
+    fr = st.filter
+    fs, fo = fr.state[0], fr.output[0]
+    m = out_params.shape[0]
+    if fs.samples == 0:   # no update since the last reset: the prior
+        for i in range(m):
+            out_params[i].value = fr.parameter_params[i].prior_mean
+            out_params[i].std = fr.parameter_params[i].prior_std
+            out_params[i].excited = False
+            out_params[i].converged = False
+        out.nis = out.nis_average = out.nis_lower = 0.0
+        out.nis_upper = math.inf
+        out.measurement_std = fr.params[0].measurement_std0
+        all_converged = False
+        samples = 0
+    else:
+        for i in range(m):
+            po = fr.parameter_output[i]
+            out_params[i].value = po.value
+            out_params[i].std = po.std
+            out_params[i].excited = po.excited
+            out_params[i].converged = po.converged
+        out.nis = fo.nis
+        out.nis_average = fo.nis_average
+        out.nis_lower = fo.nis_lower
+        out.nis_upper = fo.nis_upper
+        out.measurement_std = math.sqrt(fo.r)
+        all_converged = fo.all_converged
+        samples = fo.samples
+    if phase != PHASE_CONTACT:
+        all_converged = False
+        for i in range(m):
+            out_params[i].converged = False
+    dt_avg = s.dt_average_s
+    rate = 1.0 / dt_avg if dt_avg > 0.0 else 0.0
+    elapsed = t - s.learning_start_s
+    out.contact_level = level
+    out.jacobian_condition = condition
+    out.rate_hz = rate
+    bs = st.bias.state[0]
+    out.bias_age_s = t - bs.last_learned_s if bs.learned else math.inf
+    out.phase = phase
+    out.event = event
+    out.all_converged = all_converged
+    out.filter_samples = samples
+    out.startup_remaining_s = s.learning_s - elapsed if elapsed < s.learning_s else 0.0
+    out.since_contact_end_s = t - s.contact_end_s if s.ever_contact else math.inf
+    out.observer_restarts = st.observer.state[0].restarts
+    for j in range(out_joints.shape[0]):
+        raw = st.observer.joints[j].torque
+        out_joints[j].external_torque = st.joints[j].residual
+        out_joints[j].bias = st.bias.joints[j].value
+        out_joints[j].raw_residual = raw
+    out.level, out.state, out.findings = health.health_verdict(
+        st.health[0], phase, out.since_contact_end_s, all_converged, out.nis_average,
+        out.nis_lower, out.nis_upper, samples, condition, s.recent_rejects, rate,
+        s.stamp_from_receive)
+
+
+@kernel
+def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
+    s = st.state[0]
+    if not validate(s, t, q, v, effort):
+        return STEP_INVALID_SAMPLE
+    if s.learning_pending:
+        s.learning_pending = False
+        s.learning_start_s = t
+        s.learning_s = st.params[0].startup_s
+    dt = t - s.last_time_s if s.started else 0.0
+
+    restarted = observe(st, t, v, effort, M, C, g)
+    phase, contact_event, level = monitor(st, t, dt)
+    event = EV_RESTARTED if restarted else EV_NONE
+    if contact_event == contact.EVENT_BEGIN:
+        event = EV_BEGIN
+    elif contact_event == contact.EVENT_END:
+        event = EV_END
+
+    contact.weights(st.contact.state[0], st.contact.joints)
+    residual = np.empty(v.shape[0])
+    for j in range(v.shape[0]):
+        residual[j] = st.joints[j].residual
+    wp = st.wrench[0]
+    wrench6 = np.empty(6)
+    condition = wrench.wrench_solve(wp, wrench6, J, residual, st.contact.joints)
+    check = wrench6[0] + wrench6[1] + wrench6[2]
+    if wp.full_wrench:
+        check += wrench6[3] * wrench6[3] + wrench6[4] * wrench6[4] + wrench6[5] * wrench6[5]
+    if not math.isfinite(check):
+        return STEP_NON_FINITE_WRENCH
+    for r in range(3):
+        out.force[r] = wrench6[r]
+        out.torque[r] = wrench6[3 + r]
+
+    force_along, velocity_along, dx = project(st, out, dt, J, v, H)
+    out.force_along = force_along
+    out.velocity_along = velocity_along
+
+    event, code = estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along,
+                                  force_along)
+    if code != STEP_DONE:
+        return code
+    if event == EV_END:
+        s.contact_end_s = t
+
+    s.started = True
+    s.last_time_s = t
+    if dt > 0.0:
+        s.dt_average_s = dt if s.dt_average_s == 0.0 else s.dt_average_s + 0.01 * (
+            dt - s.dt_average_s)
+    write_outputs(st, out, out_params, out_joints, t, phase, event, level, condition)
+    return STEP_DONE
+
+
+def _signature_types():
+    """Numba types of the step's arguments, from prototype records (any sizes: the types do
+    not depend on them)."""
+    import numba
+
+    st = new_storage(1, object_models.ALONG_DIRECTION.size, 1, 1)
+    f64 = numba.float64
+    c1, c2 = numba.types.Array(f64, 1, "C"), numba.types.Array(f64, 2, "C")
+    a2 = numba.types.Array(f64, 2, "A")
+    rec = numba.typeof(outputs.SAMPLE.one())
+    return (numba.typeof(st), f64, c1, c1, c1, a2, a2, c1, a2, a2, rec,
+            numba.typeof(outputs.PARAMETER.many(1)), numba.typeof(outputs.JOINT.many(1)))
+
+
+def _step_signature():
+    import numba
+    (st, f64, c1, _, _, a2, _, _, _, _, rec, prm, jnt) = _signature_types()
+    return numba.int64(st, f64, c1, c1, c1, a2, a2, c1, a2, a2, rec, prm, jnt)
+
+
+@entry_kernel(_step_signature)
+def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
+    """One sample through every stage (see the module docstring). st: :class:`Storage`;
+    t: stamp, s; q (nq,) configuration, v, effort (nv,) in model order; M (nv, nv), C (nv, nv)
+    Coriolis matrix, g (nv,), J (6, nv) world-aligned contact Jacobian, H (4, 4) contact-frame
+    pose, all from Pinocchio; out: (1,) outputs.SAMPLE, out_params (m,) outputs.PARAMETER,
+    out_joints (nv,) outputs.JOINT.
+
+    Returns STEP_DONE (outputs filled), STEP_INVALID_SAMPLE (a non-finite number or a stamp not
+    after the last valid one: nothing changed; samples.SampleValidator says which),
+    STEP_NON_FINITE_WRENCH (the wrench came out non-finite) or STEP_FILTER_REFUSED (the filter
+    refused its measurement row, its code in out.filter_code)."""
+    return _step(st, t, q, v, effort, M, C, g, J, H, out[0], out_params, out_joints)
+
+
+def _run_signature():
+    import numba
+    (st, f64, c1, _, _, _, _, _, _, _, rec, prm, jnt) = _signature_types()
+    c2 = numba.types.Array(numba.float64, 2, "C")
+    c3 = numba.types.Array(numba.float64, 3, "C")
+    b1 = numba.types.Array(numba.boolean, 1, "C")
+    rows = numba.types.Array(rec.dtype, 1, "C")
+    prm2 = numba.types.Array(prm.dtype, 2, "C")
+    return numba.types.UniTuple(numba.int64, 2)(
+        st, numba.int64, c1, c2, c2, c2, c3, c3, c2, c3, c3, b1, c1, rows, prm2, jnt)
+
+
+@entry_kernel(_run_signature)
+def pipeline_run(st, start, T, Q, V, E, M, C, G, J, H, from_receive, reject_times, rows,
+                 parameter_rows, out_joints):
+    """:func:`pipeline_step` on samples ``start``, ``start`` + 1, ... of a block (row i of
+    each array: sample i; ``rows[i]`` and ``parameter_rows[i]`` its outputs; from_receive (k,)
+    True where a stamp is the receive time; out_joints (nv,) the last sample's joint outputs),
+    until the block ends or a step does not return STEP_DONE. reject_times: the stamps, s, of
+    the samples rejected before ``start`` (ascending), from which each sample's count of rejects
+    over the second before it is taken.
+
+    Returns (index, code): the first sample whose step returned ``code`` != STEP_DONE, or
+    (k, STEP_DONE) when every sample from ``start`` on was done."""
+    k = T.shape[0]
+    first = 0
+    m = reject_times.shape[0]
+    s = st.state[0]
+    for i in range(start, k):
+        t = T[i]
+        while first < m and reject_times[first] < t - 1.0:
+            first += 1
+        s.recent_rejects = m - first
+        s.stamp_from_receive = from_receive[i]
+        code = _step(st, t, Q[i], V[i], E[i], M[i], C[i], G[i], J[i], H[i], rows[i],
+                     parameter_rows[i], out_joints)
+        if code != STEP_DONE:
+            return i, code
+    return k, STEP_DONE
