@@ -11,6 +11,7 @@ import math
 from typing import NamedTuple
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .compiled import kernel
 from .records import B1, F8, record
@@ -97,9 +98,11 @@ class FrictionModel:
     Olsson et al., "Friction models and friction compensation", Eur. J. Control 1998).
     """
 
-    def __init__(self, viscous: np.ndarray, coulomb: np.ndarray, eps: float, enabled: bool):
+    def __init__(self, viscous: ArrayLike, coulomb: ArrayLike, eps: float, enabled: bool,
+                 records: FrictionRecords | None = None):
         viscous, coulomb = np.asarray(viscous, float), np.asarray(coulomb, float)
-        self.records = FrictionRecords(FRICTION_PARAMS.one(), FRICTION_JOINTS.many(len(viscous)))
+        self.records = (FrictionRecords(FRICTION_PARAMS.one(), FRICTION_JOINTS.many(len(viscous)))
+                        if records is None else records)
         self.records.joints["viscous"] = viscous
         self.records.joints["coulomb"] = coulomb
         p = self.records.params[0]
@@ -129,11 +132,12 @@ class BiasEstimator:
     +/- limit N·m. ``age`` is the time since the bias was last learned, s.
     """
 
-    def __init__(self, initial: np.ndarray, time_constant: float, max_rate: float,
-                 limit: float, learn: bool):
+    def __init__(self, initial: ArrayLike, time_constant: float, max_rate: float,
+                 limit: float, learn: bool, records: BiasRecords | None = None):
         initial = np.asarray(initial, float)
-        self.records = BiasRecords(BIAS_PARAMS.one(), BIAS_STATE.one(),
-                                   BIAS_JOINTS.many(len(initial)))
+        self.records = (BiasRecords(BIAS_PARAMS.one(), BIAS_STATE.one(),
+                                    BIAS_JOINTS.many(len(initial)))
+                        if records is None else records)
         self.records.joints["initial"] = initial
         p = self.records.params[0]
         p["time_constant_s"], p["max_rate"], p["limit"] = time_constant, max_rate, limit

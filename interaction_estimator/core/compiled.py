@@ -12,9 +12,9 @@ it is the leaf every compiled module builds on.
   second) instead of compiling (about half a minute here). The cache directory is
   ``$NUMBA_CACHE_DIR`` or ``~/.cache/interaction_estimator``, in a subdirectory named by a hash
   of the sources of every module of the package that applies ``@kernel`` or ``@entry_kernel``
-  (found by reading the sources) and of the Numba version: Numba checks only the file of the function it loads, not
-  the files of the functions it calls, so without the hash an edit of one stage could leave a
-  stale Pipeline step in the cache.
+  (found by reading the sources) and of the Numba version: Numba checks only the file of the
+  function it loads, not the files of the functions it calls, so without the hash an edit of
+  one stage could leave a stale Pipeline step in the cache.
 
 :class:`EntryKernel` is for the functions Python calls per sample (the Pipeline's step): they
 are compiled for one explicit signature and then closed to further compilation, so an argument
@@ -57,7 +57,7 @@ def _cache_dir() -> Path:
 
 
 CACHE_DIR = _cache_dir()
-numba.config.CACHE_DIR = str(CACHE_DIR)   # read when each function below is decorated
+numba.config.CACHE_DIR = str(CACHE_DIR)  # type: ignore[attr-defined]  # read at decoration
 
 kernel = numba.njit(cache=True, nogil=True, error_model="numpy")
 
@@ -86,7 +86,8 @@ class EntryKernel:
             signature = self._signature()
             self.dispatcher.compile(signature)
             self.dispatcher.disable_compile()
-            self._fast = self.dispatcher.overloads[signature.args].entry_point
+            compiled = self.dispatcher.overloads[signature.args]
+            self._fast = compiled.entry_point  # type: ignore[attr-defined]  # numba's stub
         return self._fast
 
     @property

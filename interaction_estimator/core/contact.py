@@ -161,9 +161,10 @@ class ContactMonitor:
 
     def __init__(self, nv: int, enter_level: float, exit_level: float, hold_time: float,
                  noise_floor: float, noise_time_constant: float, release_time: float = 0.0,
-                 learn_interval: float = 0.01):
+                 learn_interval: float = 0.01, records: ContactRecords | None = None):
         self.nv = nv
-        self.records = ContactRecords(PARAMS.one(), STATE.one(), JOINTS.many(nv))
+        self.records = (ContactRecords(PARAMS.one(), STATE.one(), JOINTS.many(nv))
+                        if records is None else records)
         self._set(enter_level, exit_level, hold_time, noise_floor, noise_time_constant,
                   release_time, learn_interval)
         self.reset()

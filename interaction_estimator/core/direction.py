@@ -97,9 +97,11 @@ class Direction:
     """
 
     def __init__(self, mode: str, vector, window: float, hysteresis_deg: float,
-                 min_travel: float):
+                 min_travel: float, params: np.ndarray | None = None,
+                 state: np.ndarray | None = None):
         v = np.asarray(vector, float)
-        self.params, self.state = PARAMS.one(), STATE.one()
+        self.params = PARAMS.one() if params is None else params
+        self.state = STATE.one() if state is None else state
         self.configure(mode, v, window, hysteresis_deg, min_travel)
         self.reset()
 

@@ -610,7 +610,7 @@ def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     mean = _per_parameter(s, "filter.initial_mean", model)
     nonnegative = bool(s["filter.nonnegative"])
     if nonnegative:
-        for i, (x, nonneg) in enumerate(zip(mean, model.nonnegative)):
+        for i, (x, nonneg) in enumerate(zip(mean, model.nonnegative, strict=True)):
             if nonneg and x < 0.0:
                 raise SettingsError(
                     f"filter.initial_mean[{i}]: {x!r} {model.parameter_units[i]}"
@@ -641,13 +641,19 @@ def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     pp["nonnegative"] = [nonnegative and x for x in model.nonnegative]
 
 
-def new_records(s: Settings, model: ObjectModel) -> FilterRecords:
-    """Records for ``model`` configured from ``s`` and reset to the prior."""
+def new_records(s: Settings, model: ObjectModel,
+                views: FilterRecords | None = None) -> FilterRecords:
+    """Records for ``model`` configured from ``s`` and reset to the prior: the filter's own, or
+    ``views`` (the Pipeline's storage) with windows sized for ``s``."""
     m = model.size
     n, w = int(s["filter.nis_window"]), int(s["filter.matching_window"])
-    fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(), PARAMETERS.many(m),
-                       np.zeros((m, m)), nis_bounds_table(n), np.zeros(n), np.zeros(w),
-                       OUTPUT.one(), PARAMETER_OUTPUT.many(m))
+    if views is None:
+        fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(),
+                           PARAMETERS.many(m), np.zeros((m, m)), nis_bounds_table(n),
+                           np.zeros(n), np.zeros(w), OUTPUT.one(), PARAMETER_OUTPUT.many(m))
+    else:
+        fr = views._replace(nis_bounds=nis_bounds_table(n), nis_ring=np.zeros(n),
+                            match_ring=np.zeros(w))
     configure(fr, s, model)
     filter_reset(fr)
     return fr
@@ -716,9 +722,10 @@ class EnvironmentFilter:
     :attr:`rejected` and leaves the state untouched.
     """
 
-    def __init__(self, settings: Settings, model: ObjectModel = ALONG_DIRECTION):
+    def __init__(self, settings: Settings, model: ObjectModel = ALONG_DIRECTION,
+                 views: FilterRecords | None = None):
         self.model = model
-        self.records = new_records(settings, model)
+        self.records = new_records(settings, model, views)
         self._change_threshold = float(settings["filter.change_threshold"])
         self._resets = 0
         self._text = ""            # pending inflation reasons asked for by name
@@ -779,9 +786,10 @@ class EnvironmentFilter:
         if p_new["fading"] != p_old["fading"]:
             # keeps d_k = (1-b)/(1-b^(k+1))
             s["fading_power"] = p_new["fading"] ** s["samples"]
-        self.records = FilterRecords(new.params, new.parameter_params, old.state,
-                                     old.parameters, old.covariance, nis_bounds, nis_ring,
-                                     match_ring, old.output, old.parameter_output)
+        old.params[:] = new.params
+        old.parameter_params[:] = new.parameter_params
+        self.records = old._replace(nis_bounds=nis_bounds, nis_ring=nis_ring,
+                                    match_ring=match_ring)
         self._change_threshold = float(settings["filter.change_threshold"])
 
     # ----------------------------------------------------------------------------------------

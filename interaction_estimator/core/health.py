@@ -14,6 +14,8 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
+import numpy as np
+
 from .compiled import kernel
 from .records import F8, record
 
@@ -83,8 +85,9 @@ class Health:
 
     def __init__(self, condition_limit: float, min_rate_hz: float, stale_after: float,
                  parameter_names: Sequence[str] = ("mass", "damping", "stiffness",
-                                                   "static_force")):
-        self.params = PARAMS.one()
+                                                   "static_force"),
+                 params: np.ndarray | None = None):
+        self.params = PARAMS.one() if params is None else params
         p = self.params[0]
         p["condition_limit"], p["min_rate_hz"], p["stale_after_s"] = (condition_limit,
                                                                       min_rate_hz, stale_after)
@@ -103,8 +106,9 @@ class Health:
             if all(converged):
                 words = f"in contact, all {len(names)} parameters converged"
             else:
-                idle = [p for p, x in zip(names, excited) if not x]
-                pending = [p for p, x, c in zip(names, excited, converged) if x and not c]
+                idle = [p for p, x in zip(names, excited, strict=True) if not x]
+                pending = [p for p, x, c in zip(names, excited, converged, strict=True)
+                           if x and not c]
                 parts = []
                 if pending:
                     parts.append("converging: " + ", ".join(pending))

@@ -121,12 +121,14 @@ class AlongKinematics:
     values at the window centre are used (lag = half the window, :attr:`lag` s).
     """
 
-    def __init__(self, window: float, polyorder: int, nominal_dt: float):
-        from scipy.signal import savgol_coeffs   # at construction only
+    def __init__(self, window: float, polyorder: int, nominal_dt: float,
+                 params: np.ndarray | None = None, state: np.ndarray | None = None):
+        from scipy.signal import savgol_coeffs  # at construction only
 
         n = window_samples(window, polyorder, nominal_dt)
         self.n, self.half = n, n // 2
-        self.params, self.state = PARAMS.one(), STATE.one()
+        self.params = PARAMS.one() if params is None else params
+        self.state = STATE.one() if state is None else state
         self.ring, self.coefficients = RING.many(2 * n), COEFFICIENTS.many(n)
         # savgol_coeffs with use='dot' gives weights for the window in time order
         self.coefficients["derivative"] = savgol_coeffs(n, polyorder, deriv=1, delta=1.0,
@@ -176,6 +178,6 @@ class AlongKinematics:
         return (acc, vel, pos, force, t) if full else None
 
 
-def placeholder() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Kinematics records before the nominal interval is known (not ready)."""
-    return PARAMS.one(), STATE.one(), RING.many(2), COEFFICIENTS.many(1)
+def placeholder() -> tuple[np.ndarray, np.ndarray]:
+    """The ring and coefficients before the nominal interval is known (not ready)."""
+    return RING.many(2), COEFFICIENTS.many(1)

@@ -49,7 +49,7 @@ class JointMap:
     present. Built once per distinct name tuple and cached by :class:`RobotModel`.
     """
 
-    def __init__(self, model: "RobotModel", names: tuple[str, ...]):
+    def __init__(self, model: RobotModel, names: tuple[str, ...]):
         index = {}
         for i, n in enumerate(names):
             if n in index:
@@ -70,7 +70,8 @@ class JointMap:
         q_from[model._circle_q] = model._circle_v
         q_from[model._circle_q + 1] = model._circle_v
         self._q_from = q_from
-        self._circles = tuple(zip(model._circle_q.tolist(), model._circle_v.tolist()))
+        self._circles = tuple(zip(model._circle_q.tolist(), model._circle_v.tolist(),
+                                  strict=True))
 
     def apply(self, sample: Sample) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Return (q (nq,), v (nv,), effort (nv,)) in model order: new, writeable, contiguous
@@ -128,7 +129,7 @@ class RobotModel:
             raise ModelError("robot description is not URDF text: no <robot> element found")
         try:
             self.model = pin.buildModelFromXML(urdf)
-        except Exception as exc:  # Pinocchio raises plain ValueError/RuntimeError with the parser text
+        except Exception as exc:  # Pinocchio raises ValueError/RuntimeError with the parser text
             raise ModelError(f"URDF does not parse: {str(exc).strip()}") from None
         self.model.gravity.linear = np.array([0.0, 0.0, -gravity])
         self.data = self.model.createData()
@@ -168,7 +169,7 @@ class RobotModel:
 
     @classmethod
     def from_file(cls, path: str | Path, contact_frame: str,
-                  gravity: float = STANDARD_GRAVITY) -> "RobotModel":
+                  gravity: float = STANDARD_GRAVITY) -> RobotModel:
         try:
             text = Path(path).read_text(encoding="utf-8")
         except OSError as exc:
@@ -215,7 +216,7 @@ class RobotModel:
         H, M, C = np.empty((k, 4, 4)), np.empty((k, nv, nv)), np.empty((k, nv, nv))
         G, J = np.empty((k, nv)), np.empty((k, 6, nv))
         terms = self.terms
-        for i, (q, v) in enumerate(zip(Q, V)):
+        for i, (q, v) in enumerate(zip(Q, V, strict=True)):
             H[i], M[i], C[i], G[i], J[i] = terms(q, v)
         return H, M, C, G, J
 

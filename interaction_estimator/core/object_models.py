@@ -96,9 +96,12 @@ class ModelRecords(NamedTuple):
     row: np.ndarray      # (m,) ROW
 
 
-def new_records(model: ObjectModel, matching_gain: float | None) -> ModelRecords:
-    """Records of ``model``; ``matching_gain`` 1/s, or None for no matching filter."""
-    r = ModelRecords(PARAMS.one(), STATE.one(), ROW.many(model.size))
+def new_records(model: ObjectModel, matching_gain: float | None,
+                records: ModelRecords | None = None) -> ModelRecords:
+    """Records of ``model`` (or ``records``, views into the Pipeline's storage, configured);
+    ``matching_gain`` 1/s, or None for no matching filter."""
+    r = ModelRecords(PARAMS.one(), STATE.one(), ROW.many(model.size)) if records is None \
+        else records
     p = r.params[0]
     p["kind"] = model.code
     p["matching"] = matching_gain is not None

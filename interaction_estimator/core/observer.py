@@ -313,13 +313,14 @@ def new_records(nv: int) -> ObserverRecords:
 
 
 class _ObserverBase:
-    """Both forms: records (:attr:`records`), gain, restart on gaps."""
+    """Both forms: records (:attr:`records`: the observer's own, or views into the Pipeline's
+    storage when it passes them), gain, restart on gaps."""
 
     _form = FORM_FIRST_ORDER
 
-    def __init__(self, gain: np.ndarray, max_gap: float):
+    def __init__(self, gain: np.ndarray, max_gap: float, records: ObserverRecords | None = None):
         gain = np.asarray(gain, dtype=float)
-        self.records = new_records(len(gain))
+        self.records = new_records(len(gain)) if records is None else records
         self.records.params[0]["form"] = self._form
         self.records.joint_params["gain"] = gain
         self.max_gap = max_gap
@@ -379,8 +380,8 @@ class MomentumObserver(_ObserverBase):
 
     _form = FORM_FIRST_ORDER
 
-    def __init__(self, gain: np.ndarray, max_gap: float):
-        super().__init__(gain, max_gap)
+    def __init__(self, gain: np.ndarray, max_gap: float, records: ObserverRecords | None = None):
+        super().__init__(gain, max_gap, records)
         self.reset()
 
 
@@ -408,8 +409,8 @@ class KalmanMomentumObserver(_ObserverBase):
     _form = FORM_KALMAN
 
     def __init__(self, bandwidth: np.ndarray, velocity_noise: float, effort_noise: float,
-                 max_gap: float, settle_steps: int = 500):
-        super().__init__(bandwidth, max_gap)
+                 max_gap: float, settle_steps: int = 500, records: ObserverRecords | None = None):
+        super().__init__(bandwidth, max_gap, records)
         self.velocity_noise, self.effort_noise = velocity_noise, effort_noise
         self.records.params[0]["settle_steps"] = int(settle_steps)
         self.reset()

@@ -11,8 +11,8 @@ grows with run length.
 
 Per sample the Pipeline checks the lengths, maps the sample onto the model's joints, makes the
 Pinocchio calls, and then runs every stage in one compiled call (:mod:`.step`) on the stages'
-records (:class:`~.step.Storage`): each stage object below owns its records, and the storage
-tuple holds those same arrays, so a stage's methods and the step see the same numbers. The
+records (:class:`~.storage.Storage`): each stage object below holds views of its records in that
+storage, so a stage's methods and the step see the same numbers. The
 outputs are records of :mod:`.outputs`, from which the :class:`Estimate`, the table columns and
 the messages' numbers are read.
 """
@@ -20,15 +20,16 @@ from __future__ import annotations
 
 import math
 from collections import deque
+from collections.abc import Callable
 
 import numpy as np
 
-from . import outputs, step
+from . import outputs, step, storage
 from .compensation import BiasEstimator, FrictionModel
 from .contact import ContactMonitor
 from .direction import Direction
 from .environment import UPDATED, EnvironmentFilter, change_text
-from .health import PHASE_CONTACT, PHASES, STATES, Health
+from .health import Health
 from .kinematics import AlongKinematics
 from .model import RobotModel
 from .object_models import ALONG_DIRECTION, ObjectModel, new_records
@@ -59,13 +60,14 @@ class Pipeline:
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
         nv, m = self.model.nv, object_model.size
-        self._pipe = step.new_storage(nv, m, 1, 1)   # the Pipeline's own records
-        self._out = outputs.SAMPLE.one()
+        st = self._storage = storage.new_storage(nv, m)   # every stage's records
+        self._pipe_params, self._pipe = st.params["pipeline"], st.state["pipeline"]
+        self._out = outputs.SAMPLE.one()               # the last sample's outputs
         self._out_params = outputs.PARAMETER.many(m)
         self._out_joints = outputs.JOINT.many(nv)
         self._last_mass: np.ndarray | None = None
         self._last = (math.nan, False)   # time s and receive-time flag of the last processed sample
-        self.filter = EnvironmentFilter(settings, object_model)
+        self.filter = EnvironmentFilter(settings, object_model, storage.filter_views(st))
         self._configure(settings)
         self._step = step.pipeline_step.prepare()   # compiled (or loaded) once, then fixed
         self._run = step.pipeline_run.prepare()
@@ -77,25 +79,29 @@ class Pipeline:
         nv = self.model.nv
         gain = np.array(per_joint(s, "observer.gain", joints))
         kalman = s["observer.form"] == "kalman"
+        st = self._storage
         old_obs = getattr(self, "observer", None)
         if old_obs is None or isinstance(old_obs, KalmanMomentumObserver) != kalman:
+            records = storage.observer_views(st)
             self.observer = (KalmanMomentumObserver(gain, s["observer.velocity_noise"],
                                                     s["observer.effort_noise"],
-                                                    s["observer.max_gap"])
-                             if kalman else MomentumObserver(gain, s["observer.max_gap"]))
+                                                    s["observer.max_gap"], records=records)
+                             if kalman else MomentumObserver(gain, s["observer.max_gap"],
+                                                             records=records))
         else:
             self.observer.gain, self.observer.max_gap = gain, s["observer.max_gap"]
-            if kalman:
+            if isinstance(self.observer, KalmanMomentumObserver):
                 self.observer.velocity_noise = s["observer.velocity_noise"]
                 self.observer.effort_noise = s["observer.effort_noise"]
         self.friction = FrictionModel(per_joint(s, "friction.viscous", joints),
                                       per_joint(s, "friction.coulomb", joints),
                                       s["friction.smoothing_velocity"],
-                                      s["effort_side"] == "motor")
+                                      s["effort_side"] == "motor", storage.friction_views(st))
         old_bias = getattr(self, "bias", None)
         kept = None if old_bias is None else (old_bias.value, old_bias.last_learned)
         self.bias = BiasEstimator(per_joint(s, "bias.initial", joints), s["bias.time_constant"],
-                                  s["bias.max_rate"], s["bias.limit"], s["bias.learn"])
+                                  s["bias.max_rate"], s["bias.limit"], s["bias.learn"],
+                                  storage.bias_views(st))
         if kept is not None:  # keep what was learned
             self.bias.value, self.bias.last_learned = kept
         # the noise level is learned from the mean square over intervals of quiet samples: its
@@ -106,44 +112,43 @@ class Pipeline:
                             s["contact.hold_time"], s["contact.noise_floor"], noise_tc,
                             s["contact.release_time"], min(_LEARN_INTERVAL, noise_tc / 20.0))
         if getattr(self, "contact", None) is None:
-            self.contact = ContactMonitor(nv, *contact_settings)
+            self.contact = ContactMonitor(nv, *contact_settings,
+                                          records=storage.contact_views(st))
         else:
             self.contact.configure(*contact_settings)
         self.wrench_map = WrenchMap(s["wrench.mode"] == "wrench", s["wrench.damping"],
-                                    s["wrench.condition_limit"])
+                                    s["wrench.condition_limit"], st.params["wrench"])
         old_dir = getattr(self, "direction", None)
         kept = None if old_dir is None else (old_dir.mode, old_dir.u)
         self.direction = Direction(s["direction.mode"], s["direction.vector"],
                                    s["direction.window"], s["direction.hysteresis"],
-                                   s["direction.min_travel"])
+                                   s["direction.min_travel"], st.params["direction"],
+                                   st.state["direction"])
         if kept is not None and kept[0] == self.direction.mode == "estimated":
             self.direction.u = kept[1]
         # lag of the force behind tau_ext that the measurement row must match: first order
         # 1/K_O; the Kalman form has none for slowly varying forces (None: no matching filter)
         matching = None if kalman else float(np.mean(gain))
-        old_rows = getattr(self, "_model_records", None)
-        self._model_records = new_records(self.object_model, matching)
-        if old_rows is not None:
-            self._model_records.state[:] = old_rows.state
-            self._model_records.row[:] = old_rows.row
+        self._model_records = new_records(self.object_model, matching,
+                                          storage.model_views(st))
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
-                              s["health.stale_after"], self.object_model.parameter_names)
-        p = self._pipe.params[0]
+                              s["health.stale_after"], self.object_model.parameter_names,
+                              st.params["health"])
+        p = self._pipe_params[0]
         p["startup_s"] = s["bias.startup"]
         p["forget_after_s"] = s["contact.forget_after"]
         self._storage_changed()
 
     def _storage_changed(self) -> None:
-        """Collect every stage's records into the tuple the compiled step takes."""
+        """The arrays whose size changes (the filter's windows, the kinematics ring) into the
+        tuple the compiled step takes."""
         kin = getattr(self, "kinematics", None)
-        pipe = self._pipe
-        self._storage = step.Storage(
-            pipe.params, pipe.state, pipe.joints, self.observer.records, self.friction.records,
-            self.bias.records, self.contact.records, self.wrench_map.params,
-            self.direction.params, self.direction.state,
-            pipe.kinematics if kin is None else step.KinematicsRecords(
-                kin.params, kin.state, kin.ring, kin.coefficients),
-            self._model_records, self.filter.records, self._health.params)
+        fr = self.filter.records
+        ring, coefficients = ((kin.ring, kin.coefficients) if kin is not None
+                              else self._storage[-2:])
+        self._storage = self._storage._replace(
+            nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, match_ring=fr.match_ring,
+            ring=ring, coefficients=coefficients)
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -170,10 +175,10 @@ class Pipeline:
         self.direction.reset()
         self.filter.reset("reset")
         self._drop_kinematics()
-        s = self._pipe.state[0]
+        s = self._pipe[0]
         s["started"] = s["has_valid"] = False
         s["learning_pending"] = True
-        s["learning_s"] = self._pipe.params[0]["startup_s"]
+        s["learning_s"] = self._pipe_params[0]["startup_s"]
         s["contact_end_s"] = -math.inf   # time the last contact ended
         s["ever_contact"] = s["point_valid"] = False
         s["quiet_position_m"] = s["dt_average_s"] = 0.0
@@ -182,13 +187,14 @@ class Pipeline:
     def _drop_kinematics(self) -> None:
         """No kinematics until the nominal interval is learned again."""
         self.kinematics: AlongKinematics | None = None
+        self._storage.params[0]["kinematics"]["ready"] = False
         self._model_records.state["filtered"] = False
         self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
         self._storage_changed()
 
     @property
     def _t_prev(self) -> float | None:
-        s = self._pipe.state[0]
+        s = self._pipe[0]
         return float(s["last_time_s"]) if s["started"] else None
 
     def calibrate_bias(self) -> tuple[bool, str]:
@@ -203,7 +209,7 @@ class Pipeline:
         if self._t_prev is None:
             return False, "refused: no joint states received yet"
         startup = max(self.settings["bias.startup"], 0.5)
-        s = self._pipe.state[0]
+        s = self._pipe[0]
         s["learning_pending"] = False
         s["learning_start_s"] = self._t_prev
         s["learning_s"] = startup
@@ -245,56 +251,44 @@ class Pipeline:
         is force), then the object model's m parameters (default [mass kg, damping N·s/m,
         stiffness N/m, static force N]) and their m standard deviations (same units). The same
         numbers as :meth:`estimate`'s, without building it (the node's per-message path)."""
-        return outputs.message_numbers(self._out[0], self._out_params,
+        return outputs.message_numbers(self._out, self._out_params,
                                        self.wrench_map.full_wrench)
 
     @property
     def observer_restarts(self) -> int:
         """Times the momentum observer restarted (a gap longer than ``observer.max_gap`` s),
         as of the last processed sample."""
-        return int(self._out[0]["observer_restarts"])
+        return int(self._out["observer_restarts"][0])
 
     def estimate(self) -> Estimate:
-        """The Estimate of the last sample :meth:`advance` processed (built from its records,
-        with the reject counts as they stand now: call it before the next sample)."""
+        """The Estimate of the last sample :meth:`advance` processed (a copy of its output
+        records; the reject counts are those of now: call it before the next sample)."""
         t, stamp_from_receive = self._last
-        o = self._out[0]
-        po = self._out_params
-        excited = po["excited"].copy()
-        converged = po["converged"].copy()
-        event = int(o["event"])
-        event_word = (EVENTS[event] if event != EV_CHANGE else
-                      "change: " + change_text(int(o["change"]), float(o["change_g"]),
-                                               self.filter.change_threshold))
-        nis_lo, nis_hi = float(o["nis_lower"]), float(o["nis_upper"])
-        message = self._health.message(
-            int(o["state"]), int(o["findings"]), float(o["startup_remaining_s"]),
-            float(o["since_contact_end_s"]), tuple(excited.tolist()),
-            tuple(converged.tolist()), float(o["nis_average"]), nis_lo, nis_hi,
-            float(o["jacobian_condition"]), len(self._reject_times), float(o["rate_hz"]))
-        phase = int(o["phase"])
-        return Estimate(
-            time=t, force=o["force"].copy(),
-            torque=(o["torque"].copy() if self.wrench_map.full_wrench
-                    else self.wrench_map.no_torque),
-            direction=o["direction"].copy(), force_along=float(o["force_along"]),
-            position_along=float(o["position_along"]),
-            velocity_along=float(o["velocity_along"]),
-            acceleration_along=float(o["acceleration_along"]),
-            parameters=po["value"].copy(), parameter_std=po["std"].copy(), excited=excited,
-            parameter_converged=converged, converged=bool(o["all_converged"]),
-            in_contact=phase == PHASE_CONTACT, phase=PHASES[phase], level=int(o["level"]),
-            state=STATES[int(o["state"])], message=message, nis=float(o["nis"]),
-            nis_average=float(o["nis_average"]), nis_bounds=(nis_lo, nis_hi),
-            measurement_std=float(o["measurement_std"]),
-            external_torque=self._out_joints["external_torque"].copy(),
-            bias=self._out_joints["bias"].copy(), bias_age=float(o["bias_age_s"]),
-            contact_level=float(o["contact_level"]),
-            jacobian_condition=float(o["jacobian_condition"]),
-            observer_restarts=int(o["observer_restarts"]), rejected=self.rejects.total,
-            rate_hz=float(o["rate_hz"]), kinematics_lag=float(o["kinematics_lag_s"]),
-            event=event_word, stamp_from_receive=stamp_from_receive,
-            parameter_names=self.object_model.parameter_names)
+        return Estimate(t, outputs.frozen_copy(self._out), outputs.frozen_copy(self._out_params),
+                        outputs.frozen_copy(self._out_joints),
+                        stamp_from_receive, self.rejects.total,
+                        self.object_model.parameter_names, self.wrench_map.full_wrench,
+                        self._words(len(self._reject_times)))
+
+    def _words(self, recent_rejects: int) -> Callable[[Estimate], tuple[str, str]]:
+        """The wording of an Estimate's verdict and event (made when first asked for)."""
+        health, threshold = self._health, self.filter.change_threshold
+
+        def words(e: Estimate) -> tuple[str, str]:
+            o = e.record[0]
+            event = int(o["event"])
+            event_word = (EVENTS[event] if event != EV_CHANGE else
+                          "change: " + change_text(int(o["change"]), float(o["change_g"]),
+                                                   threshold))
+            nis_lo, nis_hi = e.nis_bounds
+            message = health.message(
+                int(o["state"]), int(o["findings"]), float(o["startup_remaining_s"]),
+                float(o["since_contact_end_s"]), tuple(e.excited.tolist()),
+                tuple(e.parameter_converged.tolist()), e.nis_average, nis_lo, nis_hi,
+                e.jacobian_condition, recent_rejects, e.rate_hz)
+            return message, event_word
+
+        return words
 
     def process_block(self, block: SampleBlock) -> EstimateBlock:
         """The samples of a block, in order, as :meth:`process` would take them one by one
@@ -369,17 +363,17 @@ class Pipeline:
         """The environment filter's update at the last processed sample, or None when the
         filter was not updated then: (t s, h (m,) the measurement row's regressor, f N,
         excited (m,) bool)."""
-        o = self._out[0]
-        if o["filter_code"] != UPDATED:
+        o = self._out
+        if o["filter_code"][0] != UPDATED:
             return None
-        return (float(o["filter_time_s"]),
+        return (float(o["filter_time_s"][0]),
                 tuple(self._model_records.row["regressor"].tolist()),
-                float(o["filter_force"]), self._out_params["excited"].copy())
+                float(o["filter_force"][0]), self._out_params["excited"].copy())
 
     def last_regained(self) -> bool:
         """True when the last processed sample began a contact after one that had ended (the
         filter's covariance was inflated, before its update at that sample)."""
-        return bool(self._out[0]["regained"])
+        return bool(self._out["regained"][0])
 
     def last_raw_residual(self) -> np.ndarray:
         """(nv,) N·m: the observer's output at the last processed sample, before the bias."""
@@ -401,7 +395,7 @@ class Pipeline:
         pose, mass, coriolis, gravity, jacobian = (self.model.terms(q, v) if terms is None
                                                    else terms)
         self._last_mass = mass
-        s = self._pipe.state[0]
+        s = self._pipe
         s["recent_rejects"] = self._forget_rejects(t)
         s["stamp_from_receive"] = stamp_from_receive
         return self._step(self._storage, t, q, v, effort, mass, coriolis, gravity, jacobian,
@@ -422,16 +416,17 @@ class Pipeline:
             self._reject(t, SampleRejected("non_finite_output",
                                            "the wrench came out non-finite; observer restarted"))
             return None
-        o = self._out[0]
-        self._reject(t, self.filter.refusal(int(o["filter_code"]), float(o["filter_time_s"]),
+        o = self._out
+        self._reject(t, self.filter.refusal(int(o["filter_code"][0]),
+                                            float(o["filter_time_s"][0]),
                                             self._model_records.row["regressor"].copy(),
-                                            float(o["filter_force"])))
+                                            float(o["filter_force"][0])))
         return None
 
     def _invalid(self, sample: Sample) -> None:
         """A sample refused before any stage saw it: the validator (with the last valid stamp)
         names the reason, else the joint mapping does; the rejection is counted."""
-        s = self._pipe.state[0]
+        s = self._pipe[0]
         validator = self.validator
         validator.last_time = float(s["last_valid_s"]) if s["has_valid"] else None
         try:
@@ -460,6 +455,8 @@ class Pipeline:
         if len(self._intervals) < _KINEMATICS_WARMUP:
             return
         s = self.settings
+        st = self._storage
         self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
-                                          float(np.median(self._intervals)))
+                                          float(np.median(self._intervals)),
+                                          st.params["kinematics"], st.state["kinematics"])
         self._storage_changed()

@@ -134,7 +134,7 @@ class SampleBlock:
                       self.effort[i], bool(self.stamp_from_receive[i]))
 
     @staticmethod
-    def of(sample: Sample) -> "SampleBlock":
+    def of(sample: Sample) -> SampleBlock:
         """A block of one sample (arrays of any length: the Pipeline checks them)."""
         return SampleBlock(np.array([sample.time], dtype=float), sample.names,
                            np.asarray(sample.position)[None], np.asarray(sample.velocity)[None],

@@ -14,9 +14,10 @@ from __future__ import annotations
 
 import difflib
 import math
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable, Mapping
+from typing import Any
 
 import yaml
 
@@ -390,7 +391,7 @@ class Settings(Mapping[str, Any]):
     def __len__(self) -> int:
         return len(self._values)
 
-    def replace(self, changes: Mapping[str, Any]) -> "Settings":
+    def replace(self, changes: Mapping[str, Any]) -> Settings:
         """A new Settings with ``changes`` applied (each validated)."""
         return Settings({**self._values, **changes})
 
@@ -469,7 +470,8 @@ def load_parameter_file(path: str | Path, base: Settings | None = None) -> Setti
     try:
         text = path.read_text(encoding="utf-8")
     except OSError as exc:
-        raise SettingsError(f"parameter file {str(path)!r} cannot be read: {exc.strerror}") from None
+        raise SettingsError(f"parameter file {str(path)!r} cannot be read: "
+                            f"{exc.strerror}") from None
     flat = parameters_from_yaml(text, source=str(path))
     try:
         return (base or Settings()).replace(flat)
@@ -498,5 +500,5 @@ def per_joint(settings: Settings, name: str, model_joints: Iterable[str]) -> lis
     if unknown:
         raise SettingsError(f"joint_names: {unknown} are not joints of the model; expected "
                             f"names from {joints}")
-    by_name = dict(zip(order, values))
+    by_name = dict(zip(order, values, strict=True))
     return [by_name.get(j, 0.0) for j in joints]

@@ -1,107 +1,39 @@
 """One sample through every stage, compiled: the Pipeline's per-sample arithmetic.
 
 :func:`pipeline_step` reads top to bottom in the order of the design's data flow, each stage a
-function of its own records (:class:`Storage`): validate the sample's numbers; the momentum
-observer with friction and bias removed (:func:`observe`); the contact monitor with bias and
-noise learning (:func:`monitor`); the wrench map; the direction and the projections on it
-(:func:`project`); the kinematics along u and the environment filter (:func:`estimate_object`);
-the health verdict and the output records (:func:`write_outputs`). The Pinocchio calls that
-feed it (M, C, g, the contact Jacobian and pose) are made by the Pipeline before the call, and
-the sample's joints are already in model order. :func:`pipeline_run` steps a block of samples.
+function of its own records (views of :class:`~.storage.Storage`): validate the sample's
+numbers; the momentum observer with friction and bias removed (:func:`observe`); the contact
+monitor with bias and noise learning (:func:`monitor`); the wrench map; the direction and the
+projections on it (:func:`project`); the kinematics along u and the environment filter
+(:func:`estimate_object`); the health verdict and the output records (:func:`write_outputs`).
+The Pinocchio calls that feed it (M, C, g, the contact Jacobian and pose) are made by the
+Pipeline before the call, and the sample's joints are already in model order.
+:func:`pipeline_run` steps a block of samples.
 """
 from __future__ import annotations
 
 import math
-from typing import NamedTuple
 
 import numpy as np
 
-from . import (compensation, contact, direction, environment, health, kinematics,
-               object_models, observer, outputs, wrench)
+from . import (
+    compensation,
+    contact,
+    direction,
+    environment,
+    health,
+    kinematics,
+    object_models,
+    observer,
+    outputs,
+    storage,
+    wrench,
+)
 from .compiled import entry_kernel, kernel
 from .health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING
 from .outputs import EV_BEGIN, EV_CHANGE, EV_END, EV_NONE, EV_RESTARTED, EV_RESUMED
-from .records import B1, F8, I8, record
 
 STEP_DONE, STEP_NON_FINITE_WRENCH, STEP_FILTER_REFUSED, STEP_INVALID_SAMPLE = 0, 1, 2, 3
-
-PARAMS = record(
-    "pipeline parameters",
-    ("startup_s", F8, "s", "bias-learning phase after start or reset (bias.startup)"),
-    ("forget_after_s", F8, "s", "a contact regained later than this after one ended is new"),
-)
-STATE = record(
-    "pipeline state",
-    ("started", B1, "", "a sample has been processed since the last reset"),
-    ("last_time_s", F8, "s", "stamp of the last processed sample"),
-    ("has_valid", B1, "", "a sample passed validation since the last reset"),
-    ("last_valid_s", F8, "s", "stamp of the last sample that passed validation"),
-    ("learning_pending", B1, "", "a bias-learning phase starts at the next sample"),
-    ("learning_start_s", F8, "s", "start of the current bias-learning phase"),
-    ("learning_s", F8, "s", "length of the current bias-learning phase"),
-    ("ever_contact", B1, "", "a contact began since the last reset"),
-    ("contact_end_s", F8, "s", "when the last contact ended"),
-    ("quiet_position_m", F8, "m", "position along u where the residual was last quiet"),
-    ("dt_average_s", F8, "s", "running mean sample interval"),
-    ("point_valid", B1, "", "point holds the previous contact point"),
-    ("point", F8, (3,), "m", "previous contact point, world frame"),
-    ("recent_rejects", I8, "", "samples rejected over the second before this one (caller)"),
-    ("stamp_from_receive", B1, "", "this sample's stamp is its receive time (caller)"),
-)
-JOINTS = record(
-    "pipeline, per joint",
-    ("residual", F8, "N·m or N", "the observer's output with the bias removed"),
-)
-
-
-class KinematicsRecords(NamedTuple):
-    params: np.ndarray        # (1,) kinematics.PARAMS
-    state: np.ndarray         # (1,) kinematics.STATE
-    ring: np.ndarray          # (2n,) kinematics.RING
-    coefficients: np.ndarray  # (n,) kinematics.COEFFICIENTS
-
-
-class Storage(NamedTuple):
-    """Every stage's records: what :func:`pipeline_step` reads and changes."""
-
-    params: np.ndarray                      # (1,) PARAMS
-    state: np.ndarray                       # (1,) STATE
-    joints: np.ndarray                      # (nv,) JOINTS
-    observer: observer.ObserverRecords
-    friction: compensation.FrictionRecords
-    bias: compensation.BiasRecords
-    contact: contact.ContactRecords
-    wrench: np.ndarray                      # (1,) wrench.PARAMS
-    direction_params: np.ndarray            # (1,) direction.PARAMS
-    direction_state: np.ndarray             # (1,) direction.STATE
-    kinematics: KinematicsRecords
-    model: object_models.ModelRecords
-    filter: environment.FilterRecords
-    health: np.ndarray                      # (1,) health.PARAMS
-
-
-def new_storage(nv: int, m: int, nis_window: int, matching_window: int) -> Storage:
-    """Zeroed records for nv joints and m object parameters (the Pipeline configures them;
-    the kinematics are a placeholder until the nominal sample interval is known)."""
-    fr = environment.FilterRecords(
-        environment.PARAMS.one(), environment.PARAMETER_PARAMS.many(m),
-        environment.STATE.one(), environment.PARAMETERS.many(m), np.zeros((m, m)),
-        environment.NIS_BOUNDS.many(nis_window + 1), np.zeros(nis_window),
-        np.zeros(matching_window), environment.OUTPUT.one(),
-        environment.PARAMETER_OUTPUT.many(m))
-    return Storage(
-        PARAMS.one(), STATE.one(), JOINTS.many(nv), observer.new_records(nv),
-        compensation.FrictionRecords(compensation.FRICTION_PARAMS.one(),
-                                     compensation.FRICTION_JOINTS.many(nv)),
-        compensation.BiasRecords(compensation.BIAS_PARAMS.one(), compensation.BIAS_STATE.one(),
-                                 compensation.BIAS_JOINTS.many(nv)),
-        contact.ContactRecords(contact.PARAMS.one(), contact.STATE.one(),
-                               contact.JOINTS.many(nv)),
-        wrench.PARAMS.one(), direction.PARAMS.one(), direction.STATE.one(),
-        KinematicsRecords(*kinematics.placeholder()),
-        object_models.ModelRecords(object_models.PARAMS.one(), object_models.STATE.one(),
-                                   object_models.ROW.many(m)),
-        fr, health.PARAMS.one())
 
 
 @kernel
@@ -125,12 +57,11 @@ def validate(s, t, q, v, effort):
 def observe(st, t, v, effort, M, C, g):
     """Momentum observer on tau = effort - friction: p = M v, beta = tau + C^T v - g; the
     residual with the bias removed in ``st.joints.residual``. Returns True on a restart."""
-    js = st.joints
     nv = v.shape[0]
-    fr = st.friction
+    fp = st.params[0].friction
     beta = np.empty(nv)
-    if fr.params[0].enabled:
-        compensation.friction_torque(beta, v, fr.joints, fr.params[0].smoothing_velocity)
+    if fp.enabled:
+        compensation.friction_torque(beta, v, st.joints["friction"], fp.smoothing_velocity)
         for j in range(nv):
             beta[j] = effort[j] - beta[j]
     else:
@@ -145,12 +76,12 @@ def observe(st, t, v, effort, M, C, g):
             p += M[j, i] * v[i]
         beta[j] = beta[j] + ctv - g[j]
         momentum[j] = p
-    ob = st.observer
-    restarted = observer.observer_step(ob.params[0], ob.state[0], ob.joint_params, ob.joints, t,
+    restarted = observer.observer_step(st.params[0].observer, st.state[0].observer,
+                                       st.joints["observer_params"], st.joints["observer"], t,
                                        momentum, beta, M)
-    bias = st.bias.joints
+    joints = st.joints
     for j in range(nv):
-        js[j].residual = ob.joints[j].torque + bias[j].value
+        joints[j].pipeline.residual = joints[j].observer.torque + joints[j].bias.value
     return restarted
 
 
@@ -158,13 +89,14 @@ def observe(st, t, v, effort, M, C, g):
 def monitor(st, t, dt):
     """Bias learning (start-up phase, then quiet free motion), the contact monitor and the
     residual's noise learning. Returns (phase, contact event, contact level)."""
-    s = st.state[0]
-    nv = st.joints.shape[0]
-    bp, bs, bj = st.bias.params[0], st.bias.state[0], st.bias.joints
-    cp, cs, cj = st.contact.params[0], st.contact.state[0], st.contact.joints
+    s = st.state[0].pipeline
+    joints = st.joints
+    nv = joints.shape[0]
+    bp, bs, bj = st.params[0].bias, st.state[0].bias, joints["bias"]
+    cp, cs, cj = st.params[0].contact, st.state[0].contact, joints["contact"]
     raw = np.empty(nv)
     for j in range(nv):
-        raw[j] = st.observer.joints[j].torque
+        raw[j] = joints[j].observer.torque
     scratch = np.empty(nv)
     elapsed = t - s.learning_start_s
     startup = s.learning_s
@@ -181,7 +113,7 @@ def monitor(st, t, dt):
         return PHASE_LEARNING, contact.EVENT_NONE, 0.0
     residual = np.empty(nv)
     for j in range(nv):
-        residual[j] = st.joints[j].residual
+        residual[j] = joints[j].pipeline.residual
     level, event = contact.contact_step(cp, cs, cj, t, residual)
     if cs.in_contact:
         return PHASE_CONTACT, event, level
@@ -189,11 +121,11 @@ def monitor(st, t, dt):
     # building up, and must not be learned as bias or noise; nor right after a contact ended
     # (it may resume: a held object's force passing through zero)
     if (not cs.pending and level < cp.exit_level
-            and t - s.contact_end_s > st.params[0].forget_after_s):
+            and t - s.contact_end_s > st.params[0].pipeline.forget_after_s):
         compensation.bias_update(bp, bs, bj, t, dt, raw)
         for j in range(nv):
-            st.joints[j].residual = raw[j] + bj[j].value
-            residual[j] = st.joints[j].residual
+            joints[j].pipeline.residual = raw[j] + bj[j].value
+            residual[j] = joints[j].pipeline.residual
         if contact.gather_quiet(cs, cj, dt, residual) >= cp.learn_interval_s:
             contact.learn_quiet(cp, cs, cj, 1.0, scratch)
     elif cs.quiet_count > 0:
@@ -207,7 +139,7 @@ def monitor(st, t, dt):
 def project(st, out, dt, J, v, H):
     """Direction u after this sample and the projections on it: returns (force along u N,
     velocity along u m/s, displacement along u since the last sample m)."""
-    s = st.state[0]
+    s = st.state[0].pipeline
     nv = v.shape[0]
     pv0 = J[0, 0] * v[0]
     pv1 = J[1, 0] * v[0]
@@ -218,8 +150,8 @@ def project(st, out, dt, J, v, H):
         pv2 += J[2, j] * v[j]
     point_velocity = np.empty(3)
     point_velocity[0], point_velocity[1], point_velocity[2] = pv0, pv1, pv2
-    ds = st.direction_state[0]
-    direction.direction_update(st.direction_params[0], ds, dt, H[:3, :3], point_velocity)
+    ds = st.state[0].direction
+    direction.direction_update(st.params[0].direction, ds, dt, H[:3, :3], point_velocity)
     u0, u1, u2 = ds.u[0], ds.u[1], ds.u[2]
     f = out.force
     force_along = u0 * f[0] + u1 * f[1] + u2 * f[2]
@@ -240,9 +172,9 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
     environment filter. Returns (event, code): the event possibly changed (a resumed contact, a
     change the filter declared), code STEP_DONE or STEP_FILTER_REFUSED (its reason in
     out.filter_code)."""
-    s = st.state[0]
-    kp, ks = st.kinematics.params[0], st.kinematics.state[0]
-    ring = st.kinematics.ring
+    s = st.state[0].pipeline
+    kp, ks = st.params[0].kinematics, st.state[0].kinematics
+    ring = st.ring
     out.filter_code = outputs.FILTER_NOT_UPDATED
     out.regained = False
     out.change = 0
@@ -251,38 +183,38 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
     if not kp.ready:
         return event, STEP_DONE
     if event == EV_BEGIN:
-        if not s.ever_contact or t - s.contact_end_s > st.params[0].forget_after_s:
+        if not s.ever_contact or t - s.contact_end_s > st.params[0].pipeline.forget_after_s:
             # a new contact: x from where the residual last was quiet (the contact began there,
             # before the monitor could tell); estimates uncertain again
             kinematics.kinematics_start_contact(ks, ring, s.quiet_position_m)
-            st.model.state[0].filtered = False
+            st.state[0].model.filtered = False
             if s.ever_contact:
-                environment.filter_inflate(st.filter, environment.CHANGE_REGAINED)
+                environment.filter_inflate(_filter(st), environment.CHANGE_REGAINED)
                 out.regained = True
         else:
             event = EV_RESUMED
         s.ever_contact = True
-    kinematics.kinematics_push(kp, ks, ring, st.kinematics.coefficients, t, dx, velocity_along,
+    kinematics.kinematics_push(kp, ks, ring, st.coefficients, t, dx, velocity_along,
                                force_along)
     if phase != PHASE_CONTACT:
-        if level < st.contact.params[0].exit_level:
+        if level < st.params[0].contact.exit_level:
             s.quiet_position_m = ks.position_m
     else:
         full, acc, vel, pos, force, time = kinematics.kinematics_centre(kp, ks, ring)
         if full:
-            row = st.model.row
-            object_models.measurement_row(st.model.params[0], st.model.state[0], row, dt, acc,
+            row = st.parameters["row"]
+            object_models.measurement_row(st.params[0].model, st.state[0].model, row, dt, acc,
                                           vel, pos)
             h = np.empty(row.shape[0])
             for i in range(row.shape[0]):
                 h[i] = row[i].regressor
             out.filter_time_s = time
             out.filter_force = force
-            code = environment.filter_update(st.filter, time, h, force)
+            code = environment.filter_update(_filter(st), time, h, force)
             out.filter_code = code
             if code != environment.UPDATED:
                 return event, STEP_FILTER_REFUSED
-            fo = st.filter.output[0]
+            fo = st.state[0].filter_output
             out.change = fo.change
             out.change_g = fo.change_g
             if fo.change != 0:
@@ -296,24 +228,24 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
 @kernel
 def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condition):
     """The sample's output records and its health verdict."""
-    s = st.state[0]
-    fr = st.filter
-    fs, fo = fr.state[0], fr.output[0]
+    s = st.state[0].pipeline
+    fs, fo = st.state[0].filter, st.state[0].filter_output
+    prm = st.parameters
     m = out_params.shape[0]
     if fs.samples == 0:   # no update since the last reset: the prior
         for i in range(m):
-            out_params[i].value = fr.parameter_params[i].prior_mean
-            out_params[i].std = fr.parameter_params[i].prior_std
+            out_params[i].value = prm[i].filter_params.prior_mean
+            out_params[i].std = prm[i].filter_params.prior_std
             out_params[i].excited = False
             out_params[i].converged = False
         out.nis = out.nis_average = out.nis_lower = 0.0
         out.nis_upper = math.inf
-        out.measurement_std = fr.params[0].measurement_std0
+        out.measurement_std = st.params[0].filter.measurement_std0
         all_converged = False
         samples = 0
     else:
         for i in range(m):
-            po = fr.parameter_output[i]
+            po = prm[i].filter_output
             out_params[i].value = po.value
             out_params[i].std = po.std
             out_params[i].excited = po.excited
@@ -335,7 +267,7 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
     out.contact_level = level
     out.jacobian_condition = condition
     out.rate_hz = rate
-    bs = st.bias.state[0]
+    bs = st.state[0].bias
     out.bias_age_s = t - bs.last_learned_s if bs.learned else math.inf
     out.phase = phase
     out.event = event
@@ -343,27 +275,36 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
     out.filter_samples = samples
     out.startup_remaining_s = s.learning_s - elapsed if elapsed < s.learning_s else 0.0
     out.since_contact_end_s = t - s.contact_end_s if s.ever_contact else math.inf
-    out.observer_restarts = st.observer.state[0].restarts
+    out.observer_restarts = st.state[0].observer.restarts
+    joints = st.joints
     for j in range(out_joints.shape[0]):
-        raw = st.observer.joints[j].torque
-        out_joints[j].external_torque = st.joints[j].residual
-        out_joints[j].bias = st.bias.joints[j].value
-        out_joints[j].raw_residual = raw
+        out_joints[j].external_torque = joints[j].pipeline.residual
+        out_joints[j].bias = joints[j].bias.value
+        out_joints[j].raw_residual = joints[j].observer.torque
     out.level, out.state, out.findings = health.health_verdict(
-        st.health[0], phase, out.since_contact_end_s, all_converged, out.nis_average,
+        st.params[0].health, phase, out.since_contact_end_s, all_converged, out.nis_average,
         out.nis_lower, out.nis_upper, samples, condition, s.recent_rejects, rate,
         s.stamp_from_receive)
 
 
 @kernel
+def _filter(st):
+    """The environment filter's records (views of the storage), as its functions take them."""
+    return environment.FilterRecords(
+        st.params["filter"], st.parameters["filter_params"], st.state["filter"],
+        st.parameters["filter"], st.covariance, st.nis_bounds, st.nis_ring, st.match_ring,
+        st.state["filter_output"], st.parameters["filter_output"])
+
+
+@kernel
 def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
-    s = st.state[0]
+    s = st.state[0].pipeline
     if not validate(s, t, q, v, effort):
         return STEP_INVALID_SAMPLE
     if s.learning_pending:
         s.learning_pending = False
         s.learning_start_s = t
-        s.learning_s = st.params[0].startup_s
+        s.learning_s = st.params[0].pipeline.startup_s
     dt = t - s.last_time_s if s.started else 0.0
 
     restarted = observe(st, t, v, effort, M, C, g)
@@ -374,13 +315,14 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
     elif contact_event == contact.EVENT_END:
         event = EV_END
 
-    contact.weights(st.contact.state[0], st.contact.joints)
+    contact_joints = st.joints["contact"]
+    contact.weights(st.state[0].contact, contact_joints)
     residual = np.empty(v.shape[0])
     for j in range(v.shape[0]):
-        residual[j] = st.joints[j].residual
-    wp = st.wrench[0]
+        residual[j] = st.joints[j].pipeline.residual
+    wp = st.params[0].wrench
     wrench6 = np.empty(6)
-    condition = wrench.wrench_solve(wp, wrench6, J, residual, st.contact.joints)
+    condition = wrench.wrench_solve(wp, wrench6, J, residual, contact_joints)
     check = wrench6[0] + wrench6[1] + wrench6[2]
     if wp.full_wrench:
         check += wrench6[3] * wrench6[3] + wrench6[4] * wrench6[4] + wrench6[5] * wrench6[5]
@@ -410,33 +352,32 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
     return STEP_DONE
 
 
-def _signature_types():
+def _types():
     """Numba types of the step's arguments, from prototype records (any sizes: the types do
     not depend on them)."""
     import numba
 
-    st = new_storage(1, object_models.ALONG_DIRECTION.size, 1, 1)
     f64 = numba.float64
-    c1, c2 = numba.types.Array(f64, 1, "C"), numba.types.Array(f64, 2, "C")
-    a2 = numba.types.Array(f64, 2, "A")
-    rec = numba.typeof(outputs.SAMPLE.one())
-    return (numba.typeof(st), f64, c1, c1, c1, a2, a2, c1, a2, a2, rec,
-            numba.typeof(outputs.PARAMETER.many(1)), numba.typeof(outputs.JOINT.many(1)))
+    return (numba.typeof(storage.new_storage(1, object_models.ALONG_DIRECTION.size)), f64,
+            numba.types.Array(f64, 1, "C"), numba.types.Array(f64, 2, "A"))
 
 
 def _step_signature():
     import numba
-    (st, f64, c1, _, _, a2, _, _, _, _, rec, prm, jnt) = _signature_types()
-    return numba.int64(st, f64, c1, c1, c1, a2, a2, c1, a2, a2, rec, prm, jnt)
+    st, f64, c1, a2 = _types()
+    out = numba.typeof(outputs.SAMPLE.one())
+    out_params = numba.typeof(outputs.PARAMETER.many(1))
+    out_joints = numba.typeof(outputs.JOINT.many(1))
+    return numba.int64(st, f64, c1, c1, c1, a2, a2, c1, a2, a2, out, out_params, out_joints)
 
 
 @entry_kernel(_step_signature)
 def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
-    """One sample through every stage (see the module docstring). st: :class:`Storage`;
+    """One sample through every stage (see the module docstring). st: :class:`~.storage.Storage`;
     t: stamp, s; q (nq,) configuration, v, effort (nv,) in model order; M (nv, nv), C (nv, nv)
     Coriolis matrix, g (nv,), J (6, nv) world-aligned contact Jacobian, H (4, 4) contact-frame
-    pose, all from Pinocchio; out: (1,) outputs.SAMPLE, out_params (m,) outputs.PARAMETER,
-    out_joints (nv,) outputs.JOINT.
+    pose, all from Pinocchio; out (1,) outputs.SAMPLE, out_params (m,) outputs.PARAMETER and
+    out_joints (nv,) outputs.JOINT receive the sample's outputs.
 
     Returns STEP_DONE (outputs filled), STEP_INVALID_SAMPLE (a non-finite number or a stamp not
     after the last valid one: nothing changed; samples.SampleValidator says which),
@@ -447,14 +388,16 @@ def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joint
 
 def _run_signature():
     import numba
-    (st, f64, c1, _, _, _, _, _, _, _, rec, prm, jnt) = _signature_types()
+    st, _, c1, _ = _types()
     c2 = numba.types.Array(numba.float64, 2, "C")
     c3 = numba.types.Array(numba.float64, 3, "C")
     b1 = numba.types.Array(numba.boolean, 1, "C")
-    rows = numba.types.Array(rec.dtype, 1, "C")
-    prm2 = numba.types.Array(prm.dtype, 2, "C")
+    rows = numba.types.Array(numba.from_dtype(outputs.SAMPLE.dtype), 1, "C")
+    parameter_rows = numba.types.Array(numba.from_dtype(outputs.PARAMETER.dtype), 2, "C")
+    out_joints = numba.typeof(outputs.JOINT.many(1))
     return numba.types.UniTuple(numba.int64, 2)(
-        st, numba.int64, c1, c2, c2, c2, c3, c3, c2, c3, c3, b1, c1, rows, prm2, jnt)
+        st, numba.int64, c1, c2, c2, c2, c3, c3, c2, c3, c3, b1, c1, rows, parameter_rows,
+        out_joints)
 
 
 @entry_kernel(_run_signature)
@@ -472,7 +415,7 @@ def pipeline_run(st, start, T, Q, V, E, M, C, G, J, H, from_receive, reject_time
     k = T.shape[0]
     first = 0
     m = reject_times.shape[0]
-    s = st.state[0]
+    s = st.state[0].pipeline
     for i in range(start, k):
         t = T[i]
         while first < m and reject_times[first] < t - 1.0:

@@ -143,8 +143,9 @@ class WrenchMap:
     """Maps external joint torque (nv,) N·m to the contact wrench by damped least squares.
     damping: lambda (m in force mode)."""
 
-    def __init__(self, full_wrench: bool, damping: float, condition_limit: float = 200.0):
-        self.params = PARAMS.one()
+    def __init__(self, full_wrench: bool, damping: float, condition_limit: float = 200.0,
+                 params: np.ndarray | None = None):
+        self.params = PARAMS.one() if params is None else params
         p = self.params[0]
         p["full_wrench"], p["damping_squared"] = bool(full_wrench), damping * damping
         p["condition_limit"] = condition_limit
