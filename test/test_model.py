@@ -12,12 +12,15 @@ from interaction_estimator.core.settings import STANDARD_GRAVITY
 # raises the link), parameters chosen for the test.
 M1, M2, L1, LC1, LC2 = 1.3, 0.9, 0.55, 0.27, 0.21
 I1, I2 = 0.031, 0.017  # kg m^2 about the axis through each centre of mass, normal to the plane
+# (the other two moments, 1e-3 and the same value again, make each link a physical body: the
+# inertial check refuses moments that violate the triangle inequalities; they play no part in
+# motion in the plane)
 
 
 def planar_urdf():
     def link(name, m, lc, i):
         return (f'<link name="{name}"><inertial><origin xyz="{lc} 0 0"/><mass value="{m}"/>'
-                f'<inertia ixx="1e-3" ixy="0" ixz="0" iyy="{i}" iyz="0" izz="1e-3"/>'
+                f'<inertia ixx="1e-3" ixy="0" ixz="0" iyy="{i}" iyz="0" izz="{i}"/>'
                 f'</inertial></link>')
     return (
         '<robot name="planar_elbow"><link name="ground"/>'

@@ -18,6 +18,7 @@ import pinocchio as pin
 
 from .samples import Sample, SampleRejected
 from .settings import STANDARD_GRAVITY
+from .urdf_check import inertial_problems
 
 
 class ModelError(ValueError):
@@ -127,6 +128,8 @@ class RobotModel:
     def __init__(self, urdf: str, contact_frame: str, gravity: float = STANDARD_GRAVITY):
         if not isinstance(urdf, str) or "<robot" not in urdf:
             raise ModelError("robot description is not URDF text: no <robot> element found")
+        if problems := inertial_problems(urdf):  # unreadable values would be read as 0
+            raise ModelError("URDF has unusable inertial values: " + "; ".join(problems))
         try:
             self.model = pin.buildModelFromXML(urdf)
         except Exception as exc:  # Pinocchio raises ValueError/RuntimeError with the parser text
