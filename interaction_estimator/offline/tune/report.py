@@ -4,7 +4,7 @@
 self-contained page (inline SVG from matplotlib, inline CSS, no scripts):
 
 * what was held out: with several bags that have contact, the last of them; with one such bag
-  the last :data:`~.tune.HELD_OUT_FRACTION` of its contact time (bags without contact, free
+  the last :data:`~.common.HELD_OUT_FRACTION` of its contact time (bags without contact, free
   motion only, are never held out: they have nothing to check the filter on);
 * the check settings: the same procedure re-fitted without the held-out data (a whole bag held
   out: bias, friction and noise from the other bags; part of a bag: the environment filter's
@@ -15,7 +15,7 @@ self-contained page (inline SVG from matplotlib, inline CSS, no scripts):
   them), and the time-averaged normalized innovation squared with its two-sided 95 % chi-square
   interval (Bar-Shalom, Li and Kirubarajan 2001), both over every update and over every m-th
   update (m: the decimation at which the innovations were found white, see
-  :func:`~.tune.fit_filter_noise`), since the chi-square interval assumes independent terms;
+  :func:`~.filter_noise.fit_filter_noise`), since the chi-square interval assumes independent terms;
 * plots of force, parameter estimates and NIS for both settings, and the tables of what was
   identified and where it came from.
 """
@@ -30,11 +30,16 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
-from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
-from ..core.settings import Settings
-from .tune import (CONTACT, FREE_ONLY_USE, HELD_OUT_FRACTION, LEARNING, Recording, Trace,
-                   TuneResult, bag_settings, build_entries, fit_filter_noise, identify, replay_filter,
-                   run_pass, steady_mask)
+from ...core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ...core.settings import Settings
+from .common import CONTACT, FREE_ONLY_USE, HELD_OUT_FRACTION, LEARNING
+from .entries import build_entries
+from .filter_noise import fit_filter_noise, replay_filter
+from .friction import identify
+from .passes import Trace, run_pass
+from .procedure import TuneResult, bag_settings
+from .recordings import Recording
+from .segments import steady_mask
 
 # our colours: base settings, tuned settings, reference, truth, page
 BASE_COLOUR = "#a06a1b"

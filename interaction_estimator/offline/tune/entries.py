@@ -1,0 +1,223 @@
+"""The tuned settings with their comments, and the parameter file written from them."""
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Iterable, Mapping, Sequence
+
+from ...core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ...core.settings import NODE_NAME, SPEC_BY_NAME, SPECS, Settings, nest
+from .common import FREE_ONLY_USE, PROG, _clamp
+from .filter_noise import NoiseFit
+from .friction import Identification
+from .recordings import Recording
+
+if TYPE_CHECKING:
+    from .procedure import TuneResult
+
+
+@dataclass
+class TunedEntry:
+    """One written setting: value, and the comment lines saying where it came from."""
+
+    name: str
+    value: Any
+    comment: list[str]
+
+
+
+# ============================================================================================
+# entries and their comments
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.4g}"
+
+
+def _round(x: float) -> float:
+    """A tuned number to 6 significant digits (far below its uncertainty), as float."""
+    return float(f"{float(x):.6g}")
+
+
+def build_entries(ident: Identification, noise: NoiseFit, base: Settings,
+                  joints: Sequence[str], recs: Sequence[Recording]) -> dict[str, TunedEntry]:
+    """The tuned settings with comment lines (ASCII) stating source and confidence."""
+    last = len(recs) - 1
+    free_desc = (f"{ident.free_time:.2f} s of free motion in {len(recs)} bag(s)")
+    entries: dict[str, TunedEntry] = {}
+    entries["joint_names"] = TunedEntry("joint_names", list(joints),
+                                        ["order of the per-joint lists below (the URDF's)"])
+    lines = [f"tuned: least squares on the observer residual, {free_desc};",
+             f"value of the last bag ({Path(recs[last].name).name}), +/- 95 % interval:"]
+    lines += [f"  {j.name}: {_fmt(j.bias[last])} +/- {_fmt(j.bias_ci[last])}"
+              + (f" (bags: {', '.join(_fmt(b) for b in j.bias)})" if len(recs) > 1 else "")
+              for j in ident.joints]
+    entries["bias.initial"] = TunedEntry("bias.initial",
+                                         [_round(b) for b in ident.bias_of_bag(last)], lines)
+    if base["effort_side"] == "motor":
+        for key, attr, ci_attr, unit in (("friction.viscous", "viscous", "viscous_ci",
+                                          "N.m.s/rad"),
+                                         ("friction.coulomb", "coulomb", "coulomb_ci", "N.m")):
+            lines = [f"tuned: least squares on the observer residual, {free_desc}; "
+                     f"{unit}, +/- 95 % interval:"]
+            for j in ident.joints:
+                if j.friction_identified:
+                    lines.append(f"  {j.name}: {_fmt(getattr(j, attr))} +/- "
+                                 f"{_fmt(getattr(j, ci_attr))}")
+                else:
+                    lines.append(f"  {j.name}: {_fmt(getattr(j, attr))} kept from the base "
+                                 f"({j.friction_note})")
+            entries[key] = TunedEntry(key, [_round(max(float(getattr(j, attr)), 0.0))
+                                            for j in ident.joints], lines)
+    for key, value, label, attr in (
+            ("observer.effort_noise", ident.effort_noise, "effort", "effort_noise"),
+            ("observer.velocity_noise", ident.velocity_noise, "velocity", "velocity_noise")):
+        per = [getattr(j, attr) for j in ident.joints]
+        entries[key] = TunedEntry(key, _round(_clamp(key, value)), [
+            f"tuned: median over joints of the {label} noise (second differences of "
+            f"{free_desc}); per joint {min(per):.3g} .. {max(per):.3g}"])
+    lo, hi = noise.measurement_interval
+    entries["filter.measurement_std"] = TunedEntry(
+        "filter.measurement_std",
+        _round(_clamp("filter.measurement_std", noise.measurement_std)),
+        [f"tuned: innovation covariance matching (mean NIS = 1) over {noise.updates} contact "
+         f"updates ({noise.contact_time:.2f} s; the first {noise.onset:.3f} s of each contact,"
+         f" the impact, left out), 95 % interval {_interval(lo, hi)} N"]
+        + (["each bag alone: " + ", ".join(f"{_fmt(v)} N" if math.isfinite(v) else "no contact"
+                                            for v in noise.per_bag_std)]
+           if len(noise.per_bag_std) > 1 else []))
+    entries["filter.noise_adaptation"] = TunedEntry("filter.noise_adaptation", "fixed", [
+        "tuned: the measurement noise above was identified from the data; online adaptation "
+        f"(base: {base['filter.noise_adaptation']!r}) would move it during transients"])
+    verb = "tuned" if noise.tuned.any() else "checked, base values kept"
+    lines = [f"{verb}: maximum likelihood of the filter run on every {noise.decimation}th "
+             f"of {noise.updates} contact updates ({noise.contact_time:.2f} s), 95 % "
+             "likelihood-ratio intervals:"]
+    for i, (p, u) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
+        unit = u.replace("·", ".") + "/sqrt(s)"
+        if noise.tuned[i]:
+            lines.append(f"  {p}: {_fmt(noise.process_std[i])} {unit} "
+                         f"({_interval(*noise.process_interval[i])})"
+                         + (f": {noise.notes[i]}" if noise.notes[i] else ""))
+        else:
+            lines.append(f"  {p}: {_fmt(noise.process_std[i])} {unit}: {noise.notes[i]}")
+    entries["filter.process_std"] = TunedEntry(
+        "filter.process_std",
+        [_round(_clamp_elem("filter.process_std", v)) for v in noise.process_std],
+        lines)
+    return entries
+
+
+def _clamp_elem(name: str, v: float) -> float:
+    """One element of a float-array setting, clipped into its allowed range."""
+    return _clamp(name, float(v))
+
+
+def _interval(lo: float, hi: float) -> str:
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return "not determined"
+    return f"{_fmt(lo)} .. {_fmt(hi)}"
+
+
+# ============================================================================================
+# the parameter file
+
+
+def _yaml_scalar(value: Any) -> str:
+    """One value as ROS 2 parameter YAML that PyYAML and rcl read with the same type."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            raise ValueError(f"non-finite value {value!r}")  # Settings never holds one
+        text = repr(value)
+        if "e" in text and "." not in text.split("e")[0]:
+            mant, exp = text.split("e")
+            text = f"{mant}.0e{exp}"
+        return text
+    if isinstance(value, str):
+        return json.dumps(value, ensure_ascii=False)
+    raise TypeError(f"cannot write {value!r} as a parameter")
+
+
+def _yaml_value(name: str, value: Any) -> str:
+    if isinstance(value, list):
+        spec = SPEC_BY_NAME[name]
+        if spec.kind == "float_array":
+            value = [float(v) for v in value]
+        return "[" + ", ".join(_yaml_scalar(v) for v in value) + "]"
+    return _yaml_scalar(value)
+
+
+def parameter_yaml(settings: Settings, names: Iterable[str], entries: Mapping[str, TunedEntry],
+                   header: Sequence[str]) -> str:
+    """The parameter file text: the settings ``names`` (in registry order; empty lists, which
+    ROS 2 cannot type, are left out: they mean the default) with their values from
+    ``settings``, tuned entries preceded by their comments."""
+    wanted = set(names) | set(entries)
+    flat = {s.name: settings[s.name] for s in SPECS if s.name in wanted
+            and not (isinstance(settings[s.name], list) and not settings[s.name])}
+    lines = [f"# {h}" for h in header]
+    lines += [f"{NODE_NAME}:", "  ros__parameters:"]
+
+    def emit(tree: Mapping[str, Any], prefix: str, indent: int) -> None:
+        pad = " " * indent
+        for key, value in tree.items():
+            name = f"{prefix}{key}"
+            if isinstance(value, dict):
+                lines.append(f"{pad}{key}:")
+                emit(value, name + ".", indent + 2)
+                continue
+            entry = entries.get(name)
+            if entry is not None:
+                lines.extend(f"{pad}# {c}" for c in entry.comment)
+            lines.append(f"{pad}{key}: {_yaml_value(name, value)}")
+
+    emit(nest(flat), "", 4)
+    return "\n".join(lines) + "\n"
+
+
+def write_text_atomic(path: Path, text: str) -> None:
+    """Write ``text`` to a temporary file beside ``path``, then rename it into place."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".partial", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def file_header(result: TuneResult, base_source: str) -> list[str]:
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    lines = [f"written by `{PROG}` on {now}",
+             f"base: {base_source}",
+             "bags: " + ", ".join(result.bags),
+             f"free motion used: {result.identification.free_time:.2f} s; contact used: "
+             f"{result.noise.contact_time:.2f} s; pipeline passes: {result.passes}",
+             *([free_only_text(result)] if result.free_only else []),
+             "entries preceded by 'tuned:' (or 'checked') were identified from (or checked"
+             " against) these bags; the others come from "
+             "the base; settings not listed keep their defaults"]
+    lines += [f"warning: {w}" for w in result.warnings]
+    return lines
+
+
+def free_only_text(result: TuneResult) -> str:
+    """One line naming the bags without contact and what they were used for."""
+    names = ", ".join(Path(result.bags[b]).name for b in result.free_only)
+    return f"bags without contact ({FREE_ONLY_USE}): {names}"
+
+
