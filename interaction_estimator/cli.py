@@ -7,7 +7,8 @@ Subcommands (each one an entry of :data:`COMMANDS`; a new one is one more entry)
 * ``simulate SCENARIO --out BAG``: a built-in invented scenario written as a bag with its
   ground truth;
 * ``tune BAG [BAG ...] --out FILE``: bias, friction and noise levels identified from bags,
-  written as a parameter file.
+  written as a parameter file (and, from free motion, the robot's own dynamics as a URDF);
+* ``excitation --urdf FILE --out DIR``: the commissioning motion for that identification.
 
 Exit codes: 0 success; 2 a usage error or bad input (the message names the value and what was
 expected); 1 an unexpected failure (a defect: please report it with the traceback).
@@ -244,12 +245,20 @@ COMMANDS: tuple[Command, ...] = (
             _simulate_arguments, _simulate),
     Command("tune", "identify bias, friction and noise levels from bags; write a parameter file",
             lambda p: _tune().add_arguments(p), lambda a: _tune().run(a)),
+    Command("excitation", "write a commissioning motion (CSV and JointTrajectory YAML) that "
+                          "excites the robot's dynamics within its URDF's limits",
+            lambda p: _excitation().add_arguments(p), lambda a: _excitation().run(a)),
 )
 
 
 def _tune():
     from .offline import tune  # imported on use: it loads the whole pipeline
     return tune
+
+
+def _excitation():
+    from .offline import excitation  # imported on use
+    return excitation
 
 
 def build_parser() -> argparse.ArgumentParser:
