@@ -37,6 +37,7 @@ import numpy as np
 from ..io.bag import BagError, BagWriter, GroundTruth, RecordedBag, TopicNames
 from ..io.estimates import EstimateTable, ForceReference, summarize, write_csv
 from ..core.model import ModelError
+from ..io.description_file import resolve as resolve_description
 from ..core.pipeline import Pipeline
 from ..core.samples import Sample
 from ..core.settings import NODE_NAME, Settings, SettingsError, load_parameter_file
@@ -160,8 +161,10 @@ def load_settings(params: Path | None, truth: GroundTruth | None,
     return base, sources
 
 
-def load_urdf(urdf: Path | None, settings: Settings, bag: RecordedBag) -> tuple[str, str]:
-    """(URDF text, where it came from)."""
+def load_urdf(urdf: Path | None, settings: Settings, bag: RecordedBag,
+              params: Path | None = None) -> tuple[str, str]:
+    """(URDF text, where it came from): ``--urdf``, else ``robot_description_file`` (relative
+    to the parameter file that sets it), else the bag's own description."""
     if urdf is not None:
         try:
             return Path(urdf).read_text(encoding="utf-8"), f"file {str(urdf)}"
@@ -170,6 +173,7 @@ def load_urdf(urdf: Path | None, settings: Settings, bag: RecordedBag) -> tuple[
                               "expected a readable URDF file") from None
     path = settings["robot_description_file"]
     if path:
+        path = str(resolve_description(path, [params] if params is not None else []))
         try:
             return Path(path).read_text(encoding="utf-8"), f"robot_description_file {path}"
         except OSError as exc:
@@ -324,7 +328,7 @@ def replay(req: ReplayRequest) -> ReplayResult:
     with RecordedBag(req.bag, topics, req.reference_topic) as bag, StagedDir(out) as stage:
         truth = bag.truth()
         settings, sources = load_settings(req.params, truth, req.bag_settings)
-        urdf, urdf_source = load_urdf(req.urdf, settings, bag)
+        urdf, urdf_source = load_urdf(req.urdf, settings, bag, req.params)
         pipeline = Pipeline(settings, urdf)
         first = bag.samples()
         check_joint_names(pipeline, next(first), bag)

@@ -58,6 +58,7 @@ from ..core.compiled import CACHE_DIR
 from ..core.warmup import warm_up
 from ..core.health import ERROR, STALE, WARN
 from ..core.model import ModelError
+from ..io.description_file import resolve as resolve_description
 from .inputs import EffortMatcher, LatencyMeter, WarningThrottle
 from .messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
                             EnvironmentEncoder, JointStateReader, NodeFigures, StatusEncoder,
@@ -92,8 +93,10 @@ SPIN_TIMEOUT_S = 0.1        # s, executor wait per spin_once
 class EstimatorNode(Node):
     """The estimator as a ROS 2 node. Raises SettingsError if its parameters are invalid."""
 
-    def __init__(self, **node_kwargs: Any):
+    def __init__(self, parameter_files: Sequence[str] = (), **node_kwargs: Any):
         super().__init__(NODE_NAME, **node_kwargs)
+        self._parameter_files = tuple(parameter_files)  # robot_description_file is relative to
+        # the file that sets it
         self._throttle = WarningThrottle(self.get_logger().warning)
         self.settings = self._declare_settings()
         self.pipeline: Pipeline | None = None
@@ -231,6 +234,7 @@ class EstimatorNode(Node):
 
     # --- robot model -----------------------------------------------------------------------
     def _load_file(self, path: str) -> None:
+        path = str(resolve_description(path, self._parameter_files))
         try:
             text = Path(path).read_text(encoding="utf-8")
         except OSError as exc:
@@ -621,7 +625,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     node = None
     try:
         try:
-            node = EstimatorNode()
+            node = EstimatorNode(node_params.parameter_files(args))
         except SettingsError as exc:
             print(f"estimator_node: invalid parameters: {exc}", file=sys.stderr)
             return 2

@@ -137,11 +137,15 @@ def transform_matrix(rotation: np.ndarray, translation: np.ndarray) -> np.ndarra
     return T
 
 
-def consistency_violation(pi: np.ndarray, tolerance: float = 0.0) -> str:
+def consistency_violation(pi: np.ndarray, tolerance: float | None = None) -> str:
     """'' when the body is physically consistent (Traversaro et al. 2016): mass > 0, the
     inertia about the centre of mass positive semi-definite with principal moments satisfying
-    the triangle inequalities (each within ``tolerance`` kg·m²); else what is violated."""
+    the triangle inequalities (each within ``tolerance`` kg·m²; default 1e-12 of the trace of
+    the inertia about the origin: round-off of a body on the boundary, a flat plate or a
+    rod); else what is violated."""
     m, _c, i_c = summary(pi)
+    if tolerance is None:
+        tolerance = 1e-12 * abs(float(np.trace(tensor(pi[4:])))) + 1e-300
     if not m > 0:
         return f"mass {m:.6g} kg is not positive"
     a, b, c = np.sort(np.linalg.eigvalsh(0.5 * (i_c + i_c.T)))

@@ -4,7 +4,8 @@ smoothed, accelerations by a smoothing differentiator, thinned.
 Joint accelerations are never taken by double (or single) differencing of noisy signals: a
 Savitzky-Golay filter (Savitzky and Golay, Analytical Chemistry 36(8), 1964;
 ``scipy.signal.savgol_filter``, cubic, zero phase, so no lag offline) smooths positions,
-velocities and efforts and differentiates the velocity. All signals of a row go through the same
+velocities and efforts and differentiates the velocity, or the positions twice, per joint
+whichever the measured noise makes the more accurate (:func:`_derivatives`). All signals of a row go through the same
 filter, so that the model sees consistently filtered data (the common practice of filtering
 torques and states alike before identification, e.g. Gautier and Poignet, "Extended Kalman
 filtering and weighted least squares dynamic identification of robot", Control Engineering
@@ -24,7 +25,7 @@ from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 import numpy as np
-from scipy.signal import savgol_filter
+from scipy.signal import savgol_coeffs, savgol_filter
 
 from ...core.model import RobotModel
 from ...core.samples import Sample
@@ -146,6 +147,37 @@ def _even(run: RawRun) -> tuple[np.ndarray, ...]:
     return t, interp(run.angles), interp(run.velocity), interp(run.effort)
 
 
+def white_noise_std(x: np.ndarray) -> np.ndarray:
+    """Noise std (per column) of a signal smooth over three samples, from its second
+    differences: var(d2) = 6 sigma^2 for white noise (Rice, Ann. Statist. 1984). RMS, not a
+    robust scale: quantized signals (encoder counts) have mostly zero differences, whose
+    median would say "no noise"."""
+    d = np.diff(x, n=2, axis=0)
+    return np.sqrt(np.mean(d * d, axis=0) / 6.0) if len(d) else np.zeros(x.shape[1])
+
+
+def _derivatives(ang: np.ndarray, vel: np.ndarray, n: int, dt: float
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Smoothed velocity and acceleration per joint, each from the measured velocity or from
+    the positions, whichever the noise makes the more accurate: the white-noise level of each
+    signal (:func:`white_noise_std`) times the norm of the Savitzky-Golay coefficients that
+    turn it into the derivative (the noise gain). Encoders with fine counts give accelerations
+    far better from positions; velocities that are themselves differenced counts are noisy.
+    Returns (velocity, acceleration, from_positions (nv,) bool: the acceleration's source)."""
+    gains = {(src, d): float(np.linalg.norm(savgol_coeffs(n, POLYORDER, deriv=d, delta=dt)))
+             for src, d in (("q", 1), ("q", 2), ("v", 0), ("v", 1))}
+    sq, sv = white_noise_std(ang), white_noise_std(vel)
+    v_pos = sq * gains[("q", 1)] < sv * gains[("v", 0)]
+    a_pos = sq * gains[("q", 2)] < sv * gains[("v", 1)]
+    v = savgol_filter(vel, n, POLYORDER, axis=0)
+    a = savgol_filter(vel, n, POLYORDER, deriv=1, delta=dt, axis=0)
+    if v_pos.any():
+        v[:, v_pos] = savgol_filter(ang[:, v_pos], n, POLYORDER, deriv=1, delta=dt, axis=0)
+    if a_pos.any():
+        a[:, a_pos] = savgol_filter(ang[:, a_pos], n, POLYORDER, deriv=2, delta=dt, axis=0)
+    return v, a, a_pos
+
+
 def prepare(runs: Iterable[RawRun], robot: RobotModel, window: float = DEFAULT_WINDOW,
             counts: dict[str, int] | None = None) -> MotionData:
     """Filter, differentiate and thin the runs (see the module text). ``window`` s is the
@@ -169,9 +201,10 @@ def prepare(runs: Iterable[RawRun], robot: RobotModel, window: float = DEFAULT_W
                 ang = ang.copy()
                 ang[:, circle] = np.unwrap(ang[:, circle], axis=0)
             q = savgol_filter(ang, n, POLYORDER, axis=0)
-            v = savgol_filter(vel, n, POLYORDER, axis=0)
-            a = savgol_filter(vel, n, POLYORDER, deriv=1, delta=dt, axis=0)
             e = savgol_filter(eff, n, POLYORDER, axis=0)
+            v, a, from_pos = _derivatives(ang, vel, n, dt)
+            counts["from_positions"] = counts.get("from_positions", 0) + int(from_pos.sum())
+            counts["from_velocities"] = counts.get("from_velocities", 0) + int((~from_pos).sum())
             thinning = max(1, n // THIN_DIVISOR)
             keep = slice(n // 2, len(t) - n // 2, thinning)
             k = len(t[keep])

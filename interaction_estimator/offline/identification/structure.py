@@ -158,6 +158,10 @@ def build_layout(robot: RobotModel, urdf: str, tools: list[Tool] | None = None,
     for b in bodies:
         b.scale = prior_scales(b.link_urdf, layout, relative_spread)
     for tool in tools or []:
+        if tool.name in inertials or tool.name in frames:
+            raise ModelError(f"tool name {tool.name!r} is already a link of the URDF (written by "
+                             "an earlier identification?); expected a new name, or the URDF "
+                             "without it")
         frame = frames.get(tool.link)
         if frame is None:
             raise ModelError(f"tool link {tool.link!r} is not a link of the URDF; expected one "

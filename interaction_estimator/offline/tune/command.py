@@ -7,11 +7,18 @@ import sys
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
+import numpy as np
+
 from ...core.environment import PARAMETER_NAMES
 from ...core.model import ModelError
 from ...core.settings import SettingsError
 from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
-from .entries import _interval, file_header, write_text_atomic
+from ..identification import Tool
+from ..identification.signals import DEFAULT_WINDOW
+from ...io.description_file import resolve as resolve_description
+from .entries import (_interval, file_header, model_summary, point_at_model, urdf_header,
+                      write_text_atomic)
+from .model import ModelRequest
 from .procedure import TuneResult, tune
 from .recordings import Recording, read_bag
 
@@ -61,9 +68,37 @@ def explain(result: TuneResult) -> str:
                    f"  excited {100 * noise.excited_fraction[i]:.0f} %"
                    + (f"  ({_interval(*noise.process_interval[i])})" if noise.tuned[i] else "")
                    + (f"  {noise.notes[i]}" if noise.notes[i] else ""))
+    out += explain_model(r)
     for w in r.warnings:
         out.append(f"warning: {w}")
     return "\n".join(out)
+
+
+def explain_model(r: TuneResult) -> list[str]:
+    """The identified model, link by link, and the held-out free-motion residual per joint."""
+    if r.model is None:
+        return []
+    ident = r.model.identification
+    out = ["robot model identified from free motion:"]
+    out += [f"  {line}" for line in model_summary(r)]
+    out.append(f"  {'link':<24}{'status':<11}{'determined':>10}{'mass URDF':>11}"
+               f"{'identified':>12}{'+/-':>9}{'CoM moved':>11}{'+/-':>9}")
+    for link in ident.links:
+        moved = (float(np.linalg.norm(link.value[1:4] - link.urdf[1:4]))
+                 if link.kind == "link" else float(np.linalg.norm(link.value[1:4])))
+        ci = float(np.linalg.norm(link.half_width[1:4]))
+        def num(x: float, w: int) -> str:
+            return f"{x:{w}.4g}" if math.isfinite(x) else f"{'-':>{w}}"
+        out.append(f"  {link.name:<24}{link.status:<11}{link.determined:10.2f}"
+                   f"{num(link.urdf[0], 11)}{num(link.value[0], 12)}{num(link.half_width[0], 9)}"
+                   f"{num(moved, 11)}{num(ci, 9)}")
+    out.append("  (mass kg; 'CoM moved': distance in m from the URDF's centre of mass (a tool: "
+               "from its link's origin); +/-: 95 %; 'determined': of 10 parameters' worth)")
+    out.append(f"  {'joint':<24}{'residual URDF':>15}{'identified':>12}   (held-out, RMS, N.m or N)")
+    for j, name in enumerate(ident.joints):
+        out.append(f"  {name:<24}{ident.residual_before[j]:15.4g}{ident.residual_after[j]:12.4g}")
+    out += [f"  note: {n}" for n in ident.notes]
+    return out
 
 
 # ============================================================================================
@@ -72,7 +107,7 @@ def explain(result: TuneResult) -> str:
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """The ``tune`` subcommand's arguments."""
-    parser.add_argument("bags", nargs="+", metavar="BAG", type=Path,
+    parser.add_argument("bags", nargs="*", metavar="BAG", type=Path,
                         help="rosbag2 bags (directory, .mcap or .db3) of the robot moving freely "
                              "and then handling an object")
     parser.add_argument("--out", required=True, type=Path, metavar="FILE",
@@ -89,6 +124,61 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--topics", nargs="+", default=[], metavar="ROLE=TOPIC",
                         help="topic of a role: joint_states, joint_efforts, robot_description "
                              "(e.g. joint_states=/marten/joint_states)")
+    model = parser.add_argument_group(
+        "the robot's own dynamics", "identified from free motion and written as a URDF beside "
+        "--out (same name, .urdf), which the parameter file's robot_description_file then names")
+    model.add_argument("--free-motion", nargs="+", default=[], metavar="BAG", type=Path,
+                       help="bags in which the robot touched nothing from start to end (the "
+                            "commissioning motion of `interaction-estimator excitation`): used "
+                            "whole to identify the robot's dynamics, and for bias, friction and "
+                            "noise like the others")
+    model.add_argument("--tool-frame", metavar="LINK",
+                       help="a URDF link on which a tool or payload the URDF lacks is mounted: "
+                            "its mass, centre of mass and inertia are identified")
+    model.add_argument("--tool-mass", type=_nonnegative, default=0.0, metavar="KG",
+                       help="your guess of the tool's mass in kg (default: none)")
+    model.add_argument("--tool-name", default="tool", metavar="NAME",
+                       help="name of the tool's link in the written URDF (default 'tool')")
+    model.add_argument("--inertia-spread", type=_spread, default=0.5, metavar="FRACTION",
+                       help="how far the URDF's inertial values may be off, as a fraction of "
+                            "each link's own mass and size (one standard deviation of the prior;"
+                            " default 0.5); what the motion cannot tell stays as in the URDF")
+    model.add_argument("--smoothing", type=_window, default=DEFAULT_WINDOW, metavar="S",
+                       help="window in s of the smoothing differentiator that gives joint "
+                            f"accelerations (Savitzky-Golay, cubic; default {DEFAULT_WINDOW:g})")
+
+
+def _number(text: str) -> float:
+    try:
+        x = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not math.isfinite(x):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a finite number")
+    return x
+
+
+def _nonnegative(text: str) -> float:
+    x = _number(text)
+    if x < 0:
+        raise argparse.ArgumentTypeError(f"{x:g} kg is negative; expected a mass >= 0 kg")
+    return x
+
+
+def _spread(text: str) -> float:
+    x = _number(text)
+    if not 0 < x <= 10:
+        raise argparse.ArgumentTypeError(f"{x:g} is outside (0, 10]; expected a fraction such "
+                                         "as 0.5")
+    return x
+
+
+def _window(text: str) -> float:
+    x = _number(text)
+    if not 0 < x <= 2:
+        raise argparse.ArgumentTypeError(f"{x:g} s is outside (0, 2] s; expected a window such "
+                                         "as 0.05 s")
+    return x
 
 
 def _check_out(out: Path, report: Path | None) -> None:
@@ -108,7 +198,9 @@ def _check_out(out: Path, report: Path | None) -> None:
 
 def _load_inputs(args: argparse.Namespace) -> tuple[list[Recording], str, dict[str, Any], str]:
     from ...core.settings import load_parameter_file, parameters_from_yaml
-    recs = [read_bag(Path(b), args.topics) for b in args.bags]
+    if not args.bags and not args.free_motion:
+        raise TuneError("no bags given; expected BAG ... (and --free-motion BAG ...)")
+    recs = [read_bag(Path(b), args.topics) for b in list(args.bags) + list(args.free_motion)]
     params: dict[str, Any] = {}
     base_source = "defaults and the bags' recommended settings"
     if args.params is not None:
@@ -116,11 +208,14 @@ def _load_inputs(args: argparse.Namespace) -> tuple[list[Recording], str, dict[s
         params = parameters_from_yaml(Path(args.params).read_text(encoding="utf-8"),
                                       str(args.params))
         base_source = f"{args.params}"
-    urdf = _load_urdf(args.urdf, params, recs)
+    urdf = _load_urdf(args.urdf, params, recs, args.params)
     return recs, urdf, params, base_source
 
 
-def _load_urdf(urdf: Path | None, params: Mapping[str, Any], recs: Sequence[Recording]) -> str:
+def _load_urdf(urdf: Path | None, params: Mapping[str, Any], recs: Sequence[Recording],
+               params_file: Path | None = None) -> str:
+    """--urdf, else robot_description_file (relative to its parameter file), else the bags'
+    own description."""
     if urdf is not None:
         try:
             return Path(urdf).read_text(encoding="utf-8")
@@ -128,6 +223,7 @@ def _load_urdf(urdf: Path | None, params: Mapping[str, Any], recs: Sequence[Reco
             raise TuneError(f"URDF file {str(urdf)!r} cannot be read: {exc.strerror}") from None
     path = params.get("robot_description_file") or ""
     if path:
+        path = str(resolve_description(path, [params_file] if params_file else []))
         try:
             return Path(path).read_text(encoding="utf-8")
         except OSError as exc:
@@ -149,12 +245,21 @@ def run(args: argparse.Namespace) -> int:
     try:
         _check_out(Path(args.out), args.report)
         recs, urdf, params, base_source = _load_inputs(args)
-        result = tune(recs, urdf, params, log=lambda m: print(m, file=sys.stderr))
+        request = _model_request(args, len(recs))
+        result = tune(recs, urdf, params, log=lambda m: print(m, file=sys.stderr),
+                      model=request)
+        urdf_out = None
+        if result.model is not None:
+            urdf_out = Path(args.out).with_suffix(".urdf")
+            point_at_model(result, urdf_out.name, base_source)
         text = result.parameter_file(file_header(result, base_source))
         report_html = None
         if args.report is not None:
             from .report import build_tuning_report
             report_html = build_tuning_report(result, recs, urdf, params)
+        if result.model is not None and urdf_out is not None:
+            write_text_atomic(urdf_out, result.model.identification.urdf(
+                urdf, urdf_header(result, base_source)))
         write_text_atomic(Path(args.out), text)
         if report_html is not None:
             Path(args.report).mkdir(exist_ok=True)
@@ -164,9 +269,24 @@ def run(args: argparse.Namespace) -> int:
         print("no file written", file=sys.stderr)
         return EXIT_USAGE
     print(explain(result))
-    print(f"wrote {args.out}" + (f" and {Path(args.report) / REPORT_NAME}"
-                                 if args.report is not None else ""))
+    written = [str(args.out)] + ([str(urdf_out)] if urdf_out is not None else []) \
+        + ([str(Path(args.report) / REPORT_NAME)] if args.report is not None else [])
+    print("wrote " + ", ".join(written))
     return EXIT_OK
+
+
+def _model_request(args: argparse.Namespace, n_recs: int) -> ModelRequest | None:
+    """What of the robot's dynamics to identify (None: nothing asked)."""
+    first_free = n_recs - len(args.free_motion)
+    tools = ()
+    if args.tool_frame:
+        tools = (Tool(args.tool_name, args.tool_frame, args.tool_mass),)
+    elif args.tool_mass:
+        raise TuneError("--tool-mass without --tool-frame; expected --tool-frame LINK, the link "
+                        "the tool is mounted on")
+    request = ModelRequest(tuple(range(first_free, n_recs)), tools, args.inertia_spread,
+                           args.smoothing)
+    return request if request.wanted else None
 
 
 def main(argv: Sequence[str] | None = None) -> int:

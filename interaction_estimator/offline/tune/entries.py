@@ -10,6 +10,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Iterable, Mapping, Sequence
 
+import numpy as np
+
 from ...core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 from ...core.settings import NODE_NAME, SPEC_BY_NAME, SPECS, Settings, nest
 from .common import FREE_ONLY_USE, PROG, _clamp
@@ -221,3 +223,57 @@ def free_only_text(result: TuneResult) -> str:
     return f"bags without contact ({FREE_ONLY_USE}): {names}"
 
 
+
+
+# ============================================================================================
+# the identified model
+
+
+def model_summary(result: "TuneResult") -> list[str]:
+    """Lines (ASCII) saying what the identification used and found."""
+    model = result.model
+    if model is None:
+        return []
+    ident = model.identification
+    used = ", ".join(f"{Path(result.bags[i]).name} ({how}, {sec:.1f} s)"
+                     for i, how, sec in model.sources)
+    changed = [r.name for r in ident.links if r.kind == "link" and r.status == "identified"]
+    kept = [r.name for r in ident.links if r.status == "kept"]
+    before = float(np.sqrt(np.mean(ident.residual_before ** 2)))
+    after = float(np.sqrt(np.mean(ident.residual_after ** 2)))
+    lines = [f"free motion used: {used}; {ident.samples} samples after smoothing "
+             f"({ident.used_time:.1f} s), {ident.base.count} base parameters",
+             f"identified links: {', '.join(changed) or 'none'}",
+             f"kept from the URDF (not excited): {', '.join(kept) or 'none'}"]
+    for r in ident.links:
+        if r.kind == "tool":
+            lines.append(f"tool {r.name!r} on {r.joint}: mass {r.value[0]:.4g} +/- "
+                         f"{r.half_width[0]:.2g} kg, centre of mass ({r.value[1]:.3g}, "
+                         f"{r.value[2]:.3g}, {r.value[3]:.3g}) m in that link's frame")
+    lines.append(f"held-out free-motion residual (RMS over joints, the last "
+                 f"{ident.held_out_time:.1f} s of each bag's free motion, fitted without it): "
+                 f"{before:.4g} with the URDF, {after:.4g} identified (N.m or N)")
+    if model.rejected:
+        lines.append("samples refused: " + ", ".join(f"{k} {v}" for k, v in
+                                                     model.rejected.items() if v))
+    return lines
+
+
+def point_at_model(result: "TuneResult", file_name: str, base_source: str) -> None:
+    """Point ``robot_description_file`` at the identified URDF ``file_name`` (written beside
+    the parameter file; the path is relative to it)."""
+    result.entries["robot_description_file"] = TunedEntry(
+        "robot_description_file", file_name,
+        ["tuned: the robot's inertial parameters identified from free motion (the URDF beside"
+         " this file; relative to it)", *model_summary(result)])
+    result.settings = result.settings.replace({"robot_description_file": file_name})
+
+
+def urdf_header(result: "TuneResult", base_source: str) -> list[str]:
+    """The comment at the top of the written URDF."""
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    lines = [f"written by `{PROG}` on {now}: inertial values identified from free motion",
+             f"from the URDF given (base: {base_source}); links not listed as identified, and "
+             "everything but their inertial elements, are as given",
+             *model_summary(result)]
+    return [line.replace("--", "- -") for line in lines]   # "--" may not appear in a comment

@@ -16,6 +16,7 @@ from .common import (CONTACT, FREE_ONLY_USE, LEARNING, MAX_SEGMENTATION_PASSES,
 from .entries import TunedEntry, build_entries, parameter_yaml
 from .filter_noise import NoiseFit, fit_filter_noise
 from .friction import Identification, check_model_fit, identify
+from .model import ModelRequest, ModelResult, identify_robot
 from .passes import FilterTape, Trace, run_pass
 from .recordings import Recording
 from .segments import Segment, contact_segments, free_mask, margin, onset_time
@@ -33,7 +34,8 @@ class TuneResult:
     stretches used (bag index, times s); warnings: things the user should know; bags: names;
     joints: model joint order; base: the base settings; traces: last pass per bag;
     free_only: indices of the bags in which the contact monitor found no contact (free motion
-    only: used for bias, friction and sensor noise, not for the environment filter)."""
+    only: used for bias, friction and sensor noise, not for the environment filter);
+    model: the robot's identified dynamics, when asked (None: the URDF as given)."""
 
     settings: Settings
     base: Settings
@@ -50,6 +52,7 @@ class TuneResult:
     taps: list[Trace] = field(default_factory=list)
     masks: list[np.ndarray] = field(default_factory=list)
     free_only: list[int] = field(default_factory=list)
+    model: ModelResult | None = None
 
     def parameter_file(self, header: Sequence[str]) -> str:
         """The ROS 2 parameter YAML text of the result."""
@@ -77,12 +80,15 @@ def _check_inputs(recs: Sequence[Recording], base: Settings) -> None:
 
 
 def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] | None = None,
-         log: Callable[[str], None] | None = None) -> TuneResult:
+         log: Callable[[str], None] | None = None, model: ModelRequest | None = None
+         ) -> TuneResult:
     """Identify bias, friction and noise from the recordings; returns the tuned settings.
 
     urdf: the robot description (text). params: settings from the base parameter file, flat
-    dotted names (None: none). log: progress messages. Raises TuneError (or SettingsError,
-    ModelError) with a message naming what is missing.
+    dotted names (None: none). log: progress messages. model: what of the robot's own
+    dynamics to identify from free motion (None or nothing asked: the URDF is used as given;
+    see :mod:`.model`); the rest of the tuning then runs with the identified model. Raises
+    TuneError (or SettingsError, ModelError) with a message naming what is missing.
     """
     say = log or (lambda _m: None)
     params = dict(params or {})
@@ -91,6 +97,22 @@ def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] |
     common = _common_recommendations(recordings)
     base = Settings().replace(common).replace(params)
     _check_inputs(recordings, base)
+    identified = None
+    if model is not None and model.wanted:
+        Pipeline(bag_settings(base, recordings[0].recommended, params, {}), urdf)  # validates
+        identified = identify_robot(
+            recordings, urdf, base, params, model,
+            lambda r: bag_settings(base, r.recommended, params, {}), say)
+        urdf = identified.urdf
+    result = _tune_settings(recordings, urdf, params, say, common, base)
+    result.model = identified
+    return result
+
+
+def _tune_settings(recordings: Sequence[Recording], urdf: str, params: dict[str, Any],
+                   say: Callable[[str], None], common: dict[str, Any], base: Settings
+                   ) -> TuneResult:
+    """Bias, friction and noise (steps 1-4 of the package text) with the URDF ``urdf``."""
     per_bag = [bag_settings(base, r.recommended, params, {}) for r in recordings]
     pipe = Pipeline(per_bag[0], urdf)  # validates URDF, contact frame and per-joint lists
     joints = pipe.model.joint_names

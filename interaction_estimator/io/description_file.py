@@ -1,0 +1,49 @@
+"""Where ``robot_description_file`` points: a path written in a parameter file is relative to
+that file's directory (``tune`` writes the identified URDF beside the parameter file and names
+it by its file name alone, so the pair can be moved together); one given on the command line
+(``-p robot_description_file:=...``) or absolute is taken as it is."""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Sequence
+
+import yaml
+
+SETTING = "robot_description_file"
+
+
+def _values(tree: Any, name: str) -> list[Any]:
+    """Every value of key ``name`` in a YAML tree, nested (dotted keys flattened by ROS 2 are
+    nested mappings here: ``robot_description_file`` is a top-level setting)."""
+    out: list[Any] = []
+    if isinstance(tree, dict):
+        for k, v in tree.items():
+            if k == name:
+                out.append(v)
+            else:
+                out += _values(v, name)
+    return out
+
+
+def file_value(path: str | Path, name: str = SETTING) -> Any:
+    """The value a ROS 2 parameter YAML gives ``name`` (the last one), None when it gives none
+    or cannot be read."""
+    try:
+        doc = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError):
+        return None
+    found = _values(doc, name)
+    return found[-1] if found else None
+
+
+def resolve(value: str, parameter_files: Sequence[str | Path] = ()) -> Path:
+    """The URDF path of a ``robot_description_file`` value: absolute as given; relative to the
+    directory of the last of ``parameter_files`` that gives it this value (later files win, as
+    ROS 2 applies them), else (a command-line value) to the working directory."""
+    path = Path(value).expanduser()
+    if path.is_absolute():
+        return path
+    for f in reversed([Path(p) for p in parameter_files]):
+        if file_value(f) == value:
+            return f.resolve().parent / path
+    return path
