@@ -29,11 +29,17 @@ OMEGA = 2 * np.pi * 12.0    # rad/s, computed-torque bandwidth (critically dampe
 
 
 def kinematic_only(urdf: str) -> str:
+    """The URDF without visual, collision, transmission and gazebo elements, and without the
+    joints' ``<dynamics>`` (MuJoCo would apply their damping and friction: these test robots
+    are frictionless, their efforts link-side)."""
     root = ET.fromstring(urdf)
     for link in root.iter("link"):
         for tag in ("visual", "collision"):
             for e in link.findall(tag):
                 link.remove(e)
+    for joint in root.iter("joint"):
+        for e in joint.findall("dynamics"):
+            joint.remove(e)
     for tag in ("transmission", "gazebo"):
         for e in root.findall(tag):
             root.remove(e)

@@ -27,7 +27,8 @@ the motor side (the package's friction model), one bias per bag and joint.
 4. Excitation: in prior-scaled coordinates, a link's "determined" figure is
    ``10 - trace(posterior covariance / prior covariance)``, the number of parameters' worth the
    data pinned down. Below :data:`MIN_DETERMINED` the link is not excited: it is kept exactly as
-   in the URDF and the report says so. Our threshold (no source).
+   in the URDF and the report says so, unless keeping it would lose what the data say (see
+   :func:`_excited`). Our threshold (no source).
 5. Confidence: the posterior covariance of the linearized problem (95 % = 1.96 std), carried to
    mass, centre of mass and inertia by the delta method.
 """
@@ -289,6 +290,32 @@ class _Problem:
         return lo, np.full_like(lo, np.inf)
 
 
+def _excited(layout: Layout, base: BaseParameters, rows: Rows, R: np.ndarray, z: np.ndarray,
+             options: Options) -> tuple[np.ndarray, np.ndarray]:
+    """Which links the data excite: (free (n,) bool, determined (n + tools,) with every link
+    free). A link below ``min_determined`` is kept from the URDF unless keeping it loses
+    information: links are kept one at a time, least determined first, as long as the
+    parameters' worth the data determine over all links and tools stays within
+    ``min_determined`` of its value with every link free (a direction shared by several
+    little-determined links then keeps one of them free)."""
+    n = len(layout.bodies)
+
+    def total(free: np.ndarray) -> tuple[float, np.ndarray]:
+        det = _Problem(layout, base, rows, R, z, free, options.motor_side).determined()
+        return float(det.sum()), det
+
+    free = np.ones(n, bool)
+    full, det_all = total(free)
+    for b in np.argsort(det_all[:n]):
+        if det_all[b] >= options.min_determined:
+            break
+        trial = free.copy()
+        trial[b] = False
+        if full - total(trial)[0] < options.min_determined:
+            free = trial
+    return free, det_all
+
+
 def solve(layout: Layout, base: BaseParameters, rows: Rows, use: np.ndarray,
           options: Options) -> Solution:
     """The MAP fit on the samples ``use`` (N,) bool (see the module text)."""
@@ -296,10 +323,7 @@ def solve(layout: Layout, base: BaseParameters, rows: Rows, use: np.ndarray,
     R, z = _reduce(rows, use, sigma, kappa)
     n_bodies, n_tools = len(layout.bodies), len(layout.tools)
     notes: list[str] = []
-    # excitation test with every link free
-    everything = _Problem(layout, base, rows, R, z, np.ones(n_bodies, bool), options.motor_side)
-    det_all = everything.determined()
-    free = det_all[:n_bodies] >= options.min_determined
+    free, det_all = _excited(layout, base, rows, R, z, options)
     prob = _Problem(layout, base, rows, R, z, free, options.motor_side)
     x_lin = prob.linear_estimate()
     w_lin, lin0 = prob.split(x_lin)
