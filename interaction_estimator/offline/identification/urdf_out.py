@@ -62,8 +62,14 @@ def identified_urdf(urdf: str, layout: Layout, links: np.ndarray, changed: Seque
             link.insert(index, new)
         else:
             link.insert(0, new)
+    joints = {j.get("name") for j in root.iter("joint")}
     for tool, pi in zip(layout.tools, tools):
-        joint = ET.SubElement(root, "joint", {"name": tool.name + MOUNT_SUFFIX, "type": "fixed"})
+        name, k = tool.name + MOUNT_SUFFIX, 1
+        while name in joints:       # a joint of that name exists: the first free numbered one
+            k += 1
+            name = f"{tool.name}{MOUNT_SUFFIX}_{k}"
+        joints.add(name)
+        joint = ET.SubElement(root, "joint", {"name": name, "type": "fixed"})
         ET.SubElement(joint, "parent", {"link": tool.link})
         ET.SubElement(joint, "child", {"link": tool.name})
         ET.SubElement(joint, "origin", {"xyz": "0 0 0", "rpy": "0 0 0"})

@@ -39,6 +39,7 @@ from .friction import identify
 from .passes import Trace, run_pass
 from .procedure import TuneResult, bag_settings
 from .recordings import Recording
+from .report_model import model_section
 from .segments import steady_mask
 
 # our colours: base settings, tuned settings, reference, truth, page
@@ -362,8 +363,11 @@ def build_tuning_report(result: TuneResult, recs: Sequence[Recording], urdf: str
     tuned = bag_settings(result.base, rec.recommended, params,
                          {n: check[n] for n in result.entries})
     m, onset = result.noise.decimation, result.noise.onset
+    tuned_urdf = result.model.urdf if result.model is not None else urdf
+    tuned_label = ("tuned settings, identified URDF" if result.model is not None
+                   else "tuned settings")
     figs = [evaluate(rec, default, urdf, held, m, onset, "base settings"),
-            evaluate(rec, tuned, urdf, held, m, onset, "tuned settings")]
+            evaluate(rec, tuned, tuned_urdf, held, m, onset, tuned_label)]
     warn = "".join(f"<li class='warn'>{_e(w)}</li>" for w in result.warnings)
     body = [
         "<h1>Commissioning report: bias, friction and noise from recorded data</h1>",
@@ -379,6 +383,7 @@ def build_tuning_report(result: TuneResult, recs: Sequence[Recording], urdf: str
         f"{onset:.3f} s of each contact (the impact) are left out of the NIS, as in the "
         "fit.</p>",
         force_plot(rec, figs, held), parameter_plot(rec, figs, held), nis_plot(figs, held),
+        model_section(result),
         "<h2>What was written</h2>", entries_table(result),
         "<h2>Per joint</h2>", joints_table(result),
         "<h2>Segments used</h2>", segments_table(result),
