@@ -273,6 +273,9 @@ def check_model_fit(ident: Identification, contact_found: bool = True) -> None:
         f"{len(bad)} joint(s) ({listing}). Either the URDF does not describe the robot that "
         f"recorded the bags (masses, inertias, joint list), or the robot was not moving freely "
         f"in the segments taken as free motion ({spans}); expected the recorded robot's URDF "
-        "and bags that start with free motion")
+        "and bags that start with free motion. If the URDF's masses or a tool are off: record "
+        "the commissioning motion of `interaction-estimator excitation` (nothing touched) and "
+        "run tune again with it after --free-motion (and --tool-frame LINK for a tool the URDF "
+        "lacks): the robot's dynamics are then identified and written as a URDF")
 
 
