@@ -202,14 +202,6 @@ def test_every_identified_link_and_tool_is_physically_consistent(noise_free):
         assert traversaro_consistent(written.model.inertias[j].toDynamicParameters())
 
 
-def test_tool_mass_is_found(noise_free):
-    name, *_rest, result, _world, _traj = noise_free
-    tool = [r for r in result.links if r.kind == "tool"][0]
-    # the tool and the flange link share a body: only their sum is identifiable, split by the
-    # priors (the tool's is wide, the link's narrow), so the tool takes most of it
-    assert abs(tool.value[0] - CASES[name][1]) < 0.25 * CASES[name][1], tool.value[0]
-
-
 def test_noisy_motion_through_the_smoothing_differentiator():
     # the same robot with sensor noise (effort 0.1 N·m, velocity 0.003 rad/s, a bias), the
     # accelerations from the Savitzky-Golay differentiator: the held-out residual falls to the
@@ -227,14 +219,25 @@ def test_noisy_motion_through_the_smoothing_differentiator():
     assert np.all(result.residual_after < 0.5 * result.residual_before)
     assert np.all(result.residual_after < 0.2), result.residual_after  # N·m; noise 0.1 white
     np.testing.assert_allclose(result.bias[0], 0.7, atol=0.15)
-    # the tool and the flange link share one body: their total mass is what the data tell
-    # (the split between them comes from the priors)
-    true_model = RobotModel(truth, frame).model
-    j = true_model.getJointId("marten_wrist_roll")
-    true_total = true_model.inertias[j].mass
-    by_name = {r.name: r for r in result.links}
-    total = by_name["payload"].value[0] + by_name["marten_link7"].value[0]
-    assert abs(total - true_total) < 0.1 * true_total, (total, true_total)
+    # the identified model's M(q) and g(q) against MuJoCo's on configurations of the motion's
+    # range (not in the data): within 3 % of their largest entries, where the URDF as given
+    # is off by more than 10 % (a tool's mass is not identifiable apart from the links before
+    # it, the base parameters group them: the check is on the dynamics, not on the split)
+    world = W.load(truth)
+    identified = RobotModel(result.urdf(nominal, ["test"]), frame)
+    rng = np.random.default_rng(5)
+    q_all, _, _ = traj.evaluate(np.linspace(0, traj.period, 400))
+    worst = {"identified": 0.0, "urdf": 0.0}
+    for _ in range(15):
+        q = rng.uniform(q_all.min(axis=0), q_all.max(axis=0))
+        M_ref, g_ref = world.mass_matrix(q), world.gravity(q)
+        for label, model in (("identified", identified), ("urdf", robot)):
+            M = pin.crba(model.model, model.data, q)
+            M = np.triu(M) + np.triu(M, 1).T
+            g = pin.computeGeneralizedGravity(model.model, model.data, q)
+            worst[label] = max(worst[label], np.abs(M - M_ref).max() / np.abs(M_ref).max(),
+                               np.abs(g - g_ref).max() / np.abs(g_ref).max())
+    assert worst["identified"] < 0.03 and worst["urdf"] > 0.1, worst
 
 
 def test_a_link_the_data_cannot_tell_apart_is_kept_from_the_urdf(noise_free):

@@ -20,6 +20,7 @@ PLAN = {
     "bench_node_callback.py": [],
     "bench_node.py": [],   # 60 s per subject, in 2 s turns
     "bench_replay.py": ["--minutes", "10"],
+    "bench_identification.py": [],   # 60 s commissioning bag of a 7-joint arm
 }
 
 

@@ -1,8 +1,16 @@
 """Commissioning from recorded data: torque bias, joint friction and noise levels, into a parameter file.
 
-``interaction-estimator tune BAG [BAG ...] --out FILE [--params BASE] [--urdf FILE] [--report DIR]``
-(or ``python -m interaction_estimator.offline.tune ...``) runs the recorded joint states through the
-package's own :class:`~.pipeline.Pipeline` and identifies, from the data:
+``interaction-estimator tune BAG [BAG ...] --out FILE [--params BASE] [--urdf FILE] [--report DIR]
+[--free-motion BAG ...] [--tool-frame LINK]`` (or ``python -m interaction_estimator.offline.tune
+...``) runs the recorded joint states through the package's own :class:`~.pipeline.Pipeline`
+and identifies, from the data:
+
+0. **The robot's own dynamics** (when bags are named ``--free-motion`` or a tool is named):
+   base inertial parameters, friction and bias from free motion, physically consistent,
+   regularized toward the URDF, a tool on a named link included (:mod:`.model`,
+   :mod:`interaction_estimator.offline.identification`). The identified model is written as a
+   URDF beside the parameter file (same name, ``.urdf``), ``robot_description_file`` names it,
+   and the steps below run with it.
 
 1. **Segments.** Free motion and contact, as the Pipeline's contact monitor sees them
    (``Estimate.phase``). The monitor needs bias and friction to be right, so the segmentation is
@@ -59,9 +67,10 @@ temporary file beside the target and renamed: on any error nothing is written.
 Layout of this package (each module one responsibility; DEVELOPERS.md has the map):
 ``recordings`` (bags in memory), ``passes`` (one Pipeline pass with its taps), ``segments``
 (free motion and contact), ``friction`` (sensor noise, bias and friction; the model check),
-``filter_noise`` (the environment filter's noise), ``entries`` (the written settings and the
-parameter file), ``procedure`` (the whole tuning), ``command`` (the command line), ``report``
-(the HTML report), ``common`` (constants, the error type).
+``filter_noise`` (the environment filter's noise), ``model`` (the robot's dynamics, step 0),
+``entries`` (the written settings and the parameter file), ``procedure`` (the whole tuning),
+``command`` (the command line), ``report`` and ``report_model`` (the HTML report), ``common``
+(constants, the error type).
 """
 from __future__ import annotations
 

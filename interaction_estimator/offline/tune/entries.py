@@ -245,11 +245,14 @@ def model_summary(result: "TuneResult") -> list[str]:
              f"({ident.used_time:.1f} s), {ident.base.count} base parameters",
              f"identified links: {', '.join(changed) or 'none'}",
              f"kept from the URDF (not excited): {', '.join(kept) or 'none'}"]
-    for r in ident.links:
-        if r.kind == "tool":
-            lines.append(f"tool {r.name!r} on {r.joint}: mass {r.value[0]:.4g} +/- "
-                         f"{r.half_width[0]:.2g} kg, centre of mass ({r.value[1]:.3g}, "
-                         f"{r.value[2]:.3g}, {r.value[3]:.3g}) m in that link's frame")
+    for r, tool in zip([r for r in ident.links if r.kind == "tool"], ident.layout.tools):
+        body = ident.layout.bodies[tool.body]
+        lines.append(f"tool {r.name!r} on {r.joint}: mass {r.value[0]:.4g} +/- "
+                     f"{r.half_width[0]:.2g} kg, centre of mass ({r.value[1]:.3g}, "
+                     f"{r.value[2]:.3g}, {r.value[3]:.3g}) m in that link's frame (it moves "
+                     f"with {body.link}; the base parameters group a body's mass with the "
+                     "links before it, so the split between tool and links follows the "
+                     "priors: read the interval; the dynamics are right either way)")
     lines.append(f"held-out free-motion residual (RMS over joints, the last "
                  f"{ident.held_out_time:.1f} s of each bag's free motion, fitted without it): "
                  f"{before:.4g} with the URDF, {after:.4g} identified (N.m or N)")

@@ -49,8 +49,11 @@ def model_section(result: "TuneResult") -> str:
         "problem, the data's information divided by the residual's long-run variance ratio "
         f"(kappa = {ident.final.kappa:.3g}). 'determined': how many of a link's ten "
         "parameters' worth the data pinned down; a link below 0.5 is kept exactly as in the "
-        "URDF. A tool shares its body with the link it is mounted on: only their sum is "
-        "identifiable, and the split follows the priors (the tool's is wide).</p>",
+        "URDF. A tool moves with the link it is mounted on, and the base parameters group a "
+        "body's mass (and its centre of mass along its joint's axis) with the links before it "
+        "(Gautier and Khalil 1990): what the data tell is the sum, and the split between tool "
+        "and links follows the priors (the tool's is wide). Its interval says how well it "
+        "stands apart; the dynamics, and so the force estimate, are right either way.</p>",
         "<table><tr><th>link</th><th>status</th><th>determined</th><th>quantity</th>"
         "<th>URDF</th><th>identified</th><th>&plusmn; 95 %</th><th>change</th></tr>",
     ]
