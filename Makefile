@@ -10,7 +10,7 @@ export ROS_AUTOMATIC_DISCOVERY_RANGE := LOCALHOST
 export ROS_DOMAIN_ID ?= $(shell $(PYTHON) -c 'import os; print(7 + os.getpid() % 80)')
 export RMW_IMPLEMENTATION := rmw_fastrtps_cpp
 
-.PHONY: all setup test demo bench clean
+.PHONY: all setup test demo bench validate clean
 
 all: test
 
@@ -32,6 +32,11 @@ demo: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) test/benchmarks/run_all.py
+
+# Monte-Carlo validation of the object estimates (issue 17): 200 seeded MuJoCo runs on two
+# processes, simulations cached by seed under .cache/validation; prints the table.
+validate: $(STAMP)
+	$(PY) -m interaction_estimator.offline.validation --runs 200 --jobs 2
 
 clean:
 	rm -rf $(VENV) build *.egg-info demo_out .pytest_cache
