@@ -16,9 +16,16 @@ the object's true parameters theta (the static force including the object's weig
   Processing I, 1993, ch. 3-4). sigma_f is the effort noise mapped onto the force along u by the
   best linear unbiased map (Gauss-Markov: cov F = (J_p Sigma_tau^-1 J_p^T)^-1, J_p the contact
   point's positional Jacobian recorded by MuJoCo, Sigma_tau the run's own effort noise),
-  averaged over the episode. Velocity noise and quantization are left out: the bound is
-  optimistic, so "not excited" is conservative. The issue's check "a parameter the motion
-  does not excite is reported converged in <= 1 % of its samples" uses this.
+  averaged over the episode. And the motion must stand out of the kinematic sensors' noise:
+  the part of column i that the other columns do not explain must have an RMS of at least 10
+  times that column's measurement noise (MIN_SNR), so that errors in the regressor bias a fit by
+  at most 1 % (regression dilution: the slope shrinks by 1 / (1 + 1/SNR^2); e.g. W. A. Fuller,
+  Measurement Error Models, 1987, 1.1). The noise of x' is the velocity noise through J_p along
+  u, of x the encoders' quantization (step / sqrt(12)) through J_p, of x'' that of a
+  least-squares slope of x' over 0.1 s (sqrt(12 / (rate T^3)) times it; our reference
+  differentiator). Without this the scaled bound alone would count a wiggle of a micrometre as
+  excitation (the scale s_i grows as the column shrinks). The issue's check "a parameter the
+  motion does not excite is reported converged in <= 1 % of its samples" uses this.
 - Identifiable given the force: excited, and a least-squares fit of the estimator's own force
   along u on MuJoCo's regressor (perfect kinematics: the information limit given the force)
   errs by at most 2 % of d_i (IDENTIFIABLE_ERROR). 2 % is where a fit at that limit still
@@ -50,6 +57,9 @@ import numpy as np
 EXCITED_STD = 0.02       # excited: the bound's std <= 2 % of max(|theta|, s)
 IDENTIFIABLE_ERROR = 0.02  # identifiable: the force-limited fit errs <= 2 % of max(|theta|, s)
 FELT_SIGMAS = 20.0       # felt: peak force along u >= 20 sigma_f
+MIN_SNR = 10.0           # excited: unexplained RMS of a column >= 10 x its measurement noise
+DIFFERENTIATOR_SPAN = 0.1  # s, the reference differentiator for the noise of x''
+ROWS_BEFORE = 0.5        # s: filter rows this long before an attachment belong to its contact
 SCALE_SHARE = 0.05       # s: 5 % of the RMS force along u (issue 17)
 NEES_CONFIDENCE = 0.95
 LEVELS = 4               # OK, WARN, ERROR, STALE
@@ -116,8 +126,24 @@ def force_noise_along(jacobians: np.ndarray, effort_noise: np.ndarray, u: np.nda
     return math.sqrt(float(np.mean(var)))
 
 
-def excitation(H: np.ndarray, sigma_f: float, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(excited (4,) bool, bound std (4,)): sigma_f sqrt(diag((H^T H)^-1)) <= EXCITED_STD d."""
+def kinematic_noise(jacobians: np.ndarray, velocity_noise: np.ndarray, encoder_step: float,
+                    angular: np.ndarray, u: np.ndarray, rate: float) -> np.ndarray:
+    """(4,) measurement noise of the regressor [x'' m/s^2, x' m/s, x m, 1]: velocity noise and
+    quantization (step / sqrt(12) on angular joints) through J_p along u (RMS over the
+    Jacobians), x'' as the least-squares slope of x' over DIFFERENTIATOR_SPAN s."""
+    lever = np.array([Jp.T @ u for Jp in jacobians])            # (K, n)
+    s_v = float(np.sqrt(np.mean(np.sum((lever * velocity_noise) ** 2, axis=1))))
+    q = np.where(angular, encoder_step / math.sqrt(12.0), 0.0)
+    s_x = float(np.sqrt(np.mean(np.sum((lever * q) ** 2, axis=1))))
+    s_a = s_v * math.sqrt(12.0 / (rate * DIFFERENTIATOR_SPAN ** 3))
+    return np.array([s_a, s_v, s_x, 0.0])
+
+
+def excitation(H: np.ndarray, sigma_f: float, d: np.ndarray,
+               noise: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(excited (4,) bool, bound std (4,)): sigma_f sqrt(diag((H^T H)^-1)) <= EXCITED_STD d,
+    and (``noise``: the columns' measurement noise) the part of each column the others do not
+    explain has an RMS of at least MIN_SNR times its noise."""
     G = H.T @ H
     try:
         cov = np.linalg.inv(G)
@@ -128,7 +154,13 @@ def excitation(H: np.ndarray, sigma_f: float, d: np.ndarray) -> tuple[np.ndarray
         diag = np.diag(np.linalg.pinv(G))
         diag = np.where(diag > 0, diag, np.inf)
     bound = sigma_f * np.sqrt(diag)
-    return bound <= EXCITED_STD * d, bound
+    excited = bound <= EXCITED_STD * d
+    if noise is not None:
+        # unexplained RMS of column i: 1 / sqrt(N [(H^T H)^-1]_ii)
+        with np.errstate(divide="ignore"):
+            unique = 1.0 / np.sqrt(len(H) * diag)
+        excited &= unique >= MIN_SNR * noise
+    return excited, bound
 
 
 def time_to_convergence(t: np.ndarray, flag: np.ndarray, start: float) -> float:
@@ -193,7 +225,11 @@ def score_episodes(run, measured, spec, trace, rls) -> list[dict]:
         if len(jac_rows) == 0:
             jac_rows = np.array([np.argmin(np.abs(run.jacobian_index - ridx[0]))])
         sigma_f = force_noise_along(run.jacobian[jac_rows], spec.effort_noise, u)
-        excited, bound = excitation(H, sigma_f, d)
+        angular = np.array([k != "prismatic" for k in run.joint_kinds])
+        step = 2 * np.pi / 2 ** int(spec.noise_draw["encoder_bits"])
+        noise = kinematic_noise(run.jacobian[jac_rows], spec.velocity_noise, step, angular, u,
+                                spec.rate)
+        excited, bound = excitation(H, sigma_f, d, noise)
         f_est = trace.force_along[idx]
         ok = np.isfinite(f_est)
         oracle = (np.linalg.lstsq(H[ok], f_est[ok], rcond=None)[0] if ok.sum() > 4
@@ -214,8 +250,11 @@ def score_episodes(run, measured, spec, trace, rls) -> list[dict]:
         }
         rec["estimator"] = method_scores(trace, idx, t[idx], theta, d, excited, start)
         rec["rls"] = method_scores(rls, idx, t[idx], theta, d, excited, start)
-        # batch fit of the estimator's own rows of this episode
-        rows = (trace.rows_time >= start) & (trace.rows_time <= end_t)
+        # batch fit of the estimator's own rows of this contact: from the change (after a step),
+        # else from up to ROWS_BEFORE s before the attachment (the filter's first rows are
+        # centred a few ms before it: the estimator's x starts where the residual was quiet)
+        first_row = start if kind == "after_step" else start - ROWS_BEFORE
+        rows = (trace.rows_time >= first_row) & (trace.rows_time <= end_t)
         b_theta, b_std = batch_fit(trace.rows_h[rows], trace.rows_f[rows])
         b_err = np.abs(b_theta - theta) / d    # NaN: no rows (the contact was not found)
         rec["batch"] = {"error": b_err.tolist(),
