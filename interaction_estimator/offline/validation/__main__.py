@@ -95,6 +95,7 @@ def main(argv=None) -> int:
     print(f"Monte-Carlo validation: {len(seeds)} runs (seeds {seeds[0]}..{seeds[-1]}), "
           f"{args.jobs} processes, {wall:.0f} s wall")
     print(render(lines))
+    print(LEGEND)
     sim = sum(r.get("time_simulation", 0.0) for r in results)
     est = sum(r.get("time_estimator", 0.0) for r in results)
     print(f"process time: simulation/cache {sim:.0f} s, estimator {est:.0f} s")
@@ -105,6 +106,17 @@ def main(argv=None) -> int:
         args.json.write_text(json.dumps({"figures": figures, "runs": results}, indent=1,
                                         default=str), encoding="utf-8")
     return 0
+
+
+LEGEND = """\
+Episode: a contact with one unchanging object (a run with a change has two). Error: |estimate -
+truth| / max(|truth|, s) at the episode's end, s = the value whose contribution is 5 % of the RMS
+force along u. Excited: the motion determines the parameter (sensor-noise bound <= 2 % of that
+scale, motion above the kinematic noise). Identifiable: excited, and a least-squares fit of the
+estimator's own force on MuJoCo's kinematics errs <= 2 %. Batch LS: numpy.linalg.lstsq of the
+estimator's own filter rows of the contact; naive RLS: the same rows, no forgetting, std from
+its P and residual variance, converged when 3 std <= 5 % of max(|estimate|, s).
+Definitions: interaction_estimator/offline/validation/scoring.py."""
 
 
 def episode_lines(results) -> str:

@@ -67,8 +67,8 @@ def build_table(results: list[dict]) -> tuple[list[Line], dict]:
     fig: dict = {"runs": len(results), "failed_runs": len(failed), "episodes": len(episodes),
                  "fully_excited": len(full)}
     robots = sorted({r["spec"]["robot"] for r in results if "spec" in r})
-    lines.append(Line("runs / failed to run", f"{len(results)} / {len(failed)}",
-                      target=", ".join(robots)))
+    lines.append(Line(f"runs / failed to run ({', '.join(robots)})",
+                      f"{len(results)} / {len(failed)}"))
     excited4 = sum(all(ep["excited"]) for ep in episodes)
     lines.append(Line("episodes (contacts with one object) / motion excites all four / "
                       "all four identifiable given the force",
