@@ -11,8 +11,8 @@ import yaml
 from interaction_estimator.io import parameter_file as config_file
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import (SPEC_BY_NAME, SPECS, Settings, flatten,
-                                            load_parameter_file)
+from interaction_estimator.core.settings import SPEC_BY_NAME, SPECS, Settings, flatten
+from interaction_estimator.io.parameter_file import load_parameter_file
 
 from ros_harness import REPO
 

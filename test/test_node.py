@@ -24,7 +24,7 @@ from interaction_estimator.core.environment import PARAMETER_NAMES, PARAMETER_UN
 from interaction_estimator.core.model import ModelError, RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import load_parameter_file
+from interaction_estimator.io.parameter_file import load_parameter_file
 
 from ros_harness import (REPO, NodeProcess, Peer, contact_scenario, level, next_domain,
                          publish_paced, sample_of, still_scenario, values)

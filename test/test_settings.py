@@ -1,8 +1,8 @@
 """Settings registry and the ROS 2 parameter-file format."""
 import pytest
 
-from interaction_estimator.core.settings import (SPECS, Settings, SettingsError, load_parameter_file,
-                                            parameters_from_yaml, per_joint)
+from interaction_estimator.core.settings import SPECS, Settings, SettingsError, per_joint
+from interaction_estimator.io.parameter_file import load_parameter_file, parameters_from_yaml
 
 
 def test_defaults_validate_and_every_spec_has_unit_or_text():

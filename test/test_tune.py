@@ -28,13 +28,14 @@ import pytest
 from scipy.stats import chi2
 
 from interaction_estimator.offline import tune as T
-from interaction_estimator.io.bag import SIMULATED_TIME_OFFSET, write_simulated_bag
+from interaction_estimator.sim.recording import SIMULATED_TIME_OFFSET, write_simulated_bag
 from interaction_estimator.core.environment import PARAMETER_NAMES
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
 from interaction_estimator.sim.simulator import simulate
-from interaction_estimator.core.settings import (SPEC_BY_NAME, Settings, load_parameter_file,
-                                            parameters_from_yaml)
+from interaction_estimator.core.settings import SPEC_BY_NAME, Settings
+from interaction_estimator.io.files import write_atomic
+from interaction_estimator.io.parameter_file import load_parameter_file, parameters_from_yaml
 
 DURATION = {"drawer": 5.0, "toolbox": 6.0, "commissioning": 12.0}
 TASKS = ("drawer", "toolbox")                 # with contact
@@ -112,7 +113,7 @@ def tuned_on_tasks(bags):
 def written(tuned, tmp_path_factory):
     result, _ = tuned
     path = tmp_path_factory.mktemp("tune_out") / "tuned.yaml"
-    T.write_text_atomic(path, result.parameter_file(["test"]))
+    write_atomic(path, result.parameter_file(["test"]))
     return path
 
 

@@ -59,12 +59,14 @@ from ..core.warmup import warm_up
 from ..core.health import ERROR, STALE, WARN
 from ..core.model import ModelError
 from ..io.description_file import resolve as resolve_description
-from .inputs import EffortMatcher, LatencyMeter, WarningThrottle
+from ..io.effort_matching import EffortMatcher
+from .inputs import LatencyMeter, WarningThrottle
 from .messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
                             EnvironmentEncoder, JointStateReader, NodeFigures, StatusEncoder,
                             StatusFields, WrenchEncoder, efforts_for_state, idle_fields,
                             output_numbers, sample_from_joint_state, sample_from_parts,
-                            seconds_to_stamp, stamp_is_zero, stamp_seconds, status_fields)
+                            stamp_is_zero, status_fields, status_object, time_message,
+                            time_seconds)
 from ..core.pipeline import Estimate, Pipeline
 from ..core.samples import RejectCounts, Sample, SampleRejected
 from ..core.settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
@@ -326,7 +328,7 @@ class EstimatorNode(Node):
                 self._process_message(msg, receive, None, start, due)
                 return
             receive = self._now_s()
-            t = receive if stamp_is_zero(msg.header.stamp) else stamp_seconds(msg.header.stamp)
+            t = receive if stamp_is_zero(msg.header.stamp) else time_seconds(msg.header.stamp)
             for pair in self._matcher.add_state(t, (msg, receive)):
                 self._process_pair(pair, start)
         except Exception as exc:
@@ -338,7 +340,7 @@ class EstimatorNode(Node):
             if self.pipeline is None:
                 return  # the joint state of the same stamp is counted as no_model
             t = (self._now_s() if stamp_is_zero(msg.header.stamp)
-                 else stamp_seconds(msg.header.stamp))
+                 else time_seconds(msg.header.stamp))
             for pair in self._matcher.add_effort(t, msg):
                 self._process_pair(pair, start)
         except Exception as exc:
@@ -401,7 +403,7 @@ class EstimatorNode(Node):
         if numbers is not None:
             force, torque, values, stds = numbers
             if sample.stamp_from_receive:
-                stamp = seconds_to_stamp(sample.time)
+                stamp = time_message(sample.time)
                 sec, nanosec = stamp.sec, stamp.nanosec
             frame = self._frame_id()
             encoder = self._wrench_encoder
@@ -549,7 +551,7 @@ class EstimatorNode(Node):
                 return
             msg = DiagnosticArray()
             msg.header.stamp = self.get_clock().now().to_msg()
-            msg.status = [self._last_status.message_object()]
+            msg.status = [status_object(self._last_status)]
             self._diagnostics_pub.publish(msg)
         except Exception as exc:
             self._internal_error(exc, "diagnostics publication")

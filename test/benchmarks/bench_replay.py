@@ -28,9 +28,10 @@ from pathlib import Path
 import numpy as np
 import pinocchio as pin
 
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateDecoder,
-                                       JointStateEncoder, RecordedBag, encode_string,
-                                       seconds_to_stamp, typestore)
+from interaction_estimator.io.bag import RecordedBag
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import (JOINT_STATE, STRING, JointStateDecoder, JointStateEncoder,
+                                          encode_string, seconds_to_stamp, typestore)
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.offline.replay import ReplayRequest, replay, run_pipeline

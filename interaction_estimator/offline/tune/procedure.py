@@ -13,7 +13,8 @@ from ...core.settings import Settings, SettingsError, per_joint
 from .common import (CONTACT, FREE_ONLY_USE, LEARNING, MAX_SEGMENTATION_PASSES,
                      MIN_BAG_DURATION, MIN_CONTACT_TIME, MIN_FREE_TIME, MIN_MOVING_TIME,
                      TuneError, _clamp)
-from .entries import TunedEntry, build_entries, parameter_yaml
+from ...io.parameter_file import settings_file_text
+from .entries import TunedEntry, build_entries
 from .filter_noise import NoiseFit, fit_filter_noise
 from .friction import Identification, check_model_fit, identify
 from .model import ModelRequest, ModelResult, identify_robot
@@ -56,7 +57,8 @@ class TuneResult:
 
     def parameter_file(self, header: Sequence[str]) -> str:
         """The ROS 2 parameter YAML text of the result."""
-        return parameter_yaml(self.settings, self.written, self.entries, header)
+        return settings_file_text(self.settings, {*self.written, *self.entries},
+                                  {n: e.comment for n, e in self.entries.items()}, header)
 
 
 def bag_settings(base: Settings, recommended: Mapping[str, Any], params: Mapping[str, Any],
