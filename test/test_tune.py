@@ -332,10 +332,46 @@ def test_written_file_loads_unchanged_and_is_typed_for_ros(written, tuned):
              "str_array": ParameterType.PARAMETER_STRING_ARRAY,
              "int": ParameterType.PARAMETER_INTEGER, "bool": ParameterType.PARAMETER_BOOL}
     params = rclpy_parameter.parameter_dict_from_yaml_file(   # rclpy's own reader
-        str(written), target_nodes=["interaction_estimator"])
+        str(written), target_nodes=["/**/interaction_estimator"])
     assert set(params) >= set(result.entries)
     for name, msg in params.items():
         assert msg.value.type == kinds[SPEC_BY_NAME[name].kind], name
+
+
+def test_tuned_file_is_in_effect_in_a_namespaced_node(bags, tmp_path):
+    """The file the tune command writes, given to a node started in a namespace, sets every
+    value it holds. References: rclpy's own parameter-file reader for the values in the file,
+    and the node's parameters read back over DDS (its get_parameters service); ROS 2 applies a
+    section to a node by its fully qualified name, so a bare 'interaction_estimator:' section
+    would leave the node at /arm on its defaults."""
+    from rclpy.parameter import Parameter, parameter_dict_from_yaml_file
+    from ros_harness import NodeProcess, Peer, next_domain
+    out = tmp_path / "tuned.yaml"
+    assert T.main([str(bags["toolbox"]), "--out", str(out)]) == 0
+    assert "\n/**/interaction_estimator:\n  ros__parameters:\n" in out.read_text()
+    in_file = {name: Parameter.from_parameter_msg(msg).value for name, msg in
+               parameter_dict_from_yaml_file(str(out),
+                                             target_nodes=["/**/interaction_estimator"]).items()}
+    assert {"friction.viscous", "filter.measurement_std", "bias.initial"} <= set(in_file)
+    defaults = Settings()
+    assert any(defaults[n] != v for n, v in in_file.items() if not isinstance(v, list))
+    domain = next_domain()
+    node = NodeProcess(["-r", "__ns:=/arm", "--params-file", str(out)], domain,
+                       tmp_path / "node.log")
+    peer = Peer(domain, "/arm")
+    try:
+        Peer.wait_for(peer.get_params.service_is_ready, 60, "the node's parameter service",
+                      node)
+        for name, value in in_file.items():
+            got = peer.get_parameter(name).value
+            if isinstance(value, list):
+                assert list(got) == value, name
+            else:
+                assert got == value and type(got) is type(value), name
+        assert "has no section for this node" not in node.log()
+    finally:
+        peer.close()
+        node.stop()
 
 
 def test_command_line_single_bag_with_base_file_and_report(bags, tmp_path):

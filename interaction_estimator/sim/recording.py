@@ -11,8 +11,15 @@ import numpy as np
 
 from ..core.model import RobotModel
 from ..io.bag_writer import BagWriter
-from ..io.cdr import (JOINT_STATE, STRING, WRENCH_STAMPED, JointStateEncoder, encode_string,
-                      encode_wrench_stamped, seconds_to_stamp)
+from ..io.cdr import (
+    JOINT_STATE,
+    STRING,
+    WRENCH_STAMPED,
+    JointStateEncoder,
+    encode_string,
+    encode_wrench_stamped,
+    seconds_to_stamp,
+)
 from ..io.ground_truth import TRUTH_METADATA_KEY, GroundTruth
 
 SIMULATED_TIME_OFFSET = 1.0  # s added to simulation time in the stamps of a simulated bag
