@@ -18,9 +18,9 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Sequence
 
 PROG = "interaction-estimator"
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2

@@ -34,9 +34,10 @@ import sys
 import tempfile
 import threading
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -214,7 +215,7 @@ class NodeSession:
         except (OSError, ValueError):
             return ""
 
-    def __enter__(self) -> "NodeSession":
+    def __enter__(self) -> NodeSession:
         self.start()
         return self
 
@@ -284,7 +285,7 @@ class NodeSession:
         t0_bag = messages[0][0]
         t0 = time.perf_counter()
         stalled_since = None
-        for k, (ns, raw) in enumerate(messages):
+        for _k, (ns, raw) in enumerate(messages):
             if speed is not None:
                 due = t0 + (ns - t0_bag) * 1e-9 / speed
                 delay = due - time.perf_counter()
@@ -434,11 +435,17 @@ def compare_with_replay(node_cols: dict[str, np.ndarray], replay_cols: dict[str,
 def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
     env = isolate_ros()
     from .io.bag import RecordedBag
-    from .io.parameter_file import write_parameter_file
-    from .sim.recording import write_simulated_bag
     from .io.estimates import ForceReference, summarize
-    from .offline.replay import (ReplayError, ReplayRequest, StagedDir, check_output_dir, replay,
-                         write_outputs)
+    from .io.parameter_file import write_parameter_file
+    from .offline.replay import (
+        ReplayError,
+        ReplayRequest,
+        StagedDir,
+        check_output_dir,
+        replay,
+        write_outputs,
+    )
+    from .sim.recording import write_simulated_bag
     from .sim.simulator import SCENARIOS, simulate
     started = time.perf_counter()
     try:

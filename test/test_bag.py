@@ -12,9 +12,16 @@ from rosbags.typesys import Stores, get_typestore
 
 from interaction_estimator.io.bag import RecordedBag, TopicNames
 from interaction_estimator.io.bag_writer import BagWriter
-from interaction_estimator.io.cdr import (JOINT_STATE, STRING, WRENCH_STAMPED, JointStateDecoder,
-                                          JointStateEncoder, decode_wrench_stamped, encode_string,
-                                          encode_wrench_stamped)
+from interaction_estimator.io.cdr import (
+    JOINT_STATE,
+    STRING,
+    WRENCH_STAMPED,
+    JointStateDecoder,
+    JointStateEncoder,
+    decode_wrench_stamped,
+    encode_string,
+    encode_wrench_stamped,
+)
 from interaction_estimator.io.ground_truth import BagError, GroundTruth
 
 TS = get_typestore(Stores.ROS2_JAZZY)

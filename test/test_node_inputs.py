@@ -19,19 +19,18 @@ from builtin_interfaces.msg import Time as TimeMsg
 from diagnostic_msgs.msg import DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
 from rclpy.serialization import deserialize_message, serialize_message
+from ros_harness import contact_scenario
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 
-from interaction_estimator.ros import messages as nm
+from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.settings import Settings
 from interaction_estimator.io import cdr
 from interaction_estimator.io.effort_matching import EffortMatcher, efforts_in_order
+from interaction_estimator.ros import messages as nm
 from interaction_estimator.ros.inputs import LatencyMeter, WarningThrottle
 from interaction_estimator.ros.messages import outputs_finite
-from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import Settings
-
-from ros_harness import contact_scenario
 
 
 def pairs(out):
@@ -199,7 +198,7 @@ def test_wrench_and_environment_bytes_read_back_as_the_messages(frame_id):
     rng = np.random.default_rng(11)
     wrench, env = nm.WrenchEncoder(frame_id), nm.EnvironmentEncoder()
     assert wrench.raw and env.raw   # the encoders checked themselves and write bytes
-    for k in range(100):
+    for _ in range(100):
         est = random_estimate(rng)
         sec, nsec = int(rng.integers(0, 2**31)), int(rng.integers(0, 10**9))
         force, torque, values, stds = nm.output_numbers(nm.estimate_outputs(est))

@@ -18,9 +18,9 @@ from interaction_estimator import cli
 from interaction_estimator.io.bag import RecordedBag
 from interaction_estimator.io.bag_writer import BagWriter
 from interaction_estimator.io.cdr import JOINT_STATE, STRING, JointStateEncoder, encode_string
-from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.io.estimates import read_csv
 from interaction_estimator.offline.report import display
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -102,7 +102,8 @@ def test_force_rmse_equals_numpy_on_the_bag_reference(toolbox_replay, bags):
     contact = [i for i in rows if cols["in_contact"][i] == 1]
     est = np.column_stack([cols["force_x"], cols["force_y"], cols["force_z"]])
     truth = np.array([ref[cols["time"][i]] for i in range(len(cols["time"]))])
-    rmse = lambda idx: math.sqrt(np.mean(np.sum((est[idx] - truth[idx]) ** 2, axis=1)))
+    def rmse(idx):
+        return math.sqrt(np.mean(np.sum((est[idx] - truth[idx]) ** 2, axis=1)))
     summary = json.loads((toolbox_replay / "summary.json").read_text())
     assert summary["force"]["rmse_N"] == pytest.approx(rmse(rows), rel=1e-12)
     assert summary["force"]["rmse_contact_N"] == pytest.approx(rmse(contact), rel=1e-12)
@@ -513,8 +514,14 @@ def test_estimates_table_writes_csv_and_parquet_alike(tmp_path):
     columns), read back from the CSV by read_estimates and from Parquet by pyarrow's reader;
     the column names and order are the CSV contract (COLUMN_NAMES)."""
     import pyarrow.parquet as pq
-    from interaction_estimator.io.estimates import (_NUMERIC, COLUMN_NAMES, EstimateTable,
-                                                    read_estimates, write_estimates)
+
+    from interaction_estimator.io.estimates import (
+        _NUMERIC,
+        COLUMN_NAMES,
+        EstimateTable,
+        read_estimates,
+        write_estimates,
+    )
     rng = np.random.default_rng(21)
     cols = _random_columns(rng, 1000)
     table = EstimateTable(16)

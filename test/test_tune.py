@@ -27,15 +27,15 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from interaction_estimator.offline import tune as T
-from interaction_estimator.sim.recording import SIMULATED_TIME_OFFSET, write_simulated_bag
 from interaction_estimator.core.environment import PARAMETER_NAMES
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
-from interaction_estimator.sim.simulator import simulate
 from interaction_estimator.core.settings import SPEC_BY_NAME, Settings
 from interaction_estimator.io.files import write_atomic
 from interaction_estimator.io.parameter_file import load_parameter_file, parameters_from_yaml
+from interaction_estimator.offline import tune as T
+from interaction_estimator.sim.recording import SIMULATED_TIME_OFFSET, write_simulated_bag
+from interaction_estimator.sim.simulator import simulate
 
 DURATION = {"drawer": 5.0, "toolbox": 6.0, "commissioning": 12.0}
 TASKS = ("drawer", "toolbox")                 # with contact
@@ -240,7 +240,7 @@ def test_filter_noise_refuses_what_the_data_cannot_support(tuned):
     lo, hi = noise.measurement_interval
     assert lo < noise.measurement_std < hi
     assert abs(math.log(noise.nis_tuned)) < 0.05     # matched: mean NIS of the fit data ~ 1
-    for i, name in enumerate(PARAMETER_NAMES):
+    for i, _name in enumerate(PARAMETER_NAMES):
         if not noise.tuned[i]:   # kept: the base value, and the reason is written beside it
             assert noise.process_std[i] == result.base["filter.process_std"][i]
             assert noise.notes[i]

@@ -1,15 +1,18 @@
 """Reading rosbag2 bags (MCAP and sqlite3) through the ``rosbags`` reader.
 
-What a bag may hold, by role (relative names; a bag recorded on a robot usually has them with a
-leading slash or under a namespace, and both are found):
+What a bag may hold, by role and default topic (relative names; a bag recorded on a robot usually
+has them with a leading slash or under a namespace, and both are found):
 
-| role | default topic | type | use |
-|---|---|---|---|
-| joint_states | ``joint_states`` | sensor_msgs/msg/JointState | positions (rad, m), velocities (rad/s, m/s), efforts (N·m, N) |
-| joint_efforts | ``joint_efforts`` | sensor_msgs/msg/JointState | efforts alone, matched to joint states by stamp (optional) |
-| robot_description | ``robot_description`` | std_msgs/msg/String | URDF text (optional: ``--urdf FILE`` instead) |
-| reference | ``ground_truth/wrench`` | geometry_msgs/msg/WrenchStamped | force the robot applies, world frame, N (optional) |
-| parameters | ``ground_truth/parameters`` | std_msgs/msg/String | ground truth as JSON (optional, see :mod:`.ground_truth`) |
+* ``joint_states`` (default topic ``joint_states``, sensor_msgs/msg/JointState): positions
+  (rad, m), velocities (rad/s, m/s), efforts (N·m, N);
+* ``joint_efforts`` (``joint_efforts``, sensor_msgs/msg/JointState, optional): efforts alone,
+  matched to joint states by stamp;
+* ``robot_description`` (``robot_description``, std_msgs/msg/String, optional: ``--urdf FILE``
+  instead): URDF text;
+* ``reference`` (``ground_truth/wrench``, geometry_msgs/msg/WrenchStamped, optional): force the
+  robot applies, world frame, N;
+* ``parameters`` (``ground_truth/parameters``, std_msgs/msg/String, optional): ground truth as
+  JSON (see :mod:`.ground_truth`).
 
 Messages come from the ``rosbags`` reader (by log time, equal times in file order) in batches of
 :data:`BATCH` messages, about a storage chunk's worth. A batch of JointState messages with one
@@ -32,8 +35,15 @@ from typing import Any
 import numpy as np
 
 from ..core.samples import Sample, SampleBlock
-from .cdr import (JOINT_STATE, STRING, WRENCH_STAMPED, JointStateDecoder, decode_string,
-                  decode_wrench_stamped_many, stamp_seconds)
+from .cdr import (
+    JOINT_STATE,
+    STRING,
+    WRENCH_STAMPED,
+    JointStateDecoder,
+    decode_string,
+    decode_wrench_stamped_many,
+    stamp_seconds,
+)
 from .effort_matching import EffortMatcher, efforts_in_order
 from .ground_truth import TRUTH_METADATA_KEY, BagError, GroundTruth, ReferenceWrench
 

@@ -16,8 +16,14 @@ STORAGES = ("mcap", "sqlite3")
 
 
 def _qos(transient_local: bool, reliable: bool = True):
-    from rosbags.interfaces import (Qos, QosDurability, QosHistory, QosLiveliness,
-                                    QosReliability, QosTime)
+    from rosbags.interfaces import (
+        Qos,
+        QosDurability,
+        QosHistory,
+        QosLiveliness,
+        QosReliability,
+        QosTime,
+    )
     zero = QosTime(0, 0)
     return Qos(QosHistory.KEEP_LAST, 1 if transient_local else 100,
                QosReliability.RELIABLE if reliable else QosReliability.BEST_EFFORT,

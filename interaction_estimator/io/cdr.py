@@ -22,9 +22,10 @@ node, the replay and the bag reader use (so they see bit-identical sample times)
 from __future__ import annotations
 
 import struct
+from collections.abc import Sequence
 from dataclasses import dataclass
 from itertools import repeat
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 

@@ -146,7 +146,7 @@ class EstimateTable:
         return out
 
     @staticmethod
-    def from_columns(cols: Mapping[str, Sequence]) -> "EstimateTable":
+    def from_columns(cols: Mapping[str, Sequence]) -> EstimateTable:
         """A table from partial columns (others NaN; state '' when absent)."""
         n = len(cols["time"])
         t = EstimateTable(n)

@@ -49,7 +49,7 @@ class GroundTruth:
                            **self.extra}, sort_keys=True)
 
     @classmethod
-    def from_json(cls, text: str, where: str) -> "GroundTruth":
+    def from_json(cls, text: str, where: str) -> GroundTruth:
         try:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:

@@ -33,8 +33,16 @@ from typing import Any
 
 import yaml
 
-from ..core.settings import (NODE_NAME, SPEC_BY_NAME, SPECS, ParamSpec, Settings, SettingsError,
-                             flatten, nest)
+from ..core.settings import (
+    NODE_NAME,
+    SPEC_BY_NAME,
+    SPECS,
+    ParamSpec,
+    Settings,
+    SettingsError,
+    flatten,
+    nest,
+)
 from .files import write_atomic
 
 WIDTH = 96  # characters per comment line
@@ -314,7 +322,7 @@ def _comment(spec: ParamSpec, indent: str) -> list[str]:
         parts.append("Tuning: " + TUNING[spec.name])
     lines: list[str] = []
     width = WIDTH - len(indent) - 2
-    for i, part in enumerate(parts):
+    for part in parts:
         wrapped = textwrap.wrap(part, width=width, subsequent_indent="  ",
                                 break_on_hyphens=False)
         lines += [f"{indent}# {w}" for w in wrapped]

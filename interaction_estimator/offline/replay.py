@@ -23,34 +23,49 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import shutil
 import sys
-import tempfile
 import time
+from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
-from ..io.bag import RecordedBag, TopicNames
-from ..io.bag_writer import BagWriter
-from ..io.cdr import (DIAGNOSTIC_STATUS, FLOAT64_MULTI_ARRAY, WRENCH_STAMPED, StatusEncoder,
-                      WrenchEncoder, seconds_to_stamp)
-from ..io.files import Staged, write_atomic
-from ..io.ground_truth import BagError, GroundTruth
-from ..io.parameter_file import load_parameter_file
-from ..io.node_outputs import (NodeFigures, environment_encoder, estimate_outputs, output_numbers,
-                               status_fields)
-from ..io.estimates import (FILE_NAMES, FORMATS, EstimateTable, ForceReference, summarize,
-                            write_estimates)
 from ..core.model import ModelError
 from ..io.description_file import resolve as resolve_description
 from ..core.pipeline import Pipeline
 from ..core.samples import Sample
 from ..core.settings import NODE_NAME, Settings, SettingsError
+from ..io.bag import RecordedBag, TopicNames
+from ..io.bag_writer import BagWriter
+from ..io.cdr import (
+    DIAGNOSTIC_STATUS,
+    FLOAT64_MULTI_ARRAY,
+    WRENCH_STAMPED,
+    StatusEncoder,
+    WrenchEncoder,
+    seconds_to_stamp,
+)
+from ..io.estimates import (
+    FILE_NAMES,
+    FORMATS,
+    EstimateTable,
+    ForceReference,
+    summarize,
+    write_estimates,
+)
+from ..io.files import Staged, write_atomic
+from ..io.ground_truth import BagError, GroundTruth
+from ..io.node_outputs import (
+    NodeFigures,
+    environment_encoder,
+    estimate_outputs,
+    output_numbers,
+    status_fields,
+)
+from ..io.parameter_file import load_parameter_file
 
 OUTPUT_FILES = ("estimates.csv", "summary.json", "report.html")
 OUTPUT_BAG_DIR = "estimates_bag"

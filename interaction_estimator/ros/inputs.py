@@ -8,6 +8,7 @@ import time
 from collections.abc import Callable
 from typing import Any
 
+
 class WarningThrottle:
     """At most one log line per key every ``period_s`` seconds, with the count in between.
 

@@ -32,9 +32,17 @@ from ..core.samples import Sample
 from ..io import cdr
 from ..io.cdr import JointStateReader, seconds_to_stamp, stamp_seconds
 from ..io.effort_matching import efforts_in_order
-from ..io.node_outputs import (ENVIRONMENT_DIMS, NodeFigures, StatusFields, environment_encoder,
-                               estimate_outputs, idle_fields, output_numbers, outputs_finite,
-                               status_fields)
+from ..io.node_outputs import (
+    ENVIRONMENT_DIMS,
+    NodeFigures,
+    StatusFields,
+    environment_encoder,
+    estimate_outputs,
+    idle_fields,
+    output_numbers,
+    outputs_finite,
+    status_fields,
+)
 
 __all__ = [
     "MODEL_ERROR", "WAITING_FOR_INPUT", "WAITING_FOR_MODEL", "EnvironmentEncoder",

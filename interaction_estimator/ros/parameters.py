@@ -18,15 +18,24 @@ from __future__ import annotations
 
 import re
 import sys
+from collections.abc import Iterable, Sequence
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 from rcl_interfaces.msg import FloatingPointRange, IntegerRange, ParameterDescriptor
 from rclpy.parameter import Parameter
 
+from ..core.settings import (
+    PER_JOINT,
+    SPEC_BY_NAME,
+    SPECS,
+    ParamSpec,
+    Settings,
+    SettingsError,
+    per_joint,
+    validate_value,
+)
 from ..io.parameter_file import file_sections
-from ..core.settings import (PER_JOINT, SPEC_BY_NAME, SPECS, ParamSpec, Settings, SettingsError,
-                       per_joint, validate_value)
 
 _STATIC_TYPES = {
     "str": Parameter.Type.STRING,

@@ -97,12 +97,31 @@ import pinocchio as pin
 
 from .dynamics import _Door, _impact, _LinearObject, _Robot, _solve, _terms
 from .marten import CONTACT_FRAME, MOBILE_URDF, mobile_urdf
-from .motions import (POSTURE_DAMPING_RATIO, POSTURE_FREQUENCY, TASK_DAMPING, TASK_STIFFNESS,
-                      _JointPlan, _Plan)
-from .scenarios import (EFFORT_SIDES, FRICTION_COULOMB, FRICTION_VISCOUS, JOINT_NAMES,
-                        MAX_DURATION, RATE_RANGE, SCENARIOS, STANDARD_GRAVITY, JointSweep,
-                        ScenarioSpec, SimulatedRun, Wiggle, _check_args, door_along_arc,
-                        get_scenario)
+from .motions import (
+    POSTURE_DAMPING_RATIO,
+    POSTURE_FREQUENCY,
+    TASK_DAMPING,
+    TASK_STIFFNESS,
+    _JointPlan,
+    _Plan,
+)
+from .scenarios import (
+    EFFORT_SIDES,
+    FRICTION_COULOMB,
+    FRICTION_VISCOUS,
+    JOINT_NAMES,
+    MAX_DURATION,
+    RATE_RANGE,
+    SCENARIOS,
+    STANDARD_GRAVITY,
+    JointSweep,
+    ScenarioSpec,
+    SimulatedRun,
+    Wiggle,
+    _check_args,
+    door_along_arc,
+    get_scenario,
+)
 
 __all__ = ["SCENARIOS", "JOINT_NAMES", "FRICTION_VISCOUS", "FRICTION_COULOMB", "EFFORT_SIDES",
            "MAX_DURATION", "RATE_RANGE", "STANDARD_GRAVITY", "TASK_STIFFNESS", "TASK_DAMPING",

@@ -1,4 +1,5 @@
-"""Replay throughput on a long 1 kHz bag of the demo robot, beside the floor (prints, asserts nothing).
+"""Replay throughput on a long 1 kHz bag of the demo robot, beside the floor (prints, asserts
+nothing).
 
 Builds a bag of the mobile Marten (10 joints) moving for ``--minutes`` at 1 kHz, in contact with
 an invented spring-damper object from t = 2 s on (efforts by Pinocchio inverse dynamics plus the
@@ -28,15 +29,22 @@ from pathlib import Path
 import numpy as np
 import pinocchio as pin
 
-from interaction_estimator.io.bag import RecordedBag
-from interaction_estimator.io.bag_writer import BagWriter
-from interaction_estimator.io.cdr import (JOINT_STATE, STRING, JointStateDecoder, JointStateEncoder,
-                                          encode_string, seconds_to_stamp, typestore)
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.settings import Settings
+from interaction_estimator.io.bag import RecordedBag
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import (
+    JOINT_STATE,
+    STRING,
+    JointStateDecoder,
+    JointStateEncoder,
+    encode_string,
+    seconds_to_stamp,
+    typestore,
+)
 from interaction_estimator.offline.replay import ReplayRequest, replay, run_pipeline
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import Settings
 
 RATE = 1000.0  # Hz
 
