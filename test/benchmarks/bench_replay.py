@@ -16,7 +16,9 @@ contact torque, with noise), then measures in the same run:
              files).
 
 Figures: wall seconds, microseconds per sample, times real time, ratio to the floor.
-Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR]
+Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR] [--bag BAG]
+(``--bag``: an existing bag written by an earlier run with ``--keep``, to measure two checkouts
+on the same file.)
 """
 from __future__ import annotations
 
@@ -144,14 +146,20 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--minutes", type=float, default=10.0,
                         help="bag length in minutes at 1 kHz (default 10)")
     parser.add_argument("--keep", type=Path, help="keep the bag and the replay output here")
+    parser.add_argument("--bag", type=Path, help="use this bag (from an earlier --keep)")
     args = parser.parse_args(argv)
     work = Path(tempfile.mkdtemp(prefix="bench_replay."))
     try:
         bag = work / "marten_long"
         t0 = time.perf_counter()
-        n = write_bag(bag, args.minutes)
+        if args.bag is not None:
+            bag = args.bag
+            with RecordedBag(bag) as recorded:
+                n = recorded.info.joint_state_count
+        else:
+            n = write_bag(bag, args.minutes)
         duration = (n - 1) / RATE
-        size = sum(p.stat().st_size for p in bag.iterdir()) / 1e6
+        size = sum(p.stat().st_size for p in Path(bag).iterdir()) / 1e6
         print(f"bag: {n} joint states, {duration:.0f} s at {RATE:.0f} Hz, {size:.0f} MB MCAP, "
               f"built in {time.perf_counter() - t0:.1f} s")
         settings = Settings({"direction.mode": "world", "direction.vector": [1.0, 0.0, 0.0]})
