@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
-from ..core.health import LEVEL_NAMES, STATES
+from ..core.health import LEVEL_NAMES, STATE_LEARNING, STATES
 from .files import Staged
 
 SUMMARY_FORMAT = "interaction_estimator.summary/1"
@@ -346,7 +346,7 @@ def force_errors(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> 
     rows, refs = match_reference(cols, ref)
     est = np.column_stack([cols["force_x"], cols["force_y"], cols["force_z"]])[rows]
     err = np.linalg.norm(est - ref.force[refs], axis=1)
-    learning = np.asarray(cols["state"], dtype=object)[rows] == "learning_bias"
+    learning = np.asarray(cols["state"], dtype=object)[rows] == STATES[STATE_LEARNING]
     contact = cols["in_contact"][rows] > 0.5
     after = ~learning
 
