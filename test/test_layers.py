@@ -22,8 +22,6 @@ ROS_PACKAGE_SUFFIXES = ("_msgs", "_srvs", "_interfaces")
 # Known violations inside core/, left to the core rewrite (the lead removes each entry with the
 # fix; an entry that no longer occurs fails the test, so the list cannot go stale).
 KNOWN_CORE_VIOLATIONS = {
-    ("interaction_estimator.core.warmup", "interaction_estimator.io.estimates"),
-    ("interaction_estimator.core.warmup", "interaction_estimator.sim.marten"),
     ("interaction_estimator.core.settings", "yaml"),
 }
 # Known circles outside core/, each with its owner's fix (remove the entry with the fix; a
