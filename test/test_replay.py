@@ -542,6 +542,31 @@ def test_estimates_table_writes_csv_and_parquet_alike(tmp_path):
                 assert np.array_equal(np.isnan(a), np.isnan(b)), (path.name, name)
 
 
+def test_replay_writes_parquet_on_request(bags, drawer_replays, tmp_path, capsys):
+    """``replay --format parquet``: estimates.parquet instead of estimates.csv, the same
+    columns and numbers. Reference: the CSV replay of the same bag, read back as floats, and
+    pyarrow's own Parquet reader."""
+    import pyarrow.parquet as pq
+
+    from interaction_estimator.io.estimates import COLUMN_NAMES, read_estimates
+    code, out, _ = run_cli(["replay", bags["drawer"][0], "--out", tmp_path / "p",
+                            "--format", "parquet"], capsys)
+    assert code == 0 and "estimates.parquet" in out
+    assert not (tmp_path / "p" / "estimates.csv").exists()
+    table = pq.read_table(tmp_path / "p" / "estimates.parquet")
+    assert table.column_names == list(COLUMN_NAMES)
+    mine = read_estimates(tmp_path / "p" / "estimates.parquet")
+    ref = read_csv(drawer_replays / "mcap" / "estimates.csv")
+    for name in COLUMN_NAMES:
+        if name == "state":
+            assert mine[name].tolist() == ref[name].tolist()
+        else:
+            np.testing.assert_array_equal(mine[name], ref[name], err_msg=name)
+    code, _, err = run_cli(["replay", bags["drawer"][0], "--out", tmp_path / "q",
+                            "--format", "xlsx"], capsys)
+    assert code == 2 and "invalid choice: 'xlsx'" in err
+
+
 def test_csv_writer_names_a_value_it_cannot_write(tmp_path):
     """Reference: the column and value put in; an infinite level or a flag of 2.5 has no
     integer text (common practice, no source: say what was wrong and what was expected)."""
