@@ -18,19 +18,25 @@ from __future__ import annotations
 
 import json
 
-import numpy as np
-import pytest
-
 import identification_world as W
 import mujoco_world as mw
+import numpy as np
+import pytest
 import real_robots
+
 from interaction_estimator import cli
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, WRENCH_STAMPED, BagWriter,
-                                          JointStateEncoder, encode_string,
-                                          encode_wrench_stamped)
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import (
+    JOINT_STATE,
+    STRING,
+    WRENCH_STAMPED,
+    JointStateEncoder,
+    encode_string,
+    encode_wrench_stamped,
+)
 from interaction_estimator.offline import tune as T
 from interaction_estimator.offline.excitation import optimize, resolve
 from interaction_estimator.offline.identification import Tool

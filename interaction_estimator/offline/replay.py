@@ -34,7 +34,6 @@ from typing import Any, TextIO
 import numpy as np
 
 from ..core.model import ModelError
-from ..io.description_file import resolve as resolve_description
 from ..core.pipeline import Pipeline
 from ..core.samples import Sample
 from ..core.settings import NODE_NAME, Settings, SettingsError
@@ -48,6 +47,7 @@ from ..io.cdr import (
     WrenchEncoder,
     seconds_to_stamp,
 )
+from ..io.description_file import resolve as resolve_description
 from ..io.estimates import (
     FILE_NAMES,
     FORMATS,

@@ -4,24 +4,24 @@ from __future__ import annotations
 import argparse
 import math
 import sys
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.environment import PARAMETER_NAMES
 from ...core.model import ModelError
 from ...core.settings import SettingsError
-from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
-from ..identification import Tool
-from ..identification.signals import DEFAULT_WINDOW
 from ...io.description_file import resolve as resolve_description
 from ...io.files import write_atomic
+from ..identification import Tool
+from ..identification.signals import DEFAULT_WINDOW
+from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
 from .entries import _interval, file_header, model_summary, point_at_model, urdf_header
 from .model import ModelRequest
 from .procedure import TuneResult, tune
 from .recordings import Recording, read_bag
-
 
 # ============================================================================================
 # explanation
@@ -94,7 +94,8 @@ def explain_model(r: TuneResult) -> list[str]:
                    f"{num(moved, 11)}{num(ci, 9)}")
     out.append("  (mass kg; 'CoM moved': distance in m from the URDF's centre of mass (a tool: "
                "from its link's origin); +/-: 95 %; 'determined': of 10 parameters' worth)")
-    out.append(f"  {'joint':<24}{'residual URDF':>15}{'identified':>12}   (held-out, RMS, N.m or N)")
+    out.append(f"  {'joint':<24}{'residual URDF':>15}{'identified':>12}"
+               "   (held-out, RMS, N.m or N)")
     for j, name in enumerate(ident.joints):
         out.append(f"  {name:<24}{ident.residual_before[j]:15.4g}{ident.residual_after[j]:12.4g}")
     out += [f"  note: {n}" for n in ident.notes]

@@ -6,7 +6,6 @@ import math
 from ...core.health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING, PHASES  # noqa: F401
 from ...core.settings import SPEC_BY_NAME
 
-
 PROG = "interaction-estimator tune"
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 

@@ -2,18 +2,28 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.pipeline import Pipeline
 from ...core.settings import Settings, SettingsError, per_joint
-from .common import (CONTACT, FREE_ONLY_USE, LEARNING, MAX_SEGMENTATION_PASSES,
-                     MIN_BAG_DURATION, MIN_CONTACT_TIME, MIN_FREE_TIME, MIN_MOVING_TIME,
-                     TuneError, _clamp)
 from ...io.parameter_file import settings_file_text
+from .common import (
+    CONTACT,
+    FREE_ONLY_USE,
+    LEARNING,
+    MAX_SEGMENTATION_PASSES,
+    MIN_BAG_DURATION,
+    MIN_CONTACT_TIME,
+    MIN_FREE_TIME,
+    MIN_MOVING_TIME,
+    TuneError,
+    _clamp,
+)
 from .entries import TunedEntry, build_entries
 from .filter_noise import NoiseFit, fit_filter_noise
 from .friction import Identification, check_model_fit, identify
@@ -21,7 +31,6 @@ from .model import ModelRequest, ModelResult, identify_robot
 from .passes import FilterTape, Trace, run_pass
 from .recordings import Recording
 from .segments import Segment, contact_segments, free_mask, margin, onset_time
-
 
 # ============================================================================================
 # the whole tuning
