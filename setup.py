@@ -16,7 +16,7 @@ setup(
         (f"share/{PACKAGE}/launch", glob("launch/*.py")),
         (f"share/{PACKAGE}/config", glob("config/*.yaml")),
     ],
-    install_requires=["numpy", "scipy", "numba", "PyYAML", "rosbags", "matplotlib"],
+    install_requires=["numpy", "scipy", "numba", "PyYAML", "rosbags", "matplotlib", "pyarrow"],
     zip_safe=True,
     maintainer="interaction_estimator maintainers",
     maintainer_email="engineering@interaction-estimator.invalid",

@@ -18,9 +18,9 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Sequence
 
 PROG = "interaction-estimator"
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
@@ -132,13 +132,16 @@ def _replay_arguments(p: argparse.ArgumentParser) -> None:
                    help="parallel processes for several bags (default: one per core)")
     p.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                    help="progress bar on stderr (default: only on a terminal)")
+    p.add_argument("--format", choices=("csv", "parquet"), default="csv", dest="file_format",
+                   help="estimates file: csv (estimates.csv, default) or parquet "
+                        "(estimates.parquet, the same columns)")
 
 
 def _replay(args: argparse.Namespace) -> int:
     from .offline.replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
     common = dict(params=args.params, urdf=args.urdf, topics=tuple(args.topics),
                   reference_topic=args.reference_topic, output_bag=args.output_bag,
-                  bag_settings=not args.ignore_bag_settings)
+                  bag_settings=not args.ignore_bag_settings, file_format=args.file_format)
     if len(args.bags) == 1:
         try:
             result = replay(ReplayRequest(args.bags[0], args.out, progress=args.progress,
@@ -146,7 +149,7 @@ def _replay(args: argparse.Namespace) -> int:
         except INPUT_ERRORS as exc:
             raise UsageError(str(exc)) from None
         print(format_summary(result.summary))
-        print(f"wrote {args.out}/estimates.csv, summary.json, report.html"
+        print(f"wrote {args.out}/estimates.{args.file_format}, summary.json, report.html"
               + (", estimates_bag" if args.output_bag else ""))
         return EXIT_OK
     names = subdir_names(args.bags)
@@ -209,7 +212,8 @@ def _simulate_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _simulate(args: argparse.Namespace) -> int:
-    from .io.bag import BagError, write_simulated_bag
+    from .io.ground_truth import BagError
+    from .sim.recording import write_simulated_bag
     from .sim.simulator import SCENARIOS, simulate
     # refuse a bad target before spending the simulation time on it
     if args.out.exists():

@@ -34,9 +34,10 @@ import sys
 import tempfile
 import threading
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -68,15 +69,6 @@ def isolate_ros(env: dict[str, str] | None = None, domain: int | None = None) ->
     env.setdefault("RMW_IMPLEMENTATION", "rmw_fastrtps_cpp")
     return {k: env[k] for k in ("ROS_AUTOMATIC_DISCOVERY_RANGE", "ROS_DOMAIN_ID",
                                 "RMW_IMPLEMENTATION")}
-
-
-def write_parameter_file(path: Path, settings: dict[str, Any]) -> None:
-    """A ROS 2 parameter YAML for the node holding ``settings`` (dotted names)."""
-    import yaml
-
-    from .core.settings import nest
-    doc = {NODE_NAME: {"ros__parameters": nest(settings)}}
-    path.write_text(yaml.safe_dump(doc, sort_keys=True), encoding="utf-8")
 
 
 # --------------------------------------------------------------------------------------------
@@ -223,7 +215,7 @@ class NodeSession:
         except (OSError, ValueError):
             return ""
 
-    def __enter__(self) -> "NodeSession":
+    def __enter__(self) -> NodeSession:
         self.start()
         return self
 
@@ -293,7 +285,7 @@ class NodeSession:
         t0_bag = messages[0][0]
         t0 = time.perf_counter()
         stalled_since = None
-        for k, (ns, raw) in enumerate(messages):
+        for _k, (ns, raw) in enumerate(messages):
             if speed is not None:
                 due = t0 + (ns - t0_bag) * 1e-9 / speed
                 delay = due - time.perf_counter()
@@ -339,7 +331,7 @@ def bag_joint_state_messages(bag_path: Path) -> tuple[list[tuple[int, bytes]], s
 def recording_columns(rec: NodeRecording) -> dict[str, np.ndarray]:
     """Estimate columns from the node's messages: force and parameters per wrench/environment
     pair (in arrival order), the rest from the latest status before each pair."""
-    from .io.bag import stamp_seconds
+    from .io.cdr import stamp_seconds
     from .io.estimates import EstimateTable
     n = min(len(rec.wrench), len(rec.environment))
     w = np.array(rec.wrench[:n], dtype=float).reshape(-1, 8)
@@ -392,7 +384,8 @@ def demo_settings(scenario_settings: dict[str, Any]) -> dict[str, Any]:
     (config/marten_demo.yaml, when present) with the scenario's own settings on top (its
     manipulation direction, effort side and contact frame describe the task, which a robot's
     file cannot know)."""
-    from .core.settings import Settings, load_parameter_file
+    from .core.settings import Settings
+    from .io.parameter_file import load_parameter_file
     base = load_parameter_file(DEMO_PARAMS) if DEMO_PARAMS.exists() else Settings()
     merged = base.replace(scenario_settings)
     default = Settings()
@@ -441,10 +434,18 @@ def compare_with_replay(node_cols: dict[str, np.ndarray], replay_cols: dict[str,
 
 def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
     env = isolate_ros()
-    from .io.bag import ReferenceWrench, RecordedBag, write_simulated_bag  # noqa: F401
+    from .io.bag import RecordedBag
     from .io.estimates import ForceReference, summarize
-    from .offline.replay import (ReplayError, ReplayRequest, StagedDir, check_output_dir, replay,
-                         write_outputs)
+    from .io.parameter_file import write_parameter_file
+    from .offline.replay import (
+        ReplayError,
+        ReplayRequest,
+        StagedDir,
+        check_output_dir,
+        replay,
+        write_outputs,
+    )
+    from .sim.recording import write_simulated_bag
     from .sim.simulator import SCENARIOS, simulate
     started = time.perf_counter()
     try:

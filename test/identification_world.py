@@ -16,8 +16,8 @@ from __future__ import annotations
 
 import re
 import xml.etree.ElementTree as ET
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import mujoco
 import numpy as np

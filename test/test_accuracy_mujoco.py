@@ -8,14 +8,14 @@ forces, the simulated object's own parameters).
 Measurement corruption, where applied (the levels the issues set): effort noise 0.1 N·m, velocity
 noise 0.003 rad/s, 18-bit encoders, a constant per-joint torque bias of up to 2 N·m.
 """
+import mujoco_world as mw
 import numpy as np
 import pytest
 
-import mujoco_world as mw
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
-from interaction_estimator.sim import marten
 from interaction_estimator.core.settings import STANDARD_GRAVITY, Settings
+from interaction_estimator.sim import marten
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 ARM_BIAS = np.array([2.0, -1.5, 1.0, -2.0, 0.8, -0.6, 0.5])  # N·m, up to 2 N·m per joint

@@ -7,14 +7,13 @@ bad values), PyYAML's own parse, and the Marten URDF for the demo file's frame.
 from __future__ import annotations
 
 import yaml
-
-from interaction_estimator.io import parameter_file as config_file
-from interaction_estimator.core.model import RobotModel
-from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import (SPEC_BY_NAME, SPECS, Settings, flatten,
-                                            load_parameter_file)
-
 from ros_harness import REPO
+
+from interaction_estimator.core.model import RobotModel
+from interaction_estimator.core.settings import SPEC_BY_NAME, SPECS, Settings, flatten
+from interaction_estimator.io import parameter_file as config_file
+from interaction_estimator.io.parameter_file import load_parameter_file
+from interaction_estimator.sim import marten
 
 DEFAULT_YAML = REPO / "config" / "default.yaml"
 DEMO_YAML = REPO / "config" / "marten_demo.yaml"

@@ -15,8 +15,12 @@ from filterpy.kalman import KalmanFilter
 from scipy.optimize import lsq_linear
 from scipy.stats import chi2
 
-from interaction_estimator.core.environment import (PARAMETER_NAMES, PARAMETER_UNITS,
-                                               EnvironmentFilter, FilterStep)
+from interaction_estimator.core.environment import (
+    PARAMETER_NAMES,
+    PARAMETER_UNITS,
+    EnvironmentFilter,
+    FilterStep,
+)
 from interaction_estimator.core.samples import SampleRejected
 from interaction_estimator.core.settings import Settings, SettingsError
 

@@ -15,9 +15,9 @@ import textwrap
 
 import numpy as np
 import pytest
+import real_robots
 import yaml
 
-import real_robots
 from interaction_estimator import cli
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.offline.excitation import LimitsError, optimize, resolve

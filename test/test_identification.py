@@ -15,20 +15,28 @@
 """
 from __future__ import annotations
 
+import identification_world as W
 import numpy as np
 import pinocchio as pin
 import pytest
-
-import identification_world as W
 import real_robots
+
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.offline.excitation import fit_to_limits, resolve
-from interaction_estimator.offline.identification import (Options, RawRun, Tool, exact,
-                                                          identify_model, prepare)
+from interaction_estimator.offline.identification import (
+    Options,
+    RawRun,
+    Tool,
+    exact,
+    identify_model,
+    prepare,
+)
 from interaction_estimator.offline.identification import inertia as inr
-from interaction_estimator.offline.identification.regressor import (base_parameters,
-                                                                    random_states,
-                                                                    stacked_regressor)
+from interaction_estimator.offline.identification.regressor import (
+    base_parameters,
+    random_states,
+    stacked_regressor,
+)
 from interaction_estimator.sim import marten
 
 ROBOTS = {"marten": (marten.arm_urdf(), "tool_tip"),

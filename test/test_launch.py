@@ -13,8 +13,9 @@ from pathlib import Path
 
 import pytest
 
+from interaction_estimator.core.settings import NODE_NAME, SPEC_BY_NAME
+from interaction_estimator.io.parameter_file import load_parameter_file
 from interaction_estimator.ros import node as estimator_node
-from interaction_estimator.core.settings import NODE_NAME, SPEC_BY_NAME, load_parameter_file
 
 REPO = Path(__file__).resolve().parents[1]
 LAUNCH = REPO / "launch" / "interaction_estimator.launch.py"

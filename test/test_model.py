@@ -5,8 +5,8 @@ import pytest
 
 from interaction_estimator.core.model import ModelError, RobotModel
 from interaction_estimator.core.samples import Sample, SampleRejected
-from interaction_estimator.sim import marten
 from interaction_estimator.core.settings import STANDARD_GRAVITY
+from interaction_estimator.sim import marten
 
 # Two-link planar elbow arm in the vertical x-z plane (joint axes along -y, so a positive angle
 # raises the link), parameters chosen for the test.
@@ -29,8 +29,8 @@ def planar_urdf():
         f'<joint name="j2" type="revolute"><parent link="l1"/><child link="l2"/>'
         f'<origin xyz="{L1} 0 0"/><axis xyz="0 -1 0"/>'
         '<limit lower="-3" upper="3" effort="10" velocity="5"/></joint>' + link("l2", M2, LC2, I2) +
-        f'<joint name="tip_joint" type="fixed"><parent link="l2"/><child link="tip"/>'
-        f'<origin xyz="0.4 0 0"/></joint><link name="tip"/></robot>')
+        '<joint name="tip_joint" type="fixed"><parent link="l2"/><child link="tip"/>'
+        '<origin xyz="0.4 0 0"/></joint><link name="tip"/></robot>')
 
 
 def spong_terms(q1, q2, dq1, dq2, g):

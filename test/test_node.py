@@ -16,6 +16,18 @@ import numpy as np
 import pytest
 from rclpy.parameter import Parameter
 from rclpy.serialization import deserialize_message, serialize_message
+from ros_harness import (
+    REPO,
+    NodeProcess,
+    Peer,
+    contact_scenario,
+    level,
+    next_domain,
+    publish_paced,
+    sample_of,
+    still_scenario,
+    values,
+)
 from sensor_msgs.msg import JointState
 from std_msgs.msg import String
 from std_srvs.srv import Trigger
@@ -23,11 +35,8 @@ from std_srvs.srv import Trigger
 from interaction_estimator.core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 from interaction_estimator.core.model import ModelError, RobotModel
 from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.io.parameter_file import load_parameter_file
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import load_parameter_file
-
-from ros_harness import (REPO, NodeProcess, Peer, contact_scenario, level, next_domain,
-                         publish_paced, sample_of, still_scenario, values)
 
 DEFAULT_YAML = REPO / "config" / "default.yaml"
 RATE_HZ = 500.0          # wall-clock publishing rate of the tests

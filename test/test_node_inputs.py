@@ -19,17 +19,18 @@ from builtin_interfaces.msg import Time as TimeMsg
 from diagnostic_msgs.msg import DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
 from rclpy.serialization import deserialize_message, serialize_message
+from ros_harness import contact_scenario
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 
-from interaction_estimator.ros import messages as nm
-from interaction_estimator.ros.inputs import EffortMatcher, LatencyMeter, WarningThrottle
-from interaction_estimator.ros.messages import outputs_finite
 from interaction_estimator.core.pipeline import Pipeline
-from interaction_estimator.sim import marten
 from interaction_estimator.core.settings import Settings
-
-from ros_harness import contact_scenario
+from interaction_estimator.io import cdr
+from interaction_estimator.io.effort_matching import EffortMatcher, efforts_in_order
+from interaction_estimator.ros import messages as nm
+from interaction_estimator.ros.inputs import LatencyMeter, WarningThrottle
+from interaction_estimator.ros.messages import outputs_finite
+from interaction_estimator.sim import marten
 
 
 def pairs(out):
@@ -65,6 +66,28 @@ def test_unusable_efforts_are_counted_and_buffers_are_bounded():
     out = [p for k in range(5) for p in m.add_state(2.0 + 0.002 * k, f"t{k}")]
     assert pairs(out) == [(2.0, "t0", None), (2.002, "t1", None)]
     assert m.pending() == 3
+    # the end of a recording: the states still waiting are given up, efforts left unused
+    assert pairs(m.flush()) == [(2.004, "t2", None), (2.006, "t3", None), (2.008, "t4", None)]
+    assert m.add_effort(3.0, "e9") == [] and m.flush() == []
+    assert m.pending() == 0 and m.unused_efforts == 5
+
+
+def test_efforts_are_arranged_in_the_joint_order_of_the_state():
+    """Reference: the rule documented in efforts_in_order, applied by hand."""
+    assert efforts_in_order(("a", "b", "c"), ("c", "a", "b"), (3.0, 1.0, 2.0)) == (
+        [1.0, 2.0, 3.0], "")
+    assert efforts_in_order(("a", "b"), (), (1.0, 2.0)) == ([1.0, 2.0], "")   # state order
+    values, why = efforts_in_order(("a", "b"), (), (1.0,))
+    assert values is None and "no names and 1 efforts; expected 2" in why
+    values, why = efforts_in_order(("a", "b"), ("a", "b"), (1.0,))
+    assert values is None and "2 names but 1 efforts" in why
+    # a joint the model does not have needs no effort (0.0, unused); one it has does
+    assert efforts_in_order(("a", "gripper"), ("a",), (1.5,), model_joints=("a",)) == (
+        [1.5, 0.0], "")
+    values, why = efforts_in_order(("a", "gripper"), ("gripper",), (1.5,), model_joints=("a",))
+    assert values is None and "lacks model joints ['a']" in why
+    values, why = efforts_in_order(("a", "b"), ("a",), (1.5,))   # every joint of the state
+    assert values is None and "lacks joints ['b']" in why
 
 
 def test_throttle_reports_once_per_period_with_the_count_in_between():
@@ -175,15 +198,19 @@ def test_wrench_and_environment_bytes_read_back_as_the_messages(frame_id):
     rng = np.random.default_rng(11)
     wrench, env = nm.WrenchEncoder(frame_id), nm.EnvironmentEncoder()
     assert wrench.raw and env.raw   # the encoders checked themselves and write bytes
-    for k in range(100):
+    for _ in range(100):
         est = random_estimate(rng)
         sec, nsec = int(rng.integers(0, 2**31)), int(rng.integers(0, 10**9))
         force, torque, values, stds = nm.output_numbers(nm.estimate_outputs(est))
         raw = wrench.encode(sec, nsec, force, torque)
         assert isinstance(raw, bytes)
+        assert raw == cdr.WrenchEncoder(frame_id).encode(sec, nsec, force, torque)
         expected = nm.wrench_message(est, frame_id, TimeMsg(sec=sec, nanosec=nsec))
         assert deserialize_message(raw, WrenchStamped) == expected
         raw = env.encode(values, stds)
+        assert raw == cdr.Float64MultiArrayEncoder(
+            [(d.label, d.size, d.stride) for d in nm.environment_message_template().layout.dim],
+            8).encode(*values, *stds)
         assert deserialize_message(raw, Float64MultiArray) == nm.environment_message(est)
 
 
@@ -228,6 +255,7 @@ def test_status_bytes_read_back_as_the_status_message():
         fig = figs[i % 2]
         raw = encoder.encode(nm.status_fields(est, fig, "marten_mobile"))
         assert isinstance(raw, bytes)
+        assert raw == cdr.StatusEncoder().encode(nm.status_fields(est, fig, "marten_mobile"))
         assert deserialize_message(raw, DiagnosticStatus) == nm.status_message(
             est, fig, "marten_mobile")
     for fig in figs:

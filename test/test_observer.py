@@ -2,9 +2,9 @@
 import numpy as np
 import pytest
 
-from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.compensation import BiasEstimator
 from interaction_estimator.core.contact import ContactMonitor
+from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.observer import MomentumObserver
 
 MASS = 2.5  # kg, a single prismatic slider moving horizontally

@@ -10,12 +10,12 @@ numbers, bit for bit.
 import numpy as np
 import pytest
 
-from interaction_estimator.io.estimates import EstimateTable
-from interaction_estimator.ros.messages import estimate_outputs
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import SampleBlock
-from interaction_estimator.sim.simulator import simulate
 from interaction_estimator.core.settings import Settings
+from interaction_estimator.io.estimates import EstimateTable
+from interaction_estimator.ros.messages import estimate_outputs
+from interaction_estimator.sim.simulator import simulate
 
 
 def blocks_with_bad_samples(run, size: int):

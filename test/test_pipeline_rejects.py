@@ -13,8 +13,8 @@ import pytest
 
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
-from interaction_estimator.sim import marten
 from interaction_estimator.core.settings import Settings
+from interaction_estimator.sim import marten
 
 
 def motion(n: int, names: tuple[str, ...]):

@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 
 from interaction_estimator.offline import report
-from interaction_estimator.io.bag import write_simulated_bag
 from interaction_estimator.offline.replay import ReplayRequest, replay
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")

@@ -1,8 +1,8 @@
 """Settings registry and the ROS 2 parameter-file format."""
 import pytest
 
-from interaction_estimator.core.settings import (SPECS, Settings, SettingsError, load_parameter_file,
-                                            parameters_from_yaml, per_joint)
+from interaction_estimator.core.settings import SPECS, Settings, SettingsError, per_joint
+from interaction_estimator.io.parameter_file import load_parameter_file, parameters_from_yaml
 
 
 def test_defaults_validate_and_every_spec_has_unit_or_text():
@@ -14,7 +14,8 @@ def test_defaults_validate_and_every_spec_has_unit_or_text():
 
 @pytest.mark.parametrize("name,value,expected", [
     ("filter.fading_factor", 1.0, r"filter.fading_factor: 1.0 is out of range; expected \(0, 1\)"),
-    ("filter.initial_std", [1, 2, -3, 4], r"filter.initial_std\[2\]: -3.0 kg, N·s/m, N/m, N is out"),
+    ("filter.initial_std", [1, 2, -3, 4],
+     r"filter.initial_std\[2\]: -3.0 kg, N·s/m, N/m, N is out"),
     ("direction.vector", [0, 0, 0], "has zero length"),
     ("direction.mode", "sideways", "expected one of 'world', 'contact', 'estimated'"),
     ("observer.gain", "fast", "not a list of numbers"),

@@ -22,13 +22,13 @@ from interaction_estimator.sim import simulator as sim
 G0 = 9.80665  # m/s^2, standard gravity, CGPM 1901
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def clean_run(name: str) -> sim.SimulatedRun:
     """Each scenario at its own duration, without measurement corruption (cached)."""
     return sim.simulate(name, noise=False)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def noisy_run(effort_side: str, seed: int = 3) -> sim.SimulatedRun:
     return sim.simulate("drawer", duration=5.0, seed=seed, effort_side=effort_side)
 
@@ -354,7 +354,7 @@ def test_sample_rate_and_shapes():
 COMMISSIONING_DURATION = 12.0   # s, as the tuning tests use it
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def commissioning_run(noise: bool = False) -> sim.SimulatedRun:
     return sim.simulate("commissioning", duration=COMMISSIONING_DURATION, seed=1,
                         effort_side="motor", noise=noise)

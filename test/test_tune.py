@@ -27,14 +27,15 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from interaction_estimator.offline import tune as T
-from interaction_estimator.io.bag import SIMULATED_TIME_OFFSET, write_simulated_bag
 from interaction_estimator.core.environment import PARAMETER_NAMES
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
+from interaction_estimator.core.settings import SPEC_BY_NAME, Settings
+from interaction_estimator.io.files import write_atomic
+from interaction_estimator.io.parameter_file import load_parameter_file, parameters_from_yaml
+from interaction_estimator.offline import tune as T
+from interaction_estimator.sim.recording import SIMULATED_TIME_OFFSET, write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
-from interaction_estimator.core.settings import (SPEC_BY_NAME, Settings, load_parameter_file,
-                                            parameters_from_yaml)
 
 DURATION = {"drawer": 5.0, "toolbox": 6.0, "commissioning": 12.0}
 TASKS = ("drawer", "toolbox")                 # with contact
@@ -112,7 +113,7 @@ def tuned_on_tasks(bags):
 def written(tuned, tmp_path_factory):
     result, _ = tuned
     path = tmp_path_factory.mktemp("tune_out") / "tuned.yaml"
-    T.write_text_atomic(path, result.parameter_file(["test"]))
+    write_atomic(path, result.parameter_file(["test"]))
     return path
 
 
@@ -239,7 +240,7 @@ def test_filter_noise_refuses_what_the_data_cannot_support(tuned):
     lo, hi = noise.measurement_interval
     assert lo < noise.measurement_std < hi
     assert abs(math.log(noise.nis_tuned)) < 0.05     # matched: mean NIS of the fit data ~ 1
-    for i, name in enumerate(PARAMETER_NAMES):
+    for i, _name in enumerate(PARAMETER_NAMES):
         if not noise.tuned[i]:   # kept: the base value, and the reason is written beside it
             assert noise.process_std[i] == result.base["filter.process_std"][i]
             assert noise.notes[i]
@@ -331,10 +332,46 @@ def test_written_file_loads_unchanged_and_is_typed_for_ros(written, tuned):
              "str_array": ParameterType.PARAMETER_STRING_ARRAY,
              "int": ParameterType.PARAMETER_INTEGER, "bool": ParameterType.PARAMETER_BOOL}
     params = rclpy_parameter.parameter_dict_from_yaml_file(   # rclpy's own reader
-        str(written), target_nodes=["interaction_estimator"])
+        str(written), target_nodes=["/**/interaction_estimator"])
     assert set(params) >= set(result.entries)
     for name, msg in params.items():
         assert msg.value.type == kinds[SPEC_BY_NAME[name].kind], name
+
+
+def test_tuned_file_is_in_effect_in_a_namespaced_node(bags, tmp_path):
+    """The file the tune command writes, given to a node started in a namespace, sets every
+    value it holds. References: rclpy's own parameter-file reader for the values in the file,
+    and the node's parameters read back over DDS (its get_parameters service); ROS 2 applies a
+    section to a node by its fully qualified name, so a bare 'interaction_estimator:' section
+    would leave the node at /arm on its defaults."""
+    from rclpy.parameter import Parameter, parameter_dict_from_yaml_file
+    from ros_harness import NodeProcess, Peer, next_domain
+    out = tmp_path / "tuned.yaml"
+    assert T.main([str(bags["toolbox"]), "--out", str(out)]) == 0
+    assert "\n/**/interaction_estimator:\n  ros__parameters:\n" in out.read_text()
+    in_file = {name: Parameter.from_parameter_msg(msg).value for name, msg in
+               parameter_dict_from_yaml_file(str(out),
+                                             target_nodes=["/**/interaction_estimator"]).items()}
+    assert {"friction.viscous", "filter.measurement_std", "bias.initial"} <= set(in_file)
+    defaults = Settings()
+    assert any(defaults[n] != v for n, v in in_file.items() if not isinstance(v, list))
+    domain = next_domain()
+    node = NodeProcess(["-r", "__ns:=/arm", "--params-file", str(out)], domain,
+                       tmp_path / "node.log")
+    peer = Peer(domain, "/arm")
+    try:
+        Peer.wait_for(peer.get_params.service_is_ready, 60, "the node's parameter service",
+                      node)
+        for name, value in in_file.items():
+            got = peer.get_parameter(name).value
+            if isinstance(value, list):
+                assert list(got) == value, name
+            else:
+                assert got == value and type(got) is type(value), name
+        assert "has no section for this node" not in node.log()
+    finally:
+        peer.close()
+        node.stop()
 
 
 def test_command_line_single_bag_with_base_file_and_report(bags, tmp_path):

@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import pytest
 
-from interaction_estimator.io.bag import write_simulated_bag
 from interaction_estimator.offline import tune as T
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
 
 

@@ -18,17 +18,17 @@ import textwrap
 import numpy as np
 import pinocchio as pin
 import pytest
+import real_robots
 
 from interaction_estimator import cli
 from interaction_estimator.core.model import ModelError, RobotModel
 from interaction_estimator.core.urdf_check import inertial_problems
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateEncoder,
-                                          encode_string, write_simulated_bag)
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import JOINT_STATE, STRING, JointStateEncoder, encode_string
 from interaction_estimator.offline import tune as T
 from interaction_estimator.sim import marten
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
-
-import real_robots
 
 NOT_A_NUMBER = "np.float64(0.0103)"
 

@@ -4,8 +4,9 @@ it by its file name alone, so the pair can be moved together); one given on the 
 (``-p robot_description_file:=...``) or absolute is taken as it is."""
 from __future__ import annotations
 
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import yaml
 

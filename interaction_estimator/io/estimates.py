@@ -13,17 +13,17 @@ from __future__ import annotations
 
 import math
 import struct
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
-from ..core.compiled import kernel
 from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.health import LEVEL_NAMES, STATE_LEARNING, STATES
+from .files import Staged
 
-STATES = ("learning_bias", "free_motion", "in_contact", "converged", "contact_lost")
-LEVEL_NAMES = ("OK", "WARN", "ERROR", "STALE")
 SUMMARY_FORMAT = "interaction_estimator.summary/1"
 
 # (name, unit, meaning); the order is the CSV column order.
@@ -65,7 +65,6 @@ _INTEGER_COLUMNS = {"converged", "in_contact", "level",
                     *(f"{p}_converged" for p in PARAMETER_NAMES),
                     *(f"{p}_excited" for p in PARAMETER_NAMES)}
 _NUMERIC = tuple(n for n in COLUMN_NAMES if n != "state")
-_STATE_CODE = {s: i for i, s in enumerate(STATES)}
 
 
 def _in_column_order(e: Any, spread: Any) -> list[Any]:
@@ -147,7 +146,7 @@ class EstimateTable:
         return out
 
     @staticmethod
-    def from_columns(cols: Mapping[str, Sequence]) -> "EstimateTable":
+    def from_columns(cols: Mapping[str, Sequence]) -> EstimateTable:
         """A table from partial columns (others NaN; state '' when absent)."""
         n = len(cols["time"])
         t = EstimateTable(n)
@@ -161,328 +160,144 @@ class EstimateTable:
 
 
 # --------------------------------------------------------------------------------------------
-# CSV text
+# files: CSV (the contract) and Parquet, written through pyarrow
 #
-# Every float is written as Python's "%.17g" writes it: 17 significant digits, correctly rounded
-# (ties to even), which read back bit-identical (IEEE 754 binary64). Python's own conversion
-# costs about 1 us per value, so the rows are written by one compiled call per chunk
-# (_text_rows) into a byte buffer, with arithmetic that is exact: |x| times the power of ten
-# 10**(16 - e) as an error-free product (Dekker 1971, with Veltkamp's split; 10**k is exact in
-# binary64 for k <= 22), rounded to an integer of 17 digits, ties to even. What it does not
-# cover (|x| < 1e-6 or >= 1e17, a flag or level other than 0-3, a state word not in STATES) is
-# not approximated: the kernel stops at that row, Python writes the row with its own formatting,
-# and the kernel goes on from the next row. A float equal (bit for bit) to the one above it is
-# copied from the row above instead of formatted again (the direction, the NIS bounds and the
-# parameters out of contact hold still for long runs).
+# Floats are written as Arrow formats them: the shortest text that reads back to the same
+# binary64 value (bit-identical), "nan", "inf" and "-inf" for the non-finite. Flags and levels
+# are integers, an empty field where a source did not report them (NaN in the table). The rows
+# go out a batch at a time, so memory stays bounded by the batch whatever the length.
 
-_SPLIT = 134217729.0                                   # 2**27 + 1, Veltkamp's splitting factor
-_POW10 = np.array([float(10 ** k) for k in range(23)])  # exact in binary64 up to 1e22
-_POW10_HI = _POW10 * _SPLIT - (_POW10 * _SPLIT - _POW10)
-_POW10_LO = _POW10 - _POW10_HI
-# 10**q for q = -7..18, for the first guess of a decimal exponent only (the exact product
-# decides; below 1 these are rounded)
-_DECADES = np.array([10.0 ** q for q in range(-7, 19)])
-_E_MIN, _E_MAX = -6, 16       # decimal exponents written by the kernel (10**(16 - e) is exact)
-_LOG10_2 = 0.30102999566398120
-_PAIRS = np.frombuffer(b"".join(b"%02d" % i for i in range(100)), np.uint8).copy()  # "00".."99"
-_PAIR_ZEROS = np.array([2 if i == 0 else int(i % 10 == 0) for i in range(100)], np.int64)
-_FLOAT_WIDTH = 24             # longest "%.17g" text: -d.dddddddddddddddde-ddd
-_SLACK = 8                    # bytes the kernel may write past a float text (scratch)
-_STATE_AT = COLUMN_NAMES.index("state")
-# CSV fields in order: the value column of each (an index into _NUMERIC), -1 for the state word
-_CSV_ORDER = np.array([-1 if name == "state" else _NUMERIC.index(name) for name in COLUMN_NAMES],
-                      np.int64)
-_IS_INTEGER = np.array([name in _INTEGER_COLUMNS for name in _NUMERIC])
-_WORDS = np.array([list(w.encode().ljust(max(map(len, STATES)), b"\0")) for w in STATES],
-                  np.uint8)   # the state words' bytes, zero padded; row = state code
-_WORD_LEN = np.array([len(w.encode()) for w in STATES], np.int64)
-# most bytes the kernel writes for one row, scratch included
-_ROW_BYTES = len(_NUMERIC) * _FLOAT_WIDTH + _WORDS.shape[1] + len(COLUMN_NAMES) + _SLACK
+FORMATS = ("csv", "parquet")
+FILE_NAMES = {"csv": "estimates.csv", "parquet": "estimates.parquet"}
 
 
-class _StateCodes(dict):
-    """State word -> its index in :data:`STATES`; any other word -> -1, which the kernel refuses
-    (Python then writes that word as it is)."""
-
-    def __missing__(self, word: Any) -> int:
-        return -1
-
-
-_STATE_CODES = _StateCodes(_STATE_CODE)
+def _schema() -> Any:
+    import pyarrow as pa
+    return pa.schema([(name, pa.string() if name == "state" else
+                       pa.int64() if name in _INTEGER_COLUMNS else pa.float64())
+                      for name in COLUMN_NAMES])
 
 
-@kernel
-def _scaled(a, k):
-    """(d, off): a * 10**k rounded to an integer, ties to even (a > 0, 0 <= k <= 22), and off
-    = -1 where that exact product lies below 1e16, +1 where at or above 1e17 (d is then 0: the
-    decimal exponent 16 - k was wrong by one), else 0.
-
-    The product is exact as hi + lo (Dekker's two-product with Veltkamp's split; 10**k is exact
-    for k <= 22); hi is a whole number wherever the product is in range (>= 2**53)."""
-    ph = _POW10_HI[k]
-    pl = _POW10_LO[k]
-    hi = a * _POW10[k]
-    c = a * _SPLIT
-    ah = c - (c - a)
-    al = a - ah
-    lo = al * pl - (((hi - ah * ph) - al * ph) - ah * pl)
-    if hi < 1e16 or (hi == 1e16 and lo < 0.0):
-        return 0, -1
-    if hi > 1e17 or (hi == 1e17 and lo >= 0.0):
-        return 0, 1
-    whole = math.floor(lo)
-    frac = lo - whole
-    d = np.int64(hi) + np.int64(whole)
-    d += (np.int64(frac > 0.5) | (np.int64(frac == 0.5) & d)) & 1   # ties to even
-    return d, 0
+def _integers(values: np.ndarray, name: str, first_row: int) -> Any:
+    """A flag or level column as int64 with nulls where it is NaN; ValueError for a value that
+    is no whole number."""
+    import pyarrow as pa
+    missing = np.isnan(values)
+    bad = ~missing & ((values != np.round(values)) | ~np.isfinite(values)
+                      | (np.abs(values) > 2.0 ** 53))
+    if bad.any():
+        k = int(np.argmax(bad))
+        raise ValueError(f"estimates row {first_row + k}: column {name!r} is {values[k]}; "
+                         "expected a whole number (flags 0/1, levels 0-3) or NaN")
+    return pa.array(np.where(missing, 0.0, values).astype(np.int64), pa.int64(), mask=missing)
 
 
-@kernel
-def _decimal(a):
-    """(d, e): a = d * 10**(e - 16) rounded to 17 significant digits, ties to even
-    (10**16 <= d < 10**17), for 1e-6 <= a < 1e17; e = 99 where a is not covered."""
-    p = (np.float64(a).view(np.int64) >> 52) - 1023          # 2**p <= a < 2**(p + 1)
-    e = int(math.floor(p * _LOG10_2))                         # floor(log10(a)) or one less
-    e += np.int64(a >= _DECADES[e + 8])
-    e = min(max(e, _E_MIN), _E_MAX)
-    d, off = _scaled(a, 16 - e)
-    if off != 0:                      # the guess was one off (near a power of ten)
-        e += off
-        if e < _E_MIN or e > _E_MAX:
-            return 0, 99
-        d, off = _scaled(a, 16 - e)
-        if off != 0:                  # cannot happen; Python writes it if it does
-            return 0, 99
-    if d == 100_000_000_000_000_000:  # rounded up to the next power of ten
-        d = 10_000_000_000_000_000
-        e += 1
-        if e > _E_MAX:
-            return 0, 99
-    return d, e
-
-
-@kernel
-def _text_rows(values, order, integer, codes, first, out):
-    """Rows first, first + 1, ... of ``values`` (n, m) float64 as text lines into ``out`` (uint8,
-    room for :data:`_ROW_BYTES` per row): the fields comma separated in ``order`` ((k,) int64,
-    the value column of each field, -1 for the state word STATES[codes[r]]); a value column
-    with ``integer[c]`` as one digit 0-3 (NaN: an empty field), any other as ``"%.17g"``.
-    Returns (row, end): out[:end] holds the rows before ``row``; row == n when all are written,
-    else row ``row`` holds a value or word the kernel does not write exactly (Python does)."""
-    n, m = values.shape
-    last = len(order) - 1
-    text_at = np.empty(m, np.int64)   # where each column's text of the row above starts
-    text_len = np.empty(m, np.int64)
-    at = 0
-    for r in range(first, n):
-        start = at
-        for j in range(last + 1):
-            col = order[j]
-            if col < 0:
-                w = codes[r]
-                if w < 0 or w >= len(_WORD_LEN):
-                    return r, start
-                for q in range(_WORD_LEN[w]):
-                    out[at + q] = _WORDS[w, q]
-                at += _WORD_LEN[w]
-            elif integer[col]:
-                v = values[r, col]
-                if v >= 0.0 and v <= 3.0 and v == math.floor(v):
-                    out[at] = 48 + int(v)
-                    at += 1
-                elif v == v:                  # NaN: an empty field
-                    return r, start
-            elif r > first and (np.float64(values[r, col]).view(np.int64)
-                                == np.float64(values[r - 1, col]).view(np.int64)):
-                size = text_len[col]          # as in the row above: copied
-                above = text_at[col]
-                for q in range(size):
-                    out[at + q] = out[above + q]
-                text_at[col] = at
-                at += size
-            else:
-                text_at[col] = at
-                x = values[r, col]
-                a = abs(x)
-                out[at] = 45                  # "-", kept where x is negative
-                if x != x:
-                    out[at] = 110             # nan (Python writes NaN without a sign)
-                    out[at + 1] = 97
-                    out[at + 2] = 110
-                    at += 3
-                elif a == 0.0 or a == math.inf:
-                    at += np.int64(math.copysign(1.0, x) < 0.0)
-                    if a == 0.0:
-                        out[at] = 48
-                        at += 1
-                    else:
-                        out[at] = 105         # inf
-                        out[at + 1] = 110
-                        out[at + 2] = 102
-                        at += 3
-                else:
-                    if a < 1e-6 or a >= 1e17:
-                        return r, start
-                    d, e = _decimal(a)
-                    if e == 99:
-                        return r, start
-                    at += np.int64(x < 0.0)
-                    # the "g" layout, chosen by arithmetic rather than branches: e >= 0 ddd.ddd,
-                    # -4 <= e < 0 0.000ddd, e < -4 d.ddde-XX (e <= 16 here, always positional);
-                    # digit i (0 = first) goes to base + i, one further right where i > split
-                    # (after the point); no trailing zeros, no lone point
-                    small = np.int64(e < 0) * np.int64(e >= -4)
-                    out[at] = 48
-                    out[at + 1] = 46
-                    out[at + 2] = 48
-                    out[at + 3] = 48
-                    out[at + 4] = 48
-                    base = at + small * (1 - e)
-                    split = np.int64(e >= 0) * e + small * 17
-                    u = np.uint64(d)
-                    top = u // np.uint64(100_000_000)
-                    low = np.uint32(u - top * np.uint64(100_000_000))
-                    lead = np.uint32(top // np.uint64(100_000_000))
-                    mid = np.uint32(top) - lead * np.uint32(100_000_000)
-                    out[base] = 48 + lead             # digit 0, never zero
-                    zeros = 0                         # trailing zeros of the 17 digits
-                    all_zero = 1
-                    for h in range(2):                # digits 9-16, then 1-8, two at a time
-                        eight = low if h == 0 else mid
-                        four_hi = eight // np.uint32(10000)
-                        four_lo = eight - four_hi * np.uint32(10000)
-                        for g in range(2):
-                            four = four_lo if g == 0 else four_hi
-                            two_hi = four // np.uint32(100)
-                            for s in range(2):
-                                pair = four - two_hi * np.uint32(100) if s == 0 else two_hi
-                                i = 15 - 2 * s - 4 * g - 8 * h
-                                out[base + i + np.int64(i > split)] = _PAIRS[2 * pair]
-                                out[base + i + 1 + np.int64(i + 1 > split)] = _PAIRS[2 * pair + 1]
-                                zeros += all_zero * _PAIR_ZEROS[pair]
-                                all_zero &= np.int64(pair == 0)
-                    nd = 17 - zeros
-                    out[at + 1 + (1 - small) * split] = 46   # the point (scratch if unused)
-                    end = base + max(nd, split + 1) + np.int64(nd > split + 1)
-                    end = small * (base + nd) + (1 - small) * end
-                    ae = abs(e)
-                    out[end] = 101                    # e-XX (scratch unless e < -4)
-                    out[end + 1] = 45 if e < 0 else 43
-                    out[end + 2] = 48 + ae // 10
-                    out[end + 3] = 48 + ae % 10
-                    at = end + 4 * np.int64(e < -4)
-            if col >= 0 and not integer[col]:
-                text_len[col] = at - text_at[col]
-            out[at] = 10 if j == last else 44
-            at += 1
-    return n, at
-
-
-_ONE_FLOAT_ORDER = np.zeros(1, np.int64)
-_ONE_FLOAT_INTEGER = np.zeros(1, np.bool_)
-_NO_CODES = np.zeros(0, np.int64)
-
-
-def float_texts(x: np.ndarray) -> list[str]:
-    """``"%.17g" % v`` for each v of x (float64 (n,)), made as the CSV writer makes a float
-    field (the compiled formatter; Python's own for the values it does not cover)."""
-    x = np.ascontiguousarray(x, dtype=np.float64).reshape(-1, 1)
-    out = np.empty(len(x) * (_FLOAT_WIDTH + 1) + _SLACK, np.uint8)
-    texts: list[str] = []
-    i = 0
-    while i < len(x):
-        i, end = _text_rows(x, _ONE_FLOAT_ORDER, _ONE_FLOAT_INTEGER, _NO_CODES, i, out)
-        texts += out[:end].tobytes().decode().splitlines()
-        if i < len(x):
-            texts.append("%.17g" % x[i, 0])
-            i += 1
-    return texts
-
-
-def _python_row(values: Sequence[float], word: Any, row: int) -> bytes:
-    """One CSV row by Python's own formatting (a row the kernel refused); ``values`` in
-    :data:`_NUMERIC` order."""
-    fields = []
-    for name, v in zip(_NUMERIC, values):
-        if name not in _INTEGER_COLUMNS:
-            fields.append("%.17g" % v)
-        elif v != v:
-            fields.append("")
-        else:
-            try:
-                fields.append(str(int(v)))
-            except OverflowError:
-                raise ValueError(f"estimates.csv row {row}: column {name!r} is {v}; expected a "
-                                 "whole number (flags 0/1, levels 0-3) or NaN") from None
-    fields.insert(_STATE_AT, str(word))
-    return (",".join(fields) + "\n").encode()
-
-
-def _stacked(cols: Mapping[str, Any], lo: int, hi: int) -> np.ndarray:
-    """Rows lo..hi-1 of the numeric columns as one (hi - lo, len(_NUMERIC)) float64 array."""
-    out = np.empty((hi - lo, len(_NUMERIC)))
-    for i, name in enumerate(_NUMERIC):
-        out[:, i] = cols[name][lo:hi]
-    return out
-
-
-def write_csv(path: Path, source: "EstimateTable | Mapping[str, Any]", chunk: int = 8192
-              ) -> None:
-    """estimates.csv: header of :data:`COLUMN_NAMES`, one row per sample; floats as Python's
-    ``"%.17g"`` writes them (17 significant digits: they read back bit-identical), flags and
-    levels as integers (empty where a source did not report them), the state word as it is.
-
-    ``source``: an :class:`EstimateTable`, or columns {name: (N,)} (``state`` as str). The rows
-    are written ``chunk`` at a time by one compiled call each (:func:`_text_rows`): from a
-    table's own array (no copy), or from the columns stacked a chunk at a time. Memory stays
-    bounded by the chunk (:data:`_ROW_BYTES` bytes of text per row at most)."""
-    if isinstance(chunk, bool) or not isinstance(chunk, (int, np.integer)) or chunk < 1:
-        raise ValueError(f"write_csv: chunk is {chunk!r}; expected a whole number of rows >= 1")
-    chunk = int(chunk)
+def _batches(source: EstimateTable | Mapping[str, Any], rows: int) -> Iterator[Any]:
+    """The table as Arrow record batches of ``rows`` rows, columns in :data:`COLUMN_NAMES`
+    order (from a table's own array, or from columns {name: (N,)})."""
+    import pyarrow as pa
+    if isinstance(rows, bool) or not isinstance(rows, (int, np.integer)) or rows < 1:
+        raise ValueError(f"estimates writer: chunk is {rows!r}; expected a whole number of "
+                         "rows >= 1")
     if isinstance(source, EstimateTable):
         n = len(source)
-        rows: np.ndarray | None = source._data[:n]
+        data = source._data[:n]
+        numeric: Mapping[str, Any] = {name: data[:, i] for i, name in enumerate(_NUMERIC)}
         states: Sequence[Any] = source._states
-    else:   # stacked a chunk at a time below
-        rows = None
+    else:
         missing = [c for c in COLUMN_NAMES if c not in source]
         if missing:
-            raise ValueError(f"write_csv: columns {missing} missing; expected every name of "
-                             "COLUMN_NAMES")
+            raise ValueError(f"estimates writer: columns {missing} missing; expected every "
+                             "name of COLUMN_NAMES")
         n = len(source["time"])
         short = {c: len(source[c]) for c in COLUMN_NAMES if len(source[c]) < n}
         if short:
-            raise ValueError(f"write_csv: 'time' has {n} values but these columns fewer: "
-                             f"{short}; expected columns of equal length")
-        states = source["state"]
-    buf = np.empty(max(min(chunk, n), 1) * _ROW_BYTES, np.uint8)
-    with open(path, "wb") as fh:
-        fh.write((",".join(COLUMN_NAMES) + "\n").encode())
-        for lo in range(0, n, chunk):
-            hi = min(lo + chunk, n)
-            block = rows[lo:hi] if rows is not None else _stacked(source, lo, hi)
-            words = states[lo:hi]
-            codes = np.fromiter(map(_STATE_CODES.__getitem__, words), np.int64, hi - lo)
-            r = 0
-            while r < hi - lo:
-                r, end = _text_rows(block, _CSV_ORDER, _IS_INTEGER, codes, r, buf)
-                fh.write(buf[:end])
-                if r < hi - lo:       # a row the kernel does not write exactly: Python does
-                    fh.write(_python_row(block[r].tolist(), words[r], lo + r))
-                    r += 1
+            raise ValueError(f"estimates writer: 'time' has {n} values but these columns "
+                             f"fewer: {short}; expected columns of equal length")
+        numeric, states = source, source["state"]
+    schema = _schema()
+    for lo in range(0, n, int(rows)):
+        hi = min(lo + int(rows), n)
+        arrays = []
+        for name in COLUMN_NAMES:
+            if name == "state":
+                arrays.append(pa.array([str(w) for w in states[lo:hi]], pa.string()))
+                continue
+            values = np.ascontiguousarray(numeric[name][lo:hi], dtype=np.float64)
+            arrays.append(_integers(values, name, lo) if name in _INTEGER_COLUMNS
+                          else pa.array(values, pa.float64()))
+        yield pa.RecordBatch.from_arrays(arrays, schema=schema)
+
+
+def write_estimates(path: Path, source: EstimateTable | Mapping[str, Any],
+                    file_format: str = "csv", chunk: int = 65536) -> None:
+    """The estimates file: one row per sample, columns :data:`COLUMN_NAMES` in order.
+
+    ``file_format``: 'csv' (header of the column names, no quoting, floats as their shortest
+    round-trip text) or 'parquet' (the same columns, typed: float64, int64 flags and levels
+    with nulls where not reported, the state as a string). ``source``: an
+    :class:`EstimateTable`, or columns {name: (N,)} (``state`` as str). Written ``chunk`` rows
+    at a time (a Parquet row group each), atomically (:mod:`.files`)."""
+    import pyarrow.csv as pacsv
+    if file_format not in FORMATS:
+        raise ValueError(f"estimates format {file_format!r}; expected one of "
+                         f"{', '.join(FORMATS)}")
+    batches = _batches(source, chunk)
+    with Staged(path) as tmp:
+        if file_format == "csv":
+            options = pacsv.WriteOptions(quoting_style="none", quoting_header="none")
+            with pacsv.CSVWriter(str(tmp), _schema(), write_options=options) as writer:
+                for batch in batches:
+                    writer.write_batch(batch)
+        else:
+            import pyarrow.parquet as pq
+            with pq.ParquetWriter(str(tmp), _schema()) as writer:
+                for batch in batches:
+                    writer.write_batch(batch, row_group_size=chunk)
+
+
+def write_csv(path: Path, source: EstimateTable | Mapping[str, Any], chunk: int = 65536
+              ) -> None:
+    """estimates.csv (:func:`write_estimates` as CSV)."""
+    write_estimates(path, source, "csv", chunk)
+
+
+def read_estimates(path: Path) -> dict[str, np.ndarray]:
+    """An estimates file (CSV or Parquet, by suffix) back into columns: float64 arrays (flags
+    and levels not reported: NaN), ``state`` as an array of str."""
+    import pyarrow as pa
+    path = Path(path)
+    if path.suffix == ".parquet":
+        import pyarrow.parquet as pq
+        table = pq.read_table(path)
+    else:
+        import pyarrow.csv as pacsv
+        with open(path, encoding="utf-8") as fh:
+            header = fh.readline().strip().split(",")
+        types = {name: pa.string() if name == "state" else pa.float64() for name in header}
+        table = pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
+            column_types=types, strings_can_be_null=False, quoted_strings_can_be_null=False))
+    out: dict[str, np.ndarray] = {}
+    for name in table.column_names:
+        column = table.column(name)
+        if name == "state":
+            out[name] = np.array(column.to_pylist(), dtype=object)
+        else:
+            out[name] = column.cast(pa.float64()).to_numpy(zero_copy_only=False)
+    return out
 
 
 def read_csv(path: Path) -> dict[str, np.ndarray]:
-    """Read estimates.csv back into columns (floats; ``state`` as str)."""
-    with open(path, encoding="utf-8") as fh:
-        header = fh.readline().strip().split(",")
-        rows = [line.rstrip("\n").split(",") for line in fh]
-    out: dict[str, np.ndarray] = {}
-    for i, name in enumerate(header):
-        vals = [r[i] for r in rows]
-        out[name] = (np.array(vals, dtype=object) if name == "state"
-                     else np.array([float(v) if v else math.nan for v in vals]))
-    return out
+    """Read estimates.csv back into columns (:func:`read_estimates`)."""
+    return read_estimates(path)
+
+
+def float_texts(x: np.ndarray) -> list[str]:
+    """The text the CSV writer gives each float of ``x`` (shortest round-trip)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    values = pa.array(np.ascontiguousarray(x, dtype=np.float64).ravel(), pa.float64())
+    return pc.cast(values, pa.string()).to_pylist()
 
 
 # --------------------------------------------------------------------------------------------
@@ -531,7 +346,7 @@ def force_errors(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> 
     rows, refs = match_reference(cols, ref)
     est = np.column_stack([cols["force_x"], cols["force_y"], cols["force_z"]])[rows]
     err = np.linalg.norm(est - ref.force[refs], axis=1)
-    learning = np.asarray(cols["state"], dtype=object)[rows] == "learning_bias"
+    learning = np.asarray(cols["state"], dtype=object)[rows] == STATES[STATE_LEARNING]
     contact = cols["in_contact"][rows] > 0.5
     after = ~learning
 

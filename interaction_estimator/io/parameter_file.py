@@ -1,22 +1,49 @@
-"""The default parameter file, generated from the settings registry so it never drifts.
+"""ROS 2 parameter files: the one reader and the one writer of the package.
 
-``python -m interaction_estimator.io.parameter_file`` prints it; ``--write config/default.yaml``
-rewrites the committed copy; ``--check config/default.yaml`` exits 1 if that copy is out of date.
-Every entry is commented with its type, unit, meaning, allowed values and, where it helps, how to
-tune it. The format is the ROS 2 parameter file: ``interaction_estimator:`` then
-``ros__parameters:``, dotted names nested.
+The format is the ROS 2 parameter YAML, the one file format of the node, the replay and the
+tuning command: a section naming the node, then ``ros__parameters:``, dotted names nested.
+
+* Reading: :func:`load_parameter_file` (validated Settings) and :func:`parameters_from_yaml`
+  (flat names, not yet validated) accept the sections ``/**``, ``interaction_estimator``,
+  ``/interaction_estimator`` and ``/<ns>/interaction_estimator``.
+* Writing: :func:`parameter_file_text` (any dotted names and values, with comments) and
+  :func:`settings_file_text` (settings of the registry, typed as ROS 2 reads them) write the
+  section :data:`SECTION`, ``/**/interaction_estimator``: this node in any namespace. A bare
+  ``interaction_estimator:`` would apply only to a node without a namespace (ROS 2 matches
+  sections by the fully qualified node name), so a robot that launches the node under a
+  namespace would silently run on the defaults. :func:`write_parameter_file` writes a file
+  atomically (:mod:`.files`).
+* The default parameter file, generated from the settings registry so it never drifts:
+  ``python -m interaction_estimator.io.parameter_file`` prints it; ``--write
+  config/default.yaml`` rewrites the committed copy; ``--check config/default.yaml`` exits 1 if
+  that copy is out of date. Every entry is commented with its type, unit, meaning, allowed values
+  and, where it helps, how to tune it.
 """
 from __future__ import annotations
 
 import argparse
 import json
+import math
 import re
 import sys
 import textwrap
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
-from ..core.settings import NODE_NAME, SPECS, ParamSpec
+import yaml
+
+from ..core.settings import (
+    NODE_NAME,
+    SPEC_BY_NAME,
+    SPECS,
+    ParamSpec,
+    Settings,
+    SettingsError,
+    flatten,
+    nest,
+)
+from .files import write_atomic
 
 WIDTH = 96  # characters per comment line
 # The file's section: this node's name in any namespace. A plain "interaction_estimator:" would
@@ -115,13 +142,83 @@ _PLAIN = re.compile(r"^[A-Za-z_][A-Za-z0-9_./-]*$")
 _RESERVED = {"true", "false", "yes", "no", "on", "off", "null", "y", "n", "~"}
 
 
+# --------------------------------------------------------------------------------------------
+# reading
+
+
+def parameters_from_yaml(text: str, source: str = "<text>",
+                         node_name: str = NODE_NAME) -> dict[str, Any]:
+    """Read the node's parameters from ROS 2 parameter-file text; flat, not yet validated.
+
+    Accepts the sections ``/**``, ``<node_name>``, ``/<node_name>`` and ``/<ns>/<node_name>``
+    (``/**/<node_name>`` included), each holding ``ros__parameters``; later sections override
+    earlier ones, as in ROS 2.
+    """
+    try:
+        doc = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        raise SettingsError(f"{source}: not valid YAML: {exc}") from None
+    if not isinstance(doc, Mapping):
+        raise SettingsError(f"{source}: expected a mapping with '{node_name}:' or '/**:' at the"
+                            f" top, found {type(doc).__name__}")
+    found: dict[str, Any] = {}
+    matched = False
+    for section, body in doc.items():
+        section = str(section)
+        if section not in ("/**", node_name) and section.rstrip("/").split("/")[-1] != node_name:
+            continue
+        if not isinstance(body, Mapping) or "ros__parameters" not in body:
+            raise SettingsError(f"{source}: section {section!r} has no 'ros__parameters:' mapping")
+        params = body["ros__parameters"] or {}
+        if not isinstance(params, Mapping):
+            raise SettingsError(f"{source}: {section}.ros__parameters must be a mapping")
+        found.update(flatten(params))
+        matched = True
+    if not matched:
+        raise SettingsError(f"{source}: no section for this node; expected a top-level"
+                            f" '{node_name}:' or '/**:' key, found {sorted(map(str, doc))}")
+    return found
+
+
+def load_parameter_file(path: str | Path, base: Settings | None = None) -> Settings:
+    """Load a ROS 2 parameter YAML into validated Settings (unknown keys are refused)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise SettingsError(f"parameter file {str(path)!r} cannot be read: "
+                            f"{exc.strerror}") from None
+    flat = parameters_from_yaml(text, source=str(path))
+    try:
+        return (base or Settings()).replace(flat)
+    except SettingsError as exc:
+        raise SettingsError(f"{path}: {exc}") from None
+
+
+def file_sections(path: str | Path) -> list[str] | None:
+    """The top-level section names of a YAML file, or None when it cannot be read as a
+    mapping (the caller's parser says why)."""
+    try:
+        doc = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError):
+        return None
+    return [str(k) for k in doc] if isinstance(doc, dict) else None
+
+
+# --------------------------------------------------------------------------------------------
+# writing
+
+
 def yaml_value(value: Any) -> str:
-    """A value as YAML text that the ROS 2 parser and PyYAML read alike (floats keep a dot)."""
+    """A value as YAML text that the ROS 2 parser and PyYAML read alike (floats keep a dot;
+    a non-finite float is refused: ROS 2 parameters of this node never hold one)."""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, int):
         return str(value)
     if isinstance(value, float):
+        if not math.isfinite(value):
+            raise ValueError(f"non-finite value {value!r}; expected a finite number")
         text = repr(value)
         mantissa, _, exponent = text.partition("e")
         if "." not in mantissa:
@@ -137,6 +234,81 @@ def yaml_value(value: Any) -> str:
     raise TypeError(f"no YAML form for {value!r}")
 
 
+Comments = Mapping[str, Sequence[str]] | Callable[[str, str], Sequence[str]]
+
+
+def parameter_file_text(values: Mapping[str, Any], comments: Comments | None = None,
+                        header: Sequence[str] = ()) -> str:
+    """A ROS 2 parameter file holding ``values`` (dotted names; a group is written where its
+    first name comes) in the section :data:`SECTION`.
+
+    comments: the comment lines above an entry, by dotted name (text without ``#``), or a
+    function (name, indent) -> the full comment lines. header: comment lines at the top (text
+    without ``#``), followed by an empty line.
+    """
+    out = ["#" + (f" {h}" if h else "") for h in header]
+    if out:
+        out.append("")
+    out += [f"{SECTION}:", "  ros__parameters:"]
+    if comments is None:
+        comments = {}
+
+    def comment(name: str, indent: str) -> Sequence[str]:
+        if callable(comments):
+            return comments(name, indent)
+        return [f"{indent}#" + (f" {c}" if c else "") for c in comments.get(name, ())]
+
+    def emit(node: Mapping[str, Any], prefix: str, indent: str) -> None:
+        for key, item in node.items():
+            name = f"{prefix}{key}"
+            if isinstance(item, dict):
+                out.append(f"{indent}{key}:")
+                emit(item, name + ".", indent + "  ")
+            else:
+                out.extend(comment(name, indent))
+                out.append(f"{indent}{key}: {yaml_value(item)}")
+
+    emit(nest(values), "", "    ")
+    return "\n".join(out) + "\n"
+
+
+def settings_file_text(settings: Mapping[str, Any], names: Iterable[str] | None = None,
+                       comments: Comments | None = None, header: Sequence[str] = ()) -> str:
+    """:func:`parameter_file_text` of registry settings: the ``names`` of ``settings`` (all of
+    them when None), in the registry's order, typed as the registry says (a float written with
+    a dot, a list of floats as floats), empty lists left out (ROS 2 cannot type ``[]``; empty
+    means the default). SettingsError for a name the registry does not have."""
+    wanted = set(settings if names is None else names)
+    unknown = sorted(wanted - set(SPEC_BY_NAME))
+    if unknown:
+        raise SettingsError(f"cannot write {unknown}: not settings of the registry (see "
+                            "config/default.yaml for the full list)")
+    values: dict[str, Any] = {}
+    for spec in SPECS:
+        if spec.name not in wanted:
+            continue
+        value = settings[spec.name]
+        if spec.kind == "float_array":
+            value = [float(v) for v in value]
+        elif spec.kind == "float":
+            value = float(value)
+        if isinstance(value, list) and not value:
+            continue
+        values[spec.name] = value
+    return parameter_file_text(values, comments, header)
+
+
+def write_parameter_file(path: str | Path, settings: Mapping[str, Any],
+                         names: Iterable[str] | None = None, comments: Comments | None = None,
+                         header: Sequence[str] = ()) -> None:
+    """:func:`settings_file_text` written to ``path`` atomically."""
+    write_atomic(path, settings_file_text(settings, names, comments, header))
+
+
+# --------------------------------------------------------------------------------------------
+# the default parameter file
+
+
 def _comment(spec: ParamSpec, indent: str) -> list[str]:
     kind = {"str": "string", "bool": "true/false", "int": "integer", "float": "number",
             "float_array": "list of numbers", "str_array": "list of strings"}[spec.kind]
@@ -150,7 +322,7 @@ def _comment(spec: ParamSpec, indent: str) -> list[str]:
         parts.append("Tuning: " + TUNING[spec.name])
     lines: list[str] = []
     width = WIDTH - len(indent) - 2
-    for i, part in enumerate(parts):
+    for part in parts:
         wrapped = textwrap.wrap(part, width=width, subsequent_indent="  ",
                                 break_on_hyphens=False)
         lines += [f"{indent}# {w}" for w in wrapped]
@@ -159,26 +331,10 @@ def _comment(spec: ParamSpec, indent: str) -> list[str]:
 
 def generate() -> str:
     """The default parameter file as text (groups in the registry's order of appearance)."""
-    tree: dict[str, Any] = {}
-    for spec in SPECS:  # nested dicts keep insertion order: a group is written once
-        node = tree
-        *groups, leaf = spec.name.split(".")
-        for g in groups:
-            node = node.setdefault(g, {})
-        node[leaf] = spec
-    out = [HEADER, f"{SECTION}:", "  ros__parameters:"]
-
-    def emit(node: dict[str, Any], indent: str) -> None:
-        for key, item in node.items():
-            if isinstance(item, dict):
-                out.append(f"{indent}{key}:")
-                emit(item, indent + "  ")
-            else:
-                out.extend(_comment(item, indent))
-                out.append(f"{indent}{key}: {yaml_value(item.default)}")
-
-    emit(tree, "    ")
-    return "\n".join(out) + "\n"
+    header = [line[2:] if line.startswith("# ") else line.lstrip("#")
+              for line in HEADER.splitlines()]
+    return parameter_file_text({spec.name: spec.default for spec in SPECS},
+                               lambda name, indent: _comment(SPEC_BY_NAME[name], indent), header)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -192,7 +348,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     text = generate()
     if args.write:
-        Path(args.write).write_text(text, encoding="utf-8")
+        write_atomic(args.write, text)
         return 0
     if args.check:
         path = Path(args.check)

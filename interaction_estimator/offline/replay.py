@@ -2,7 +2,8 @@
 
 ``interaction-estimator replay BAG [BAG ...] --out DIR`` writes, per bag:
 
-* ``estimates.csv``: one row per processed sample (columns in :mod:`.estimates`);
+* ``estimates.csv``: one row per processed sample (columns in :mod:`..io.estimates`), or
+  ``estimates.parquet`` with ``--format parquet`` (the same columns);
 * ``summary.json``: final parameters with std, time to convergence, error against the ground
   truth when the bag has it, force RMSE against a reference wrench, rejects by reason, samples,
   duration and throughput;
@@ -22,25 +23,49 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import shutil
 import sys
-import tempfile
 import time
+from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
-from ..io.bag import BagError, BagWriter, GroundTruth, RecordedBag, TopicNames
-from ..io.estimates import EstimateTable, ForceReference, summarize, write_csv
 from ..core.model import ModelError
-from ..io.description_file import resolve as resolve_description
 from ..core.pipeline import Pipeline
 from ..core.samples import Sample
-from ..core.settings import NODE_NAME, Settings, SettingsError, load_parameter_file
+from ..core.settings import NODE_NAME, Settings, SettingsError
+from ..io.bag import RecordedBag, TopicNames
+from ..io.bag_writer import BagWriter
+from ..io.cdr import (
+    DIAGNOSTIC_STATUS,
+    FLOAT64_MULTI_ARRAY,
+    WRENCH_STAMPED,
+    StatusEncoder,
+    WrenchEncoder,
+    seconds_to_stamp,
+)
+from ..io.description_file import resolve as resolve_description
+from ..io.estimates import (
+    FILE_NAMES,
+    FORMATS,
+    EstimateTable,
+    ForceReference,
+    summarize,
+    write_estimates,
+)
+from ..io.files import Staged, write_atomic
+from ..io.ground_truth import BagError, GroundTruth
+from ..io.node_outputs import (
+    NodeFigures,
+    environment_encoder,
+    estimate_outputs,
+    output_numbers,
+    status_fields,
+)
+from ..io.parameter_file import load_parameter_file
 
 OUTPUT_FILES = ("estimates.csv", "summary.json", "report.html")
 OUTPUT_BAG_DIR = "estimates_bag"
@@ -63,7 +88,8 @@ class ReplayRequest:
     progress: show a progress bar on stderr (None: only when stderr is a terminal);
     bag_settings: apply the settings recommended in the bag's ground truth (simulated bags)
     beneath the parameter file; bag_label: how the bag is named in the outputs (default: its
-    path)."""
+    path); file_format: of the estimates file, 'csv' (estimates.csv) or 'parquet'
+    (estimates.parquet, the same columns)."""
 
     bag: Path
     out: Path
@@ -75,6 +101,7 @@ class ReplayRequest:
     progress: bool | None = None
     bag_settings: bool = True
     bag_label: str | None = None
+    file_format: str = "csv"
 
 
 @dataclass
@@ -106,37 +133,23 @@ def check_output_dir(out: Path) -> None:
                           "not exist")
 
 
-class StagedDir:
-    """A directory written under a temporary name and moved to ``final`` on :meth:`commit`.
-
-    Anything already at ``final`` (an earlier result) is replaced only then. Without a commit
-    (an error), the temporary directory is removed.
-    """
+class StagedDir(Staged):
+    """An output directory written under a temporary name (:class:`~..io.files.Staged`,
+    created empty at :attr:`path`) and moved to ``final`` on :meth:`commit`; an earlier result
+    there is replaced only then. Without a commit (an error), nothing is left."""
 
     def __init__(self, final: Path):
-        self.final = final
         final.parent.mkdir(parents=True, exist_ok=True)
-        self.path = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".partial",
-                                          dir=final.parent))
-        self.committed = False
+        super().__init__(final)
+        self.final = final
+        self.path.mkdir()
 
-    def commit(self) -> None:
-        old = None
-        if self.final.exists():
-            old = self.final.with_name(f".{self.final.name}.old-{os.getpid()}")
-            shutil.rmtree(old, ignore_errors=True)
-            os.replace(self.final, old)
-        os.replace(self.path, self.final)
-        self.committed = True
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
-
-    def __enter__(self) -> "StagedDir":
+    def __enter__(self) -> StagedDir:  # type: ignore[override]
         return self
 
     def __exit__(self, *exc: Any) -> None:
         if not self.committed:
-            shutil.rmtree(self.path, ignore_errors=True)
+            self.discard()
 
 
 # --------------------------------------------------------------------------------------------
@@ -235,44 +248,42 @@ class Progress:
 class NodeOutputBag:
     """Writes each Estimate as the node would publish it: ``~/wrench`` and ``~/environment`` per
     sample, ``~/status`` at ``output.status_rate`` (message stamps; log time = sample stamp).
-    Uses the node's message definitions (:mod:`.node_messages`), so it needs rclpy."""
+    The messages are the node's (:mod:`..io.node_outputs`), written as CDR bytes by
+    :mod:`..io.cdr` (the bytes the node publishes; no ROS installation needed)."""
 
     def __init__(self, path: Path, settings: Settings, pipeline: Pipeline):
-        try:
-            from rclpy.serialization import serialize_message
-
-            from ..ros import messages as nm
-        except ImportError as exc:
-            raise ReplayError(f"--output-bag needs the ROS 2 Python messages (rclpy): {exc}; "
-                              "install them or leave --output-bag out") from None
-        self._nm, self._ser = nm, serialize_message
         self.frame = settings["output.frame_id"] or pipeline.model.root_frame
         rate = settings["output.status_rate"]
         self._status_period = 0.0 if rate == 0 else 1.0 / rate
         self._last_status = -math.inf
         self._pipeline = pipeline
+        self._wrench = WrenchEncoder(self.frame).encode
+        self._environment = environment_encoder().encode
+        self._status = StatusEncoder().encode
         self._writer = BagWriter(path, "mcap")
         self._writer.__enter__()
 
     def add(self, est: Any) -> None:
-        nm, ser, w = self._nm, self._ser, self._writer
-        if not nm.outputs_finite(est):
+        numbers = output_numbers(estimate_outputs(est))
+        if numbers is None:   # not finite: the node does not publish it either
             return
-        stamp = nm.seconds_to_stamp(est.time)
-        ns = stamp.sec * 1_000_000_000 + stamp.nanosec
-        w.write(NODE_TOPICS["wrench"], "geometry_msgs/msg/WrenchStamped", ns,
-                ser(nm.wrench_message(est, self.frame, stamp)))
-        w.write(NODE_TOPICS["environment"], "std_msgs/msg/Float64MultiArray", ns,
-                ser(nm.environment_message(est)))
+        force, torque, values, stds = numbers
+        w = self._writer
+        sec, nanosec = seconds_to_stamp(est.time)
+        ns = sec * 1_000_000_000 + nanosec
+        w.write(NODE_TOPICS["wrench"], WRENCH_STAMPED, ns,
+                self._wrench(sec, nanosec, force, torque))
+        w.write(NODE_TOPICS["environment"], FLOAT64_MULTI_ARRAY, ns,
+                self._environment(*values, *stds))
         if est.time - self._last_status >= self._status_period:
             self._last_status = est.time
             p = self._pipeline
-            fig = nm.NodeFigures(node_name=NODE_NAME, rejects=dict(p.rejects.counts),
-                                 last_reject=p.rejects.last_message, frame_id=self.frame,
-                                 joints=len(p.model.joint_names),
-                                 contact_frame=p.model.contact_frame)
-            w.write(NODE_TOPICS["status"], "diagnostic_msgs/msg/DiagnosticStatus", ns,
-                    ser(nm.status_message(est, fig, hardware_id="replay")))
+            fig = NodeFigures(node_name=NODE_NAME, rejects=dict(p.rejects.counts),
+                              last_reject=p.rejects.last_message, frame_id=self.frame,
+                              joints=len(p.model.joint_names),
+                              contact_frame=p.model.contact_frame)
+            w.write(NODE_TOPICS["status"], DIAGNOSTIC_STATUS, ns,
+                    self._status(status_fields(est, fig, hardware_id="replay")))
 
     def close(self, ok: bool) -> None:
         if ok:
@@ -296,8 +307,9 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
     first_t = None
     tolerance = settings["input.stamp_tolerance"]
     separate = True if settings["input.separate_efforts"] else None
+    joints = pipeline.model.joint_names   # the joints that need an effort (separate efforts)
     if on_estimate is None:   # no Estimate needed: the samples a block at a time
-        for block in bag.sample_blocks(tolerance, separate):
+        for block in bag.sample_blocks(tolerance, separate, joints):
             if read == 0:
                 first_t = float(block.time[0])
             read += len(block)
@@ -305,7 +317,7 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
             if progress is not None:
                 progress.update(read, float(block.time[-1]) - first_t)
         return table, read
-    for sample in bag.samples(tolerance, separate):
+    for sample in bag.samples(tolerance, separate, joints):
         if read == 0:
             first_t = sample.time
         read += 1
@@ -323,6 +335,9 @@ def replay(req: ReplayRequest) -> ReplayResult:
     """Replay one bag into ``req.out``; raises one of :data:`INPUT_ERRORS` on bad input."""
     out = Path(req.out)
     check_output_dir(out)
+    if req.file_format not in FORMATS:
+        raise ReplayError(f"estimates format {req.file_format!r} is not supported; expected "
+                          f"one of {', '.join(FORMATS)}")
     topics = TopicNames().with_overrides(req.topics)
     t_start = time.perf_counter()
     with RecordedBag(req.bag, topics, req.reference_topic) as bag, StagedDir(out) as stage:
@@ -378,21 +393,22 @@ def replay(req: ReplayRequest) -> ReplayResult:
         summary = summarize(cols, truth=truth.parameters if truth else None,
                             reference=reference, rejects=pipeline.rejects.counts,
                             samples_read=read, wall_time=wall, source=source)
-        write_outputs(stage.path, summary, table, reference)
+        write_outputs(stage.path, summary, table, reference, file_format=req.file_format)
         stage.commit()
     return ReplayResult(summary, cols, out)
 
 
 def write_outputs(directory: Path, summary: dict[str, Any],
                   estimates: EstimateTable | dict[str, np.ndarray],
-                  reference: ForceReference | None, title: str | None = None) -> None:
-    """estimates.csv, summary.json and report.html into ``directory``; ``estimates``: the
-    table (its CSV is written from its own array) or its columns."""
+                  reference: ForceReference | None, title: str | None = None,
+                  file_format: str = "csv") -> None:
+    """estimates.csv (or estimates.parquet), summary.json and report.html into ``directory``;
+    ``estimates``: the table (written from its own array) or its columns."""
     from .report import write_report
-    write_csv(directory / "estimates.csv", estimates)
+    write_estimates(directory / FILE_NAMES[file_format], estimates, file_format)
     cols = estimates.columns() if isinstance(estimates, EstimateTable) else estimates
-    (directory / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False)
-                                            + "\n", encoding="utf-8")
+    write_atomic(directory / "summary.json", json.dumps(summary, indent=2, allow_nan=False)
+                 + "\n")
     write_report(directory / "report.html", summary, cols, reference, title=title)
 
 
@@ -445,5 +461,5 @@ def replay_many(requests: list[ReplayRequest], out: Path, jobs: int,
         runs.append({"bag": bag, "out": str(req.out), "ok": summary is not None,
                      "error": error or None})
     if failed < len(requests):
-        (out / "runs.json").write_text(json.dumps(runs, indent=2) + "\n", encoding="utf-8")
+        write_atomic(out / "runs.json", json.dumps(runs, indent=2) + "\n")
     return failed

@@ -21,13 +21,15 @@ import io
 import json
 import math
 import re
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
-from ..io.estimates import LEVEL_NAMES, STATES, ForceReference, match_reference
+from ..core.health import LEVEL_NAMES, STATES
+from ..io.estimates import ForceReference, match_reference
 
 # Our palette (hex): ink and paper, estimate, its band, the reference, the truth.
 INK = "#1d2731"
@@ -269,7 +271,8 @@ def _level_names(level: np.ndarray) -> np.ndarray:
     value is not a level."""
     code = np.trunc(np.where(np.isfinite(level), level, -1.0))
     code = np.where((code >= 0) & (code < len(LEVEL_NAMES)), code, len(LEVEL_NAMES))
-    return np.array([*LEVEL_NAMES, "?"], dtype=object)[code.astype(int)]
+    return np.array([*(LEVEL_NAMES[k] for k in range(len(LEVEL_NAMES))), "?"],
+                    dtype=object)[code.astype(int)]
 
 
 def health_figure(cols: Mapping[str, np.ndarray]) -> str:
@@ -301,7 +304,7 @@ def health_figure(cols: Mapping[str, np.ndarray]) -> str:
     from matplotlib.patches import Patch
     handles = [Patch(color=STATE_COLOURS.get(s, "#cccccc"), label=STATE_LABELS.get(s, s))
                for s in STATES if s in seen_states]
-    handles += [Patch(color=LEVEL_COLOURS[lev], label=lev) for lev in LEVEL_NAMES
+    handles += [Patch(color=LEVEL_COLOURS[lev], label=lev) for lev in LEVEL_NAMES.values()
                 if lev in seen_levels]
     ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55),
               ncols=min(len(handles), 9), fontsize=8)

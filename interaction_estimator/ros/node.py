@@ -35,8 +35,9 @@ import math
 import sys
 import time
 from collections import deque
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import rclpy
 import rclpy.executors
@@ -53,21 +54,38 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
 
-from . import parameters as node_params
 from ..core.compiled import CACHE_DIR
-from ..core.warmup import warm_up
 from ..core.health import ERROR, STALE, WARN
 from ..core.model import ModelError
-from ..io.description_file import resolve as resolve_description
-from .inputs import EffortMatcher, LatencyMeter, WarningThrottle
-from .messages import (MODEL_ERROR, WAITING_FOR_INPUT, WAITING_FOR_MODEL,
-                            EnvironmentEncoder, JointStateReader, NodeFigures, StatusEncoder,
-                            StatusFields, WrenchEncoder, efforts_for_state, idle_fields,
-                            output_numbers, sample_from_joint_state, sample_from_parts,
-                            seconds_to_stamp, stamp_is_zero, stamp_seconds, status_fields)
 from ..core.pipeline import Estimate, Pipeline
 from ..core.samples import RejectCounts, Sample, SampleRejected
 from ..core.settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
+from ..core.warmup import warm_up
+from ..io.description_file import resolve as resolve_description
+from ..io.effort_matching import EffortMatcher
+from . import parameters as node_params
+from .inputs import LatencyMeter, WarningThrottle
+from .messages import (
+    MODEL_ERROR,
+    WAITING_FOR_INPUT,
+    WAITING_FOR_MODEL,
+    EnvironmentEncoder,
+    JointStateReader,
+    NodeFigures,
+    StatusEncoder,
+    StatusFields,
+    WrenchEncoder,
+    efforts_for_state,
+    idle_fields,
+    output_numbers,
+    sample_from_joint_state,
+    sample_from_parts,
+    stamp_is_zero,
+    status_fields,
+    status_object,
+    time_message,
+    time_seconds,
+)
 
 # Topic and service names, relative (namespaces and remapping apply).
 JOINT_STATES_TOPIC = "joint_states"
@@ -326,7 +344,7 @@ class EstimatorNode(Node):
                 self._process_message(msg, receive, None, start, due)
                 return
             receive = self._now_s()
-            t = receive if stamp_is_zero(msg.header.stamp) else stamp_seconds(msg.header.stamp)
+            t = receive if stamp_is_zero(msg.header.stamp) else time_seconds(msg.header.stamp)
             for pair in self._matcher.add_state(t, (msg, receive)):
                 self._process_pair(pair, start)
         except Exception as exc:
@@ -338,7 +356,7 @@ class EstimatorNode(Node):
             if self.pipeline is None:
                 return  # the joint state of the same stamp is counted as no_model
             t = (self._now_s() if stamp_is_zero(msg.header.stamp)
-                 else stamp_seconds(msg.header.stamp))
+                 else time_seconds(msg.header.stamp))
             for pair in self._matcher.add_effort(t, msg):
                 self._process_pair(pair, start)
         except Exception as exc:
@@ -401,7 +419,7 @@ class EstimatorNode(Node):
         if numbers is not None:
             force, torque, values, stds = numbers
             if sample.stamp_from_receive:
-                stamp = seconds_to_stamp(sample.time)
+                stamp = time_message(sample.time)
                 sec, nanosec = stamp.sec, stamp.nanosec
             frame = self._frame_id()
             encoder = self._wrench_encoder
@@ -549,7 +567,7 @@ class EstimatorNode(Node):
                 return
             msg = DiagnosticArray()
             msg.header.stamp = self.get_clock().now().to_msg()
-            msg.status = [self._last_status.message_object()]
+            msg.status = [status_object(self._last_status)]
             self._diagnostics_pub.publish(msg)
         except Exception as exc:
             self._internal_error(exc, "diagnostics publication")
@@ -591,13 +609,13 @@ def make_executor():
         return SingleThreadedExecutor()
 
 
-USAGE = """usage: estimator_node [--ros-args [-p NAME:=VALUE] [--params-file FILE]
+USAGE = f"""usage: estimator_node [--ros-args [-p NAME:=VALUE] [--params-file FILE]
                                  [-r FROM:=TO] ...]
 
-ROS 2 node '{name}': estimates the force a manipulator applies at its contact frame and the
+ROS 2 node '{NODE_NAME}': estimates the force a manipulator applies at its contact frame and the
 mass, damping, stiffness and static force of the object, from joint states alone.
 Parameters: see config/default.yaml (every one with unit, meaning and range).
-""".format(name=NODE_NAME)
+"""
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -18,16 +18,24 @@ from __future__ import annotations
 
 import re
 import sys
+from collections.abc import Iterable, Sequence
 from pathlib import Path
-from typing import Any, Iterable, Sequence
-
-import yaml
+from typing import Any
 
 from rcl_interfaces.msg import FloatingPointRange, IntegerRange, ParameterDescriptor
 from rclpy.parameter import Parameter
 
-from ..core.settings import (PER_JOINT, SPEC_BY_NAME, SPECS, ParamSpec, Settings, SettingsError,
-                       per_joint, validate_value)
+from ..core.settings import (
+    PER_JOINT,
+    SPEC_BY_NAME,
+    SPECS,
+    ParamSpec,
+    Settings,
+    SettingsError,
+    per_joint,
+    validate_value,
+)
+from ..io.parameter_file import file_sections
 
 _STATIC_TYPES = {
     "str": Parameter.Type.STRING,
@@ -179,14 +187,13 @@ def section_matches(section: str, node_fqn: str) -> bool:
 
 def unmatched_file_warning(path: str, node_fqn: str) -> str:
     """A warning when a parameter file has no section that applies to this node, else ''."""
-    try:
-        doc = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
-    except (OSError, yaml.YAMLError):
-        return ""  # the ROS 2 parser has already said what is wrong with it
-    if not isinstance(doc, dict) or any(section_matches(str(k), node_fqn) for k in doc):
+    sections = file_sections(path)
+    if sections is None:   # the ROS 2 parser has already said what is wrong with it
+        return ""
+    if any(section_matches(k, node_fqn) for k in sections):
         return ""
     return (f"parameter file {path!r} has no section for this node {node_fqn!r} (its sections: "
-            f"{sorted(map(str, doc))}); its values are not used. Write '/**/"
+            f"{sorted(sections)}); its values are not used. Write '/**/"
             f"{node_fqn.rsplit('/', 1)[-1]}:' to apply it in any namespace")
 
 

@@ -14,10 +14,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import mujoco_world as mw  # noqa: E402
+
 from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
 from interaction_estimator.core.samples import Sample  # noqa: E402
-from interaction_estimator.sim import marten  # noqa: E402
 from interaction_estimator.core.settings import Settings  # noqa: E402
+from interaction_estimator.sim import marten  # noqa: E402
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 
@@ -35,7 +36,8 @@ def corrupt(run, n, seed):
 
 
 def main() -> None:
-    print("Force estimate vs MuJoCo applied force (28 N peak, 0.5-2 Hz), RMSE after 0.5 s of contact")
+    print("Force estimate vs MuJoCo applied force (28 N peak, 0.5-2 Hz), RMSE after 0.5 s of "
+          "contact")
     print(f"  {'robot':8s} {'clean':>8s} {'noisy':>8s} {'no bias comp.':>14s}")
     for name, path, n in (("arm", marten.ARM_URDF, 7), ("mobile", marten.MOBILE_URDF, 10)):
         run = mw.run_applied_force(path, mw.example_force(free_time=1.0, peak=30.0),

@@ -26,13 +26,23 @@ sys.path.insert(0, str(HERE.parents[1]))
 sys.path.insert(0, str(HERE.parent))
 
 import identification_world as W  # noqa: E402
+
 from interaction_estimator.core.model import RobotModel  # noqa: E402
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter,  # noqa: E402
-                                          JointStateEncoder, encode_string)
+from interaction_estimator.io.bag_writer import BagWriter  # noqa: E402
+from interaction_estimator.io.cdr import (  # noqa: E402
+    JOINT_STATE,
+    STRING,
+    JointStateEncoder,
+    encode_string,
+)
 from interaction_estimator.offline.excitation import optimize, resolve  # noqa: E402
-from interaction_estimator.offline.identification import (Options, Tool,  # noqa: E402
-                                                          identify_model, prepare,
-                                                          runs_from_samples)
+from interaction_estimator.offline.identification import (  # noqa: E402
+    Options,
+    Tool,
+    identify_model,
+    prepare,
+    runs_from_samples,
+)
 from interaction_estimator.offline.tune import read_bag  # noqa: E402
 from interaction_estimator.sim import marten  # noqa: E402
 

@@ -59,8 +59,7 @@ import rclpy  # noqa: E402
 import rclpy.executors  # noqa: E402
 from diagnostic_msgs.msg import DiagnosticStatus  # noqa: E402
 from geometry_msgs.msg import WrenchStamped  # noqa: E402
-from rclpy.qos import (DurabilityPolicy, HistoryPolicy, QoSProfile,  # noqa: E402
-                       ReliabilityPolicy)
+from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
 
 INPUT_QOS = QoSProfile(depth=200, history=HistoryPolicy.KEEP_LAST,
@@ -113,8 +112,9 @@ def cpu_seconds(pid: int) -> float:
 
 def joint_states_cycle(seconds: float, rate: float) -> list[JointState]:
     """One cycle of Marten moving and pushing an object (from the tests' scenario)."""
-    from interaction_estimator.sim import marten
     from ros_harness import contact_scenario
+
+    from interaction_estimator.sim import marten
     steps = contact_scenario(marten.mobile_urdf(), duration=seconds, dt=1.0 / rate,
                              contact_at=1.5)
     return [s.message() for s in steps]
@@ -265,7 +265,7 @@ def measure_all(subjects: dict, cycle: list[JointState], seconds: float, turn: f
     driver = Driver([ns for _, ns, _ in subjects.values()], cycle)
     turns: dict[str, list[dict]] = {name: [] for name in subjects}
     try:
-        for name, (command, ns, cwd) in subjects.items():
+        for name, (command, _ns, cwd) in subjects.items():
             logs[name] = open(f"/tmp/bench_node_{name}_{os.getpid()}.log", "wb")
             procs[name] = subprocess.Popen(command, stdout=logs[name],
                                            stderr=subprocess.STDOUT, cwd=cwd)

@@ -54,8 +54,8 @@ from rclpy.serialization import deserialize_message, serialize_message  # noqa: 
 from sensor_msgs.msg import JointState  # noqa: E402
 
 from interaction_estimator import node as node_module  # noqa: E402
-from interaction_estimator.ros.messages import sample_from_joint_state  # noqa: E402
 from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
+from interaction_estimator.ros.messages import sample_from_joint_state  # noqa: E402
 from interaction_estimator.sim import marten  # noqa: E402
 
 
@@ -189,7 +189,7 @@ def main(argv: list[str] | None = None) -> int:
     results: dict[str, list[float]] = {k: [] for k in (
         "callback", "pipeline", "lean", "node", "read", "outputs", "status")}
     start_ns = 100_000_000_000
-    for rep in range(args.repeat):
+    for _rep in range(args.repeat):
         # whole callback (a fresh model each pass, so every pass sees the same sequence)
         node._load_model(urdf, "benchmark")
         start_ns += 10 * 1_000_000_000
@@ -232,18 +232,19 @@ def main(argv: list[str] | None = None) -> int:
         nm = node_module
         reader = nm.JointStateReader()
         results["read"].append(per_message_us(
-            lambda raw: nm.sample_from_parts(reader.read(raw), float("nan")), raws))
+            lambda raw, nm=nm, reader=reader: nm.sample_from_parts(reader.read(raw),
+                                                                   float("nan")), raws))
         encoder = nm.WrenchEncoder(node._frame_id())
         env, pub_w, pub_e = node._environment_encoder, node._wrench_pub, node._environment_pub
 
-        def outputs(record):
+        def outputs(record, nm=nm, encoder=encoder, env=env, pub_w=pub_w, pub_e=pub_e):
             force, torque, values, stds = nm.output_numbers(record[0])
             pub_w.publish(encoder.encode(12, 34, force, torque))
             pub_e.publish(env.encode(values, stds))
         kept = [r for r in records if r is not None]
         results["outputs"].append(per_message_us(outputs, kept))
         results["status"].append(per_message_us(
-            lambda r: node._publish(nm.status_fields(r[1], node._figures(r[1]),
+            lambda r, nm=nm: node._publish(nm.status_fields(r[1], node._figures(r[1]),
                                                      node._hardware_id()),
                                     time.monotonic()), kept[::status_every]))
     rejects = {k: v for k, v in node._rejects().items() if v}

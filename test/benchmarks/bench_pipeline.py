@@ -21,12 +21,12 @@ import tracemalloc
 import numpy as np
 import pinocchio as pin
 
-from interaction_estimator.core.warmup import warm_up
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
-from interaction_estimator.sim import marten
 from interaction_estimator.core.settings import Settings
+from interaction_estimator.core.warmup import warm_up
+from interaction_estimator.sim import marten
 
 
 def make_samples(n: int, rate: float = 1000.0) -> list[Sample]:

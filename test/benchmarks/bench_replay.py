@@ -1,4 +1,5 @@
-"""Replay throughput on a long 1 kHz bag of the demo robot, beside the floor (prints, asserts nothing).
+"""Replay throughput on a long 1 kHz bag of the demo robot, beside the floor (prints, asserts
+nothing).
 
 Builds a bag of the mobile Marten (10 joints) moving for ``--minutes`` at 1 kHz, in contact with
 an invented spring-damper object from t = 2 s on (efforts by Pinocchio inverse dynamics plus the
@@ -15,7 +16,9 @@ contact torque, with noise), then measures in the same run:
              files).
 
 Figures: wall seconds, microseconds per sample, times real time, ratio to the floor.
-Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR]
+Usage: python test/benchmarks/bench_replay.py [--minutes M] [--keep DIR] [--bag BAG]
+(``--bag``: an existing bag written by an earlier run with ``--keep``, to measure two checkouts
+on the same file.)
 """
 from __future__ import annotations
 
@@ -28,14 +31,22 @@ from pathlib import Path
 import numpy as np
 import pinocchio as pin
 
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateDecoder,
-                                       JointStateEncoder, RecordedBag, encode_string,
-                                       seconds_to_stamp, typestore)
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
+from interaction_estimator.core.settings import Settings
+from interaction_estimator.io.bag import RecordedBag
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import (
+    JOINT_STATE,
+    STRING,
+    JointStateDecoder,
+    JointStateEncoder,
+    encode_string,
+    seconds_to_stamp,
+    typestore,
+)
 from interaction_estimator.offline.replay import ReplayRequest, replay, run_pipeline
 from interaction_estimator.sim import marten
-from interaction_estimator.core.settings import Settings
 
 RATE = 1000.0  # Hz
 
@@ -135,14 +146,20 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--minutes", type=float, default=10.0,
                         help="bag length in minutes at 1 kHz (default 10)")
     parser.add_argument("--keep", type=Path, help="keep the bag and the replay output here")
+    parser.add_argument("--bag", type=Path, help="use this bag (from an earlier --keep)")
     args = parser.parse_args(argv)
     work = Path(tempfile.mkdtemp(prefix="bench_replay."))
     try:
         bag = work / "marten_long"
         t0 = time.perf_counter()
-        n = write_bag(bag, args.minutes)
+        if args.bag is not None:
+            bag = args.bag
+            with RecordedBag(bag) as recorded:
+                n = recorded.info.joint_state_count
+        else:
+            n = write_bag(bag, args.minutes)
         duration = (n - 1) / RATE
-        size = sum(p.stat().st_size for p in bag.iterdir()) / 1e6
+        size = sum(p.stat().st_size for p in Path(bag).iterdir()) / 1e6
         print(f"bag: {n} joint states, {duration:.0f} s at {RATE:.0f} Hz, {size:.0f} MB MCAP, "
               f"built in {time.perf_counter() - t0:.1f} s")
         settings = Settings({"direction.mode": "world", "direction.vector": [1.0, 0.0, 0.0]})

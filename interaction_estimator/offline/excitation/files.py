@@ -5,8 +5,8 @@ FollowJointTrajectory goal takes it under ``trajectory:``)."""
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 import numpy as np
 

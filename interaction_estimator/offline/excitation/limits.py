@@ -11,9 +11,9 @@ from __future__ import annotations
 
 import math
 import xml.etree.ElementTree as ET
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Mapping, Sequence
 
 import yaml
 
@@ -56,7 +56,7 @@ def urdf_limits(urdf: str) -> dict[str, dict[str, float | str | None]]:
         if kind not in ("revolute", "continuous", "prismatic"):
             continue
         lim = j.find("limit")
-        get = (lambda k: None) if lim is None else (lambda k: _num(lim.get(k)))
+        get = (lambda k: None) if lim is None else (lambda k, lim=lim: _num(lim.get(k)))
         lower, upper = get("lower"), get("upper")
         if kind == "continuous" or (lower is not None and upper is not None and upper <= lower):
             lower = upper = None                    # no position range

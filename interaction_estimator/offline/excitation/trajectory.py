@@ -25,8 +25,8 @@ best, on the logarithm of the condition number.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Callable, Sequence
 
 import numpy as np
 import pinocchio as pin

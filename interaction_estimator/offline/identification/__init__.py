@@ -9,8 +9,13 @@ differentiator), ``fit`` (the estimate), ``procedure`` (the whole), ``urdf_out``
 written).
 """
 from .fit import Options
-from .procedure import (IdentificationError, LinkResult, ModelIdentification, identify_model,
-                        physical_problems)
+from .procedure import (
+                        IdentificationError,
+                        LinkResult,
+                        ModelIdentification,
+                        identify_model,
+                        physical_problems,
+)
 from .signals import MotionData, RawRun, exact, prepare, runs_from_samples
 from .structure import Tool
 

@@ -168,7 +168,7 @@ def _weights(rows: Rows, use: np.ndarray) -> tuple[np.ndarray, float]:
         if same.sum() < 10:
             break
         rho_all.append(float(np.mean(Z[lag:][same] * Z[:-lag][same])) / var)
-    kappa = 1.0 + 2.0 * sum((1.0 - (l + 1) / (L + 1.0)) * c for l, c in enumerate(rho_all))
+    kappa = 1.0 + 2.0 * sum((1.0 - (k + 1) / (L + 1.0)) * c for k, c in enumerate(rho_all))
     return sigma, max(kappa, 1.0)
 
 

@@ -3,16 +3,23 @@ the free-motion data, a check fit without the held-out part (for the before/afte
 the final fit on all of it, and per-link results with their intervals."""
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Sequence
 
 import numpy as np
 from threadpoolctl import threadpool_limits
 
 from ...core.model import RobotModel
 from . import inertia as inr
-from .fit import (Options, Solution, build_rows, linear_with_fixed_beta, residual_rms, solve,
-                  summary_with_intervals)
+from .fit import (
+    Options,
+    Solution,
+    build_rows,
+    linear_with_fixed_beta,
+    residual_rms,
+    solve,
+    summary_with_intervals,
+)
 from .regressor import BaseParameters, base_parameters
 from .signals import MotionData
 from .structure import Layout, Tool, build_layout

@@ -5,13 +5,13 @@ Joint accelerations are never taken by double (or single) differencing of noisy 
 Savitzky-Golay filter (Savitzky and Golay, Analytical Chemistry 36(8), 1964;
 ``scipy.signal.savgol_filter``, cubic, zero phase, so no lag offline) smooths positions,
 velocities and efforts and differentiates the velocity, or the positions twice, per joint
-whichever the measured noise makes the more accurate (:func:`_derivatives`). All signals of a row go through the same
-filter, so that the model sees consistently filtered data (the common practice of filtering
-torques and states alike before identification, e.g. Gautier and Poignet, "Extended Kalman
-filtering and weighted least squares dynamic identification of robot", Control Engineering
-Practice 9(12), 2001). After filtering, every ``m``-th sample is kept (the filter has removed
-what lies above a small fraction of the sample rate); the ends of each run, where the filter
-extrapolates, are dropped.
+whichever the measured noise makes the more accurate (:func:`_derivatives`). All signals of a
+row go through the same filter, so that the model sees consistently filtered data (the common
+practice of filtering torques and states alike before identification, e.g. Gautier and Poignet,
+"Extended Kalman filtering and weighted least squares dynamic identification of robot", Control
+Engineering Practice 9(12), 2001). After filtering, every ``m``-th sample is kept (the filter
+has removed what lies above a small fraction of the sample rate); the ends of each run, where
+the filter extrapolates, are dropped.
 
 A run is a stretch of consecutive, finite samples; runs split at gaps longer than
 :data:`GAP_FACTOR` median intervals. Timestamps of real topics jitter: a run whose intervals
@@ -21,8 +21,8 @@ median interval first. Continuous joints' angles are unwrapped before filtering.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from typing import Iterable, Sequence
 
 import numpy as np
 from scipy.signal import savgol_coeffs, savgol_filter

@@ -11,7 +11,7 @@ axes, the form every URDF reader takes.
 from __future__ import annotations
 
 import xml.etree.ElementTree as ET
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 

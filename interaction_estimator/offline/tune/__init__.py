@@ -1,4 +1,5 @@
-"""Commissioning from recorded data: torque bias, joint friction and noise levels, into a parameter file.
+"""Commissioning from recorded data: torque bias, joint friction and noise levels, into a
+parameter file.
 
 ``interaction-estimator tune BAG [BAG ...] --out FILE [--params BASE] [--urdf FILE] [--report DIR]
 [--free-motion BAG ...] [--tool-frame LINK]`` (or ``python -m interaction_estimator.offline.tune
@@ -15,12 +16,12 @@ and identifies, from the data:
 1. **Segments.** Free motion and contact, as the Pipeline's contact monitor sees them
    (``Estimate.phase``). The monitor needs bias and friction to be right, so the segmentation is
    bootstrapped: the first pass takes only the start-up phase (``bias.startup`` s, which the
-   Pipeline itself assumes is free motion), then passes with the identified values re-segment until
-   the free-motion samples no longer change (at most :data:`MAX_SEGMENTATION_PASSES`). Samples within
-   :func:`margin` s of contact, of an observer restart or of the start are left out. A bag in
-   which the monitor finds no contact at all (a commissioning run of free motion, such as the
-   simulator's ``commissioning`` scenario, which moves every joint both ways) serves bias,
-   friction and sensor noise only, and the account of the segments says so; at least one bag
+   Pipeline itself assumes is free motion), then passes with the identified values re-segment
+   until the free-motion samples no longer change (at most :data:`MAX_SEGMENTATION_PASSES`).
+   Samples within :func:`margin` s of contact, of an observer restart or of the start are left
+   out. A bag in which the monitor finds no contact at all (a commissioning run of free motion,
+   such as the simulator's ``commissioning`` scenario, which moves every joint both ways) serves
+   bias, friction and sensor noise only, and the account of the segments says so; at least one bag
    must have contact, for step 4.
 2. **Bias and friction** per joint from free motion. The observer residual computed without
    bias and friction is, in free motion, ``r_raw = O(-(b + f_v v + f_c tanh(v/eps)))`` where ``O``
@@ -75,10 +76,28 @@ Layout of this package (each module one responsibility; DEVELOPERS.md has the ma
 from __future__ import annotations
 
 from .command import add_arguments, explain, main, run
-from .common import (CONTACT, EXIT_FAILURE, EXIT_OK, EXIT_USAGE, FREE, FREE_ONLY_USE,
-                     HELD_OUT_FRACTION, LEARNING, PHASES, PROG, REPORT_NAME, TuneError)
-from .entries import (TunedEntry, build_entries, file_header, free_only_text, parameter_yaml,
-                      write_text_atomic)
+from .common import (
+                     CONTACT,
+                     EXIT_FAILURE,
+                     EXIT_OK,
+                     EXIT_USAGE,
+                     FREE,
+                     FREE_ONLY_USE,
+                     HELD_OUT_FRACTION,
+                     LEARNING,
+                     PHASES,
+                     PROG,
+                     REPORT_NAME,
+                     TuneError,
+)
+from .entries import (
+                     TunedEntry,
+                     build_entries,
+                     file_header,
+                     free_only_text,
+                     parameter_yaml,
+                     write_text_atomic,
+)
 from .filter_noise import NoiseFit, fit_filter_noise, replay_filter
 from .friction import Identification, JointFit, check_model_fit, identify
 from .passes import FilterTape, Trace, run_pass

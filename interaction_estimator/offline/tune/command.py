@@ -4,24 +4,24 @@ from __future__ import annotations
 import argparse
 import math
 import sys
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.environment import PARAMETER_NAMES
 from ...core.model import ModelError
 from ...core.settings import SettingsError
-from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
+from ...io.description_file import resolve as resolve_description
+from ...io.files import write_atomic
 from ..identification import Tool
 from ..identification.signals import DEFAULT_WINDOW
-from ...io.description_file import resolve as resolve_description
-from .entries import (_interval, file_header, model_summary, point_at_model, urdf_header,
-                      write_text_atomic)
+from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
+from .entries import _interval, file_header, model_summary, point_at_model, urdf_header
 from .model import ModelRequest
 from .procedure import TuneResult, tune
 from .recordings import Recording, read_bag
-
 
 # ============================================================================================
 # explanation
@@ -94,7 +94,8 @@ def explain_model(r: TuneResult) -> list[str]:
                    f"{num(moved, 11)}{num(ci, 9)}")
     out.append("  (mass kg; 'CoM moved': distance in m from the URDF's centre of mass (a tool: "
                "from its link's origin); +/-: 95 %; 'determined': of 10 parameters' worth)")
-    out.append(f"  {'joint':<24}{'residual URDF':>15}{'identified':>12}   (held-out, RMS, N.m or N)")
+    out.append(f"  {'joint':<24}{'residual URDF':>15}{'identified':>12}"
+               "   (held-out, RMS, N.m or N)")
     for j, name in enumerate(ident.joints):
         out.append(f"  {name:<24}{ident.residual_before[j]:15.4g}{ident.residual_after[j]:12.4g}")
     out += [f"  note: {n}" for n in ident.notes]
@@ -197,7 +198,7 @@ def _check_out(out: Path, report: Path | None) -> None:
 
 
 def _load_inputs(args: argparse.Namespace) -> tuple[list[Recording], str, dict[str, Any], str]:
-    from ...core.settings import load_parameter_file, parameters_from_yaml
+    from ...io.parameter_file import load_parameter_file, parameters_from_yaml
     if not args.bags and not args.free_motion:
         raise TuneError("no bags given; expected BAG ... (and --free-motion BAG ...)")
     recs = [read_bag(Path(b), args.topics) for b in list(args.bags) + list(args.free_motion)]
@@ -258,12 +259,12 @@ def run(args: argparse.Namespace) -> int:
             from .report import build_tuning_report
             report_html = build_tuning_report(result, recs, urdf, params)
         if result.model is not None and urdf_out is not None:
-            write_text_atomic(urdf_out, result.model.identification.urdf(
+            write_atomic(urdf_out, result.model.identification.urdf(
                 urdf, urdf_header(result, base_source)))
-        write_text_atomic(Path(args.out), text)
+        write_atomic(Path(args.out), text)
         if report_html is not None:
             Path(args.report).mkdir(exist_ok=True)
-            write_text_atomic(Path(args.report) / REPORT_NAME, report_html)
+            write_atomic(Path(args.report) / REPORT_NAME, report_html)
     except (TuneError, BagError, SettingsError, ModelError) as exc:
         print(f"{PROG}: error: {exc}", file=sys.stderr)
         print("no file written", file=sys.stderr)

@@ -3,14 +3,13 @@ from __future__ import annotations
 
 import math
 
+from ...core.health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING, PHASES  # noqa: F401
 from ...core.settings import SPEC_BY_NAME
-
 
 PROG = "interaction-estimator tune"
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 
-PHASES = ("learning_bias", "free", "contact")
-LEARNING, FREE, CONTACT = 0, 1, 2
+LEARNING, FREE, CONTACT = PHASE_LEARNING, PHASE_FREE, PHASE_CONTACT
 # what a bag without contact (a commissioning run) is used for, in every account of it
 FREE_ONLY_USE = ("free motion only, used for bias, friction and sensor noise, not for the "
                  "environment filter")

@@ -6,9 +6,10 @@ import json
 import math
 import os
 import tempfile
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterable, Mapping, Sequence
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -203,7 +204,7 @@ def write_text_atomic(path: Path, text: str) -> None:
 
 
 def file_header(result: TuneResult, base_source: str) -> list[str]:
-    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    now = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
     lines = [f"written by `{PROG}` on {now}",
              f"base: {base_source}",
              "bags: " + ", ".join(result.bags),
@@ -229,7 +230,7 @@ def free_only_text(result: TuneResult) -> str:
 # the identified model
 
 
-def model_summary(result: "TuneResult") -> list[str]:
+def model_summary(result: TuneResult) -> list[str]:
     """Lines (ASCII) saying what the identification used and found."""
     model = result.model
     if model is None:
@@ -262,7 +263,7 @@ def model_summary(result: "TuneResult") -> list[str]:
     return lines
 
 
-def point_at_model(result: "TuneResult", file_name: str, base_source: str) -> None:
+def point_at_model(result: TuneResult, file_name: str, base_source: str) -> None:
     """Point ``robot_description_file`` at the identified URDF ``file_name`` (written beside
     the parameter file; the path is relative to it)."""
     result.entries["robot_description_file"] = TunedEntry(
@@ -272,9 +273,9 @@ def point_at_model(result: "TuneResult", file_name: str, base_source: str) -> No
     result.settings = result.settings.replace({"robot_description_file": file_name})
 
 
-def urdf_header(result: "TuneResult", base_source: str) -> list[str]:
+def urdf_header(result: TuneResult, base_source: str) -> list[str]:
     """The comment at the top of the written URDF."""
-    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    now = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
     lines = [f"written by `{PROG}` on {now}: inertial values identified from free motion",
              f"from the URDF given (base: {base_source}); links not listed as identified, and "
              "everything but their inertial elements, are as given",

@@ -3,20 +3,29 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Callable, Sequence
 
 import numpy as np
 
 from ...core.environment import PARAMETER_NAMES, EnvironmentFilter
 from ...core.settings import SPEC_BY_NAME, Settings
-from .common import (CHI2_1_95, DECIMATION_OFFSETS, MATCH_TOLERANCE, MAX_DECIMATION,
-                     MIN_DECIMATED_UPDATES, MIN_EXCITED_FRACTION, SEARCH_DECADES,
-                     SEARCH_SWEEPS, WHITE_CORRELATION, Z95, _clamp)
+from .common import (
+    CHI2_1_95,
+    DECIMATION_OFFSETS,
+    MATCH_TOLERANCE,
+    MAX_DECIMATION,
+    MIN_DECIMATED_UPDATES,
+    MIN_EXCITED_FRACTION,
+    SEARCH_DECADES,
+    SEARCH_SWEEPS,
+    WHITE_CORRELATION,
+    Z95,
+    _clamp,
+)
 from .friction import correlation_lags
 from .passes import FilterTape
 from .segments import steady_mask
-
 
 # ============================================================================================
 # environment-filter noise: decimated maximum likelihood and covariance matching
@@ -68,7 +77,7 @@ class _FilterRun:
         updates selected by ``mask`` (M,) bool."""
         return 0.5 * float(np.sum((np.log(self.variance) + self.nis)[mask]))
 
-    def subset(self, mask: np.ndarray) -> "_FilterRun":
+    def subset(self, mask: np.ndarray) -> _FilterRun:
         return _FilterRun(self.innovation[mask], self.variance[mask], self.nis[mask],
                           self.bag[mask], self.excited[mask])
 

@@ -3,17 +3,23 @@ residual), and the check that the free-motion residual is what the noise explain
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
 from ...core.settings import Settings, per_joint
-from .common import (MIN_FREE_TIME, MIN_MOVING_TIME, MISMATCH_FLOOR, MISMATCH_RATIO,
-                     MOVING_FACTOR, Z95, TuneError)
+from .common import (
+    MIN_FREE_TIME,
+    MIN_MOVING_TIME,
+    MISMATCH_FLOOR,
+    MISMATCH_RATIO,
+    MOVING_FACTOR,
+    Z95,
+    TuneError,
+)
 from .passes import Trace
 from .segments import Segment, runs_of, segments_of
-
 
 # ============================================================================================
 # sensor noise (difference-based)

@@ -12,16 +12,26 @@ The method is :mod:`interaction_estimator.offline.identification`.
 """
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.model import RobotModel
 from ...core.settings import Settings
-from ..identification import (IdentificationError, ModelIdentification, Options, RawRun, Tool,
-                              identify_model, physical_problems, prepare, runs_from_samples)
+from ..identification import (
+    IdentificationError,
+    ModelIdentification,
+    Options,
+    RawRun,
+    Tool,
+    identify_model,
+    physical_problems,
+    prepare,
+    runs_from_samples,
+)
 from ..identification.signals import DEFAULT_WINDOW
 from .common import TuneError
 from .passes import run_pass

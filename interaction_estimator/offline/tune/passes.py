@@ -12,7 +12,6 @@ from ...core.settings import Settings
 from .common import PHASES, TuneError
 from .recordings import Recording
 
-
 # ============================================================================================
 # taps on the Pipeline's own stages (they read what it exposes; nothing of it is changed)
 
@@ -88,7 +87,7 @@ class FilterTape:
     def __len__(self) -> int:
         return len(self.time)
 
-    def subset(self, keep_until: float) -> "FilterTape":
+    def subset(self, keep_until: float) -> FilterTape:
         """The updates with t < keep_until s (inflations before them kept)."""
         n = int(np.searchsorted(np.asarray(self.time), keep_until))
         return FilterTape(self.time[:n], self.rows[:n], self.force[:n], self.excited[:n],

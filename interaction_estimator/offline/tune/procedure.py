@@ -2,25 +2,35 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.pipeline import Pipeline
 from ...core.settings import Settings, SettingsError, per_joint
-from .common import (CONTACT, FREE_ONLY_USE, LEARNING, MAX_SEGMENTATION_PASSES,
-                     MIN_BAG_DURATION, MIN_CONTACT_TIME, MIN_FREE_TIME, MIN_MOVING_TIME,
-                     TuneError, _clamp)
-from .entries import TunedEntry, build_entries, parameter_yaml
+from ...io.parameter_file import settings_file_text
+from .common import (
+    CONTACT,
+    FREE_ONLY_USE,
+    LEARNING,
+    MAX_SEGMENTATION_PASSES,
+    MIN_BAG_DURATION,
+    MIN_CONTACT_TIME,
+    MIN_FREE_TIME,
+    MIN_MOVING_TIME,
+    TuneError,
+    _clamp,
+)
+from .entries import TunedEntry, build_entries
 from .filter_noise import NoiseFit, fit_filter_noise
 from .friction import Identification, check_model_fit, identify
 from .model import ModelRequest, ModelResult, identify_robot
 from .passes import FilterTape, Trace, run_pass
 from .recordings import Recording
 from .segments import Segment, contact_segments, free_mask, margin, onset_time
-
 
 # ============================================================================================
 # the whole tuning
@@ -56,7 +66,8 @@ class TuneResult:
 
     def parameter_file(self, header: Sequence[str]) -> str:
         """The ROS 2 parameter YAML text of the result."""
-        return parameter_yaml(self.settings, self.written, self.entries, header)
+        return settings_file_text(self.settings, {*self.written, *self.entries},
+                                  {n: e.comment for n, e in self.entries.items()}, header)
 
 
 def bag_settings(base: Settings, recommended: Mapping[str, Any], params: Mapping[str, Any],

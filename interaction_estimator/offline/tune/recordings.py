@@ -1,16 +1,16 @@
 """The input of the tuning: recordings (bags, or simulated runs) in memory."""
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
 from ...core.environment import PARAMETER_NAMES
 from ...core.samples import Sample
 from .common import TuneError
-
 
 # ============================================================================================
 # input: recordings

@@ -27,7 +27,7 @@ def _n(x: float) -> str:
     return f"{x:.4g}" if math.isfinite(x) else "&ndash;"
 
 
-def model_section(result: "TuneResult") -> str:
+def model_section(result: TuneResult) -> str:
     """HTML of the section ('' when the model was not identified)."""
     if result.model is None:
         return ""

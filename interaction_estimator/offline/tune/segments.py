@@ -1,15 +1,14 @@
 """Free-motion and contact segments of a pass, and the margins kept around them."""
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
 from ...core.settings import Settings, per_joint
 from .common import CONTACT, FREE, LEARNING, MARGIN_EXTRA
 from .passes import FilterTape, Trace
-
 
 # ============================================================================================
 # segments
@@ -44,7 +43,7 @@ def onset_time(settings: Settings, joints: Sequence[str]) -> float:
     return settings["kinematics.window"] + 5.0 / max(gain, 1e-3)
 
 
-def steady_mask(tape: "FilterTape", onset: float) -> np.ndarray:
+def steady_mask(tape: FilterTape, onset: float) -> np.ndarray:
     """Updates (M,) bool at least ``onset`` s after the start of their contact (the first
     update of the bag, and each contact the Pipeline started again)."""
     t = np.asarray(tape.time)
