@@ -16,6 +16,7 @@ References named beside each check:
 The subset's checks of the estimator hold it to what it meets today (thresholds marked
 "today"); they are to be raised to issue 17's targets as the estimation work lands.
 """
+
 from __future__ import annotations
 
 import math
@@ -33,18 +34,20 @@ from interaction_estimator.offline.validation.runner import evaluate_runs
 from interaction_estimator.sim import mujoco_world as mw
 
 G0 = 9.80665  # m/s^2, standard gravity (CGPM 1901)
-SUBSET = range(0, 35)   # 35 seeds: 7 per robot
+SUBSET = range(0, 35)  # 35 seeds: 7 per robot
 
 
 # ---------------------------------------------------------------------------------------------
 # The harness against outside references
 # ---------------------------------------------------------------------------------------------
 
+
 def test_batch_fit_recovers_noise_free_truth_exactly():
     # numpy.linalg.lstsq on exact data h . theta: the truth comes back to round-off
     rng = np.random.default_rng(1)
-    H = np.column_stack([rng.normal(size=500), rng.normal(size=500), rng.normal(size=500),
-                         np.ones(500)])
+    H = np.column_stack(
+        [rng.normal(size=500), rng.normal(size=500), rng.normal(size=500), np.ones(500)]
+    )
     theta = np.array([2.5, 0.0, 300.0, -12.0])
     est, std = methods.batch_fit(H, H @ theta)
     np.testing.assert_allclose(est, theta, rtol=0, atol=1e-9)
@@ -57,8 +60,9 @@ def test_naive_rls_equals_batch_least_squares_and_restarts_after_a_gap():
     # RLS from a diffuse prior = batch least squares of the same rows (Ljung 1999, 11.2)
     rng = np.random.default_rng(2)
     k = 800
-    H = np.column_stack([rng.normal(0, 2, k), rng.normal(0, 0.3, k), rng.normal(0, 0.05, k),
-                         np.ones(k)])
+    H = np.column_stack(
+        [rng.normal(0, 2, k), rng.normal(0, 0.3, k), rng.normal(0, 0.05, k), np.ones(k)]
+    )
     theta = np.array([4.0, 20.0, 500.0, 3.0])
     f = H @ theta + rng.normal(0, 0.5, k)
     t = np.arange(k) * 1e-3
@@ -67,30 +71,31 @@ def test_naive_rls_equals_batch_least_squares_and_restarts_after_a_gap():
     np.testing.assert_allclose(trace.theta[-1], ref, rtol=1e-5, atol=1e-6)
     s2 = float(res[0]) / (k - 4)
     # the residual sum accumulated from the finite prior P_0 = 1e6 I: equal to 1e-3
-    np.testing.assert_allclose(trace.std[-1], np.sqrt(s2 * np.diag(np.linalg.inv(H.T @ H))),
-                               rtol=2e-3)
+    np.testing.assert_allclose(
+        trace.std[-1], np.sqrt(s2 * np.diag(np.linalg.inv(H.T @ H))), rtol=2e-3
+    )
     # a gap longer than restart_gap starts afresh: the second half alone
     t2 = t.copy()
-    t2[k // 2:] += 5.0
+    t2[k // 2 :] += 5.0
     trace2 = methods.NaiveRLS(restart_gap=1.0).run(np.arange(k), t2, H, f, k)
-    ref2 = np.linalg.lstsq(H[k // 2:], f[k // 2:], rcond=None)[0]
+    ref2 = np.linalg.lstsq(H[k // 2 :], f[k // 2 :], rcond=None)[0]
     np.testing.assert_allclose(trace2.theta[-1], ref2, rtol=1e-5, atol=1e-6)
 
 
 def test_nees_bounds_are_scipy_chi_square_and_tell_over_from_under_confidence():
     rng = np.random.default_rng(3)
     m = 4000
-    err = rng.normal(size=(m, 4))          # independent standard normal errors
+    err = rng.normal(size=(m, 4))  # independent standard normal errors
     mask = np.ones((m, 4), bool)
     ok = scoring.nees_check(err, np.ones((m, 4)), mask)
     d = ok["dof_eff"]
     assert ok["lo"] == pytest.approx(stats.chi2.ppf(0.025, d) / d)
     assert ok["hi"] == pytest.approx(stats.chi2.ppf(0.975, d) / d)
-    assert d == pytest.approx(4 * m, rel=0.1)          # white: about every square counts
+    assert d == pytest.approx(4 * m, rel=0.1)  # white: about every square counts
     assert ok["inside"]
-    assert not scoring.nees_check(err, 0.5 * np.ones((m, 4)), mask)["inside"]   # overconfident
+    assert not scoring.nees_check(err, 0.5 * np.ones((m, 4)), mask)["inside"]  # overconfident
     low = scoring.nees_check(err, 2.0 * np.ones((m, 4)), mask)
-    assert not low["inside"] and low["value"] < low["lo"]                       # too cautious
+    assert not low["inside"] and low["value"] < low["lo"]  # too cautious
     assert scoring.nees_check(err, np.ones((m, 4)), np.zeros((m, 4), bool)) is None
 
 
@@ -103,10 +108,12 @@ def test_integrated_autocorrelation_time_of_ar1():
     x[0] = e[0]
     for i in range(1, n):
         x[i] = phi * x[i - 1] + e[i]
-    assert scoring.integrated_autocorrelation_time(x) == pytest.approx((1 + phi) / (1 - phi),
-                                                                       rel=0.15)
+    assert scoring.integrated_autocorrelation_time(x) == pytest.approx(
+        (1 + phi) / (1 - phi), rel=0.15
+    )
     assert scoring.integrated_autocorrelation_time(rng.normal(size=5000)) == pytest.approx(
-        1.0, abs=0.15)
+        1.0, abs=0.15
+    )
 
 
 def test_scale_and_excitation_from_the_truth_regressor():
@@ -117,9 +124,9 @@ def test_scale_and_excitation_from_the_truth_regressor():
     H_hold = np.column_stack([wig, np.ones(len(t))])
     f = 10.0 + 0.01 * rng.normal(size=len(t))
     s = scoring.scales(f, H_hold)
-    assert s[3] == pytest.approx(0.05 * math.sqrt(np.mean(f * f)))   # 5 % of the RMS force
+    assert s[3] == pytest.approx(0.05 * math.sqrt(np.mean(f * f)))  # 5 % of the RMS force
     theta = np.array([2.0, 0.0, 0.0, 10.0])
-    noise = np.array([0.01, 1e-3, 1e-5, 0.0])       # m/s^2, m/s, m: the sensors' level
+    noise = np.array([0.01, 1e-3, 1e-5, 0.0])  # m/s^2, m/s, m: the sensors' level
     exc, _ = scoring.excitation(H_hold, 0.05, np.maximum(np.abs(theta), s), noise)
     assert exc.tolist() == [False, False, False, True]
     # the scaled bound alone would count the micrometre wiggle (the scale grows as it shrinks)
@@ -135,8 +142,14 @@ def test_scale_and_excitation_from_the_truth_regressor():
     exc, bound = scoring.excitation(H, 0.05, d, noise)
     assert exc.all() and np.all(bound < scoring.EXCITED_STD * d)
     # a single sine: x'' = -w^2 x, mass and stiffness cannot be told apart
-    H1 = np.column_stack([-w[0] ** 2 * np.sin(w[0] * t), w[0] * np.cos(w[0] * t),
-                          np.sin(w[0] * t), np.ones(len(t))]) * [0.02, 0.02, 0.02, 1.0]
+    H1 = np.column_stack(
+        [
+            -(w[0] ** 2) * np.sin(w[0] * t),
+            w[0] * np.cos(w[0] * t),
+            np.sin(w[0] * t),
+            np.ones(len(t)),
+        ]
+    ) * [0.02, 0.02, 0.02, 1.0]
     d1 = np.maximum(np.abs(theta), scoring.scales(H1 @ theta, H1))
     exc1, _ = scoring.excitation(H1, 0.05, d1, noise)
     assert exc1.tolist() == [False, True, False, True]
@@ -157,7 +170,7 @@ def test_generator_draws_the_issues_ranges():
     for name, hi in (("damping", 100.0), ("stiffness", 2000.0), ("static_force", 40.0)):
         v = np.array([getattr(p, name) for p in objs])
         assert np.abs(v).max() <= hi
-        assert 0.25 <= np.mean(v == 0.0) <= 0.42, name        # exact zeros in about a third
+        assert 0.25 <= np.mean(v == 0.0) <= 0.42, name  # exact zeros in about a third
     assert {sp.robot for sp in specs} == set(ROBOT_NAMES)
     assert {sp.rate for sp in specs} == set(scenarios.RATES)
     assert {sp.motion for sp in specs} == set(scenarios.MOTIONS)
@@ -182,9 +195,16 @@ def test_parameter_files_follow_one_rule(tmp_path):
         assert st["observer.effort_noise"] == entry.sensors.effort_noise[1]
         assert st["observer.velocity_noise"] == entry.sensors.velocity_noise[1]
         key = (spec.robot, spec.rate)
-        values = {k: st[k] for k in ("observer.effort_noise", "observer.velocity_noise",
-                                     "observer.max_gap", "health.min_rate")}
-        assert seen.setdefault(key, values) == values    # same robot and rate: same file
+        values = {
+            k: st[k]
+            for k in (
+                "observer.effort_noise",
+                "observer.velocity_noise",
+                "observer.max_gap",
+                "health.min_rate",
+            )
+        }
+        assert seen.setdefault(key, values) == values  # same robot and rate: same file
 
 
 def test_seed_lists():
@@ -209,6 +229,7 @@ def test_real_robots_in_mujoco_have_pinocchios_dynamics(name):
     assert sorted(vidx.tolist()) == list(range(model.nv)) == list(range(r.n))
     rng = np.random.default_rng(6)
     import mujoco
+
     for _ in range(5):
         q = world.q0 + np.where(world.chain, rng.uniform(-0.3, 0.3, r.n), 0.0)
         v = rng.uniform(-1.0, 1.0, r.n)
@@ -217,7 +238,7 @@ def test_real_robots_in_mujoco_have_pinocchios_dynamics(name):
         qp = np.zeros(model.nq)
         for j, x in zip(joints, q):
             if j.nq == 2:
-                qp[j.idx_q:j.idx_q + 2] = np.cos(x), np.sin(x)
+                qp[j.idx_q : j.idx_q + 2] = np.cos(x), np.sin(x)
             else:
                 qp[j.idx_q] = x
         vp = np.zeros(model.nv)
@@ -225,8 +246,7 @@ def test_real_robots_in_mujoco_have_pinocchios_dynamics(name):
         M = pin.crba(model, data, qp)
         M = np.triu(M) + np.triu(M, 1).T
         bias = pin.rnea(model, data, qp, vp, np.zeros(model.nv))
-        np.testing.assert_allclose(r.mass_matrix(), M[np.ix_(vidx, vidx)], rtol=1e-6,
-                                   atol=1e-9)
+        np.testing.assert_allclose(r.mass_matrix(), M[np.ix_(vidx, vidx)], rtol=1e-6, atol=1e-9)
         np.testing.assert_allclose(r.bias(), bias[vidx], rtol=1e-6, atol=1e-8)
     if name == "tiago":
         assert any("inertia not physically valid" in n for n in world.notes)
@@ -238,12 +258,21 @@ def test_object_world_bookkeeping_with_a_mimic_joint_and_a_change():
     # and the attachment's own constraint torque is J_p^T (-F) (virtual work).
     entry = robots()["panda"]
     u = np.array([0.2, -0.5, 0.84])
-    world = mw.ObjectWorld(entry.urdf_path, entry.contact_frame, u, q0=entry.q0,
-                           gravity_on_object=True)
+    world = mw.ObjectWorld(
+        entry.urdf_path, entry.contact_frame, u, q0=entry.q0, gravity_on_object=True
+    )
     motion = mw.MultiSine([0.015, 0.01], [0.6, 1.5], [0.0, 1.0], 0.3, 0.4, 3.0)
-    phases = [mw.FreePhase(0.8, seed=1),
-              mw.ContactPhase(3.0, motion, ((0.0, mw.ObjectParams(1.2, 8.0, 250.0, 4.0)),
-                                            (1.5, mw.ObjectParams(2.0, 0.0, 600.0, -6.0))))]
+    phases = [
+        mw.FreePhase(0.8, seed=1),
+        mw.ContactPhase(
+            3.0,
+            motion,
+            (
+                (0.0, mw.ObjectParams(1.2, 8.0, 250.0, 4.0)),
+                (1.5, mw.ObjectParams(2.0, 0.0, 600.0, -6.0)),
+            ),
+        ),
+    ]
     run = world.simulate(phases, 500.0)
     c = run.attached
     assert set(run.episode[c].tolist()) == {0, 1}
@@ -255,9 +284,10 @@ def test_object_world_bookkeeping_with_a_mimic_joint_and_a_change():
     u_n = world.u
     for row, k in enumerate(run.jacobian_index):
         if c[k]:
-            np.testing.assert_allclose(run.external_torque[k], run.jacobian[row].T @ (-run.force[k]),
-                                       rtol=1e-6, atol=1e-6)
-    assert np.max(np.abs(run.other_constraint_torque)) < 0.05   # the mimic coupling, small
+            np.testing.assert_allclose(
+                run.external_torque[k], run.jacobian[row].T @ (-run.force[k]), rtol=1e-6, atol=1e-6
+            )
+    assert np.max(np.abs(run.other_constraint_torque)) < 0.05  # the mimic coupling, small
     assert np.allclose(u_n, u / np.linalg.norm(u))
 
 
@@ -265,9 +295,10 @@ def test_object_world_bookkeeping_with_a_mimic_joint_and_a_change():
 # A seeded subset of runs (short variant) through the whole validation
 # ---------------------------------------------------------------------------------------------
 
+
 @pytest.fixture(scope="module")
 def subset(request):
-    cache = request.config.cache.mkdir("validation_runs")   # simulations kept between sessions
+    cache = request.config.cache.mkdir("validation_runs")  # simulations kept between sessions
     return evaluate_runs(SUBSET, cache, jobs=2, short=True)
 
 
@@ -319,7 +350,9 @@ def test_subset_estimator_today(subset):
     # more honest than the naive RLS: for every parameter the truth lies inside +/- 3 std of
     # its converged samples more often (issue target >= 95 %), today
     for i in range(4):
-        share = {m: sum(ep[m]["inside3"][i] for ep in eps)
-                 / max(1, sum(ep[m]["converged_samples"][i] for ep in eps))
-                 for m in ("estimator", "rls")}
+        share = {
+            m: sum(ep[m]["inside3"][i] for ep in eps)
+            / max(1, sum(ep[m]["converged_samples"][i] for ep in eps))
+            for m in ("estimator", "rls")
+        }
         assert share["estimator"] >= share["rls"], i

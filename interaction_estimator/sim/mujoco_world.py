@@ -41,9 +41,9 @@ from __future__ import annotations
 import copy
 import math
 import xml.etree.ElementTree as ET
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Callable, Sequence
 
 import mujoco
 import numpy as np
@@ -221,7 +221,8 @@ class _Robot:
             name = mujoco.mj_id2name(m, mujoco.mjtObj.mjOBJ_JOINT, j)
             if name == _OBJECT_JOINT:
                 continue
-            if int(m.jnt_type[j]) not in (int(mujoco.mjtJoint.mjJNT_HINGE), int(mujoco.mjtJoint.mjJNT_SLIDE)):
+            if int(m.jnt_type[j]) not in (int(mujoco.mjtJoint.mjJNT_HINGE),
+                                          int(mujoco.mjtJoint.mjJNT_SLIDE)):
                 raise ValueError(f"joint {name}: only revolute/continuous/prismatic supported")
             names.append(name)
             qadr.append(m.jnt_qposadr[j])
@@ -463,9 +464,9 @@ def run_attached_object(urdf_path: str | Path, mass: float, damping: float, stif
     """Simulate the robot moving an object along ``direction`` (world unit vector).
 
     The object is a point mass ``mass`` (kg) on a slide joint along ``direction`` through the
-    contact point's position at the moment of attachment (``truth["attach_point"]``), with MuJoCo's joint spring (``stiffness``, N/m, rest at the
-    attach point) and damper (``damping``, N s/m), and a constant resisting force
-    ``static_force`` (N, ``qfrc_applied = -static_force`` on the slide, from attachment on).
+    contact point's position at the moment of attachment (``truth["attach_point"]``), with
+    MuJoCo's joint spring (``stiffness``, N/m, rest at the attach point) and damper
+    (``damping``, N s/m), and a constant resisting force ``static_force`` (N, ``qfrc_applied = -static_force`` on the slide, from attachment on).
     With ``gravity_on_object`` gravity acts on the object too (a lifted payload: the robot then
     carries ``mass * 9.80665 * u_z`` more along u); otherwise the object's weight is
     compensated (``gravcomp = 1``). Thus, along u, the robot applies
@@ -614,7 +615,8 @@ def run_attached_object(urdf_path: str | Path, mass: float, damping: float, stif
         f_robot = np.zeros(3)
         if attached:
             if rows is None or len(rows) != 3:
-                rows = np.flatnonzero((d.efc_type[:d.nefc] == int(mujoco.mjtConstraint.mjCNSTR_EQUALITY))
+                equality = int(mujoco.mjtConstraint.mjCNSTR_EQUALITY)
+                rows = np.flatnonzero((d.efc_type[:d.nefc] == equality)
                                       & (d.efc_id[:d.nefc] == eq))
             f_robot = d.efc_force[rows].copy()
             if len(rows) != 3:
@@ -807,7 +809,7 @@ class MultiSine(Motion):
         w, wd, wdd = self.window(tau)
         return w * s, wd * s + w * sd, wdd * s + 2 * wd * sd + w * sdd
 
-    def scaled(self, factor: float) -> "MultiSine":
+    def scaled(self, factor: float) -> MultiSine:
         out = copy.copy(self)
         out.a = self.a * factor
         return out
@@ -838,7 +840,7 @@ class Push(Motion):
             a -= self.speed * dnd / r
         return x, v, a
 
-    def scaled(self, factor: float) -> "Push":
+    def scaled(self, factor: float) -> Push:
         out = copy.copy(self)
         out.speed = self.speed * factor
         return out
@@ -862,7 +864,7 @@ class Steps(Motion):
             a += dx * sdd / dur**2
         return x, v, a
 
-    def scaled(self, factor: float) -> "Steps":
+    def scaled(self, factor: float) -> Steps:
         out = copy.copy(self)
         out.moves = self.moves * factor
         return out
@@ -877,7 +879,7 @@ class Hold(Motion):
     def __call__(self, tau):
         return 0.0, 0.0, 0.0
 
-    def scaled(self, factor: float) -> "Hold":
+    def scaled(self, factor: float) -> Hold:
         return self
 
 

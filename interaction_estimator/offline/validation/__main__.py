@@ -7,6 +7,7 @@ Examples::
     python -m interaction_estimator.offline.validation --seeds 3,17,40-49 --episodes
     python -m interaction_estimator.offline.validation --robots panda,ur5 --runs 50
 """
+
 from __future__ import annotations
 
 import argparse
@@ -47,24 +48,43 @@ def main(argv=None) -> int:
     from .scenarios import default_cache_dir
     from .table import build_table, render
 
-    ap = argparse.ArgumentParser(prog="python -m interaction_estimator.offline.validation",
-                                 description="Monte-Carlo validation of the object estimates "
-                                             "(issue 17): seeded MuJoCo runs, scored against "
-                                             "the truth, a batch least-squares fit and a naive "
-                                             "recursive least squares.")
-    ap.add_argument("--runs", type=int, default=200,
-                    help="number of runs, seeds first-seed .. first-seed + runs - 1 (200)")
+    ap = argparse.ArgumentParser(
+        prog="python -m interaction_estimator.offline.validation",
+        description="Monte-Carlo validation of the object estimates "
+        "(issue 17): seeded MuJoCo runs, scored against "
+        "the truth, a batch least-squares fit and a naive "
+        "recursive least squares.",
+    )
+    ap.add_argument(
+        "--runs",
+        type=int,
+        default=200,
+        help="number of runs, seeds first-seed .. first-seed + runs - 1 (200)",
+    )
     ap.add_argument("--first-seed", type=int, default=0, help="first seed (0)")
-    ap.add_argument("--seeds", type=parse_seeds, default=None,
-                    help="explicit seeds instead, e.g. 3,17,40-49")
-    ap.add_argument("--robots", default="",
-                    help=f"keep only runs on these robots (comma-separated: {', '.join(ROBOT_NAMES)})")
+    ap.add_argument(
+        "--seeds", type=parse_seeds, default=None, help="explicit seeds instead, e.g. 3,17,40-49"
+    )
+    ap.add_argument(
+        "--robots",
+        default="",
+        help=f"keep only runs on these robots (comma-separated: {', '.join(ROBOT_NAMES)})",
+    )
     ap.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (2)")
-    ap.add_argument("--cache", type=Path, default=None,
-                    help=f"simulation cache folder (default {default_cache_dir()})")
-    ap.add_argument("--no-cache", action="store_true", help="simulate every run afresh, store nothing")
-    ap.add_argument("--short", action="store_true",
-                    help="the short variant of each run (contacts 0.45 x as long; the test suite's subset)")
+    ap.add_argument(
+        "--cache",
+        type=Path,
+        default=None,
+        help=f"simulation cache folder (default {default_cache_dir()})",
+    )
+    ap.add_argument(
+        "--no-cache", action="store_true", help="simulate every run afresh, store nothing"
+    )
+    ap.add_argument(
+        "--short",
+        action="store_true",
+        help="the short variant of each run (contacts 0.45 x as long; the test suite's subset)",
+    )
     ap.add_argument("--episodes", action="store_true", help="also print one line per episode")
     ap.add_argument("--json", type=Path, default=None, help="write every run's scores to this file")
     args = ap.parse_args(argv)
@@ -85,15 +105,21 @@ def main(argv=None) -> int:
 
     def progress(done, total, result):
         if sys.stderr.isatty() or done % 10 == 0 or done == total:
-            print(f"\r{done}/{total} runs, {time.perf_counter() - t0:.0f} s", end="",
-                  file=sys.stderr, flush=True)
+            print(
+                f"\r{done}/{total} runs, {time.perf_counter() - t0:.0f} s",
+                end="",
+                file=sys.stderr,
+                flush=True,
+            )
 
     results = evaluate_runs(seeds, cache, jobs=args.jobs, progress=progress, short=args.short)
     wall = time.perf_counter() - t0
     print(file=sys.stderr)
     lines, figures = build_table(results)
-    print(f"Monte-Carlo validation: {len(seeds)} runs (seeds {seeds[0]}..{seeds[-1]}), "
-          f"{args.jobs} processes, {wall:.0f} s wall")
+    print(
+        f"Monte-Carlo validation: {len(seeds)} runs (seeds {seeds[0]}..{seeds[-1]}), "
+        f"{args.jobs} processes, {wall:.0f} s wall"
+    )
     print(render(lines))
     print(LEGEND)
     sim = sum(r.get("time_simulation", 0.0) for r in results)
@@ -103,8 +129,10 @@ def main(argv=None) -> int:
         print()
         print(episode_lines(results))
     if args.json:
-        args.json.write_text(json.dumps({"figures": figures, "runs": results}, indent=1,
-                                        default=str), encoding="utf-8")
+        args.json.write_text(
+            json.dumps({"figures": figures, "runs": results}, indent=1, default=str),
+            encoding="utf-8",
+        )
     return 0
 
 
@@ -121,8 +149,10 @@ Definitions: interaction_estimator/offline/validation/scoring.py."""
 
 def episode_lines(results) -> str:
     """One line per episode: what it was and how each method did (errors in % of d)."""
-    out = ["seed robot rate motion change ep kind excited(m,d,k,f) | estimator err % | "
-           "conv end | t_conv | batch err % | rls err %"]
+    out = [
+        "seed robot rate motion change ep kind excited(m,d,k,f) | estimator err % | "
+        "conv end | t_conv | batch err % | rls err %"
+    ]
     for r in results:
         if "error" in r:
             out.append(f"{r['seed']} FAILED: {r['error']}")
@@ -131,10 +161,12 @@ def episode_lines(results) -> str:
             ex = "".join("x" if e else "." for e in ep["excited"])
             fmt = lambda v: " ".join("inf" if x == float("inf") else f"{100 * x:.1f}" for x in v)  # noqa: E731
             e = ep["estimator"]
-            out.append(f"{ep['seed']} {ep['robot']} {ep['rate']:g} {ep['motion']} {ep['change']} "
-                       f"{ep['episode']} {ep['kind']} {ex} | {fmt(e['error'])} | "
-                       f"{'yes' if e['converged_end'] else 'no'} | {e['time_to_convergence']:.2f} | "
-                       f"{fmt(ep['batch']['error'])} | {fmt(ep['rls']['error'])}")
+            out.append(
+                f"{ep['seed']} {ep['robot']} {ep['rate']:g} {ep['motion']} {ep['change']} "
+                f"{ep['episode']} {ep['kind']} {ex} | {fmt(e['error'])} | "
+                f"{'yes' if e['converged_end'] else 'no'} | {e['time_to_convergence']:.2f} | "
+                f"{fmt(ep['batch']['error'])} | {fmt(ep['rls']['error'])}"
+            )
     return "\n".join(out)
 
 

@@ -28,6 +28,7 @@ so a seed names the same run on every machine. What is drawn, and from what:
 The parameter file of a run is written by :func:`parameter_file` from the datasheet values and
 the run's set-up (rate, contact frame, direction) only: one rule for every run, never tuned.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -41,15 +42,15 @@ import numpy as np
 
 from .robots import ROBOT_NAMES, RobotEntry, robots
 
-VALIDATION_STREAM = 1717   # first word of every run's seed sequence
+VALIDATION_STREAM = 1717  # first word of every run's seed sequence
 RATES = (100.0, 200.0, 250.0, 500.0, 1000.0)
 MOTIONS = ("multisine", "sine", "push", "steps", "hold")
 MOTION_SHARE = (0.40, 0.10, 0.20, 0.15, 0.15)
 CHANGES = ("none", "step", "swap")
 CHANGE_SHARE = (0.70, 0.15, 0.15)
-SIM_DT = 1e-3          # s, MuJoCo step (the robot's own control loop)
-SWAP_FREE_TIME = 3.0   # s of free motion between two objects (longer than contact.forget_after)
-SHORT_FACTOR = 0.45    # contact durations of the short variant (the test suite's subset)
+SIM_DT = 1e-3  # s, MuJoCo step (the robot's own control loop)
+SWAP_FREE_TIME = 3.0  # s of free motion between two objects (longer than contact.forget_after)
+SHORT_FACTOR = 0.45  # contact durations of the short variant (the test suite's subset)
 ZERO_SHARE = 1.0 / 3.0
 
 
@@ -66,8 +67,8 @@ class RunSpec:
     gravity_on_object: bool
     motion: str
     change: str
-    objects: list            # [(start time s from run start, ObjectParams)], in order
-    phases: list             # FreePhase / ContactPhase for ObjectWorld.simulate
+    objects: list  # [(start time s from run start, ObjectParams)], in order
+    phases: list  # FreePhase / ContactPhase for ObjectWorld.simulate
     effort_noise: np.ndarray  # (n,) N·m, filled in when the robot's joints are known
     velocity_noise: np.ndarray
     bias: np.ndarray
@@ -77,14 +78,26 @@ class RunSpec:
 
     def summary(self) -> dict:
         return {
-            "seed": self.seed, "robot": self.robot, "short": self.short, "rate": self.rate,
+            "seed": self.seed,
+            "robot": self.robot,
+            "short": self.short,
+            "rate": self.rate,
             "direction": [round(float(x), 6) for x in self.direction],
-            "gravity_on_object": self.gravity_on_object, "motion": self.motion,
+            "gravity_on_object": self.gravity_on_object,
+            "motion": self.motion,
             "change": self.change,
-            "objects": [{"start": round(t, 6), "mass": p.mass, "damping": p.damping,
-                         "stiffness": p.stiffness, "static_force": p.static_force}
-                        for t, p in self.objects],
-            "noise": self.noise_draw, "drop_fraction": self.drop_fraction,
+            "objects": [
+                {
+                    "start": round(t, 6),
+                    "mass": p.mass,
+                    "damping": p.damping,
+                    "stiffness": p.stiffness,
+                    "static_force": p.static_force,
+                }
+                for t, p in self.objects
+            ],
+            "noise": self.noise_draw,
+            "drop_fraction": self.drop_fraction,
             "time_offset": self.time_offset,
         }
 
@@ -96,24 +109,34 @@ def _loguniform(rng, lo, hi):
 def draw_object(rng, lifted: bool):
     """An object from the issue's ranges; exact zeros in about a third of the draws."""
     from ...sim.mujoco_world import ObjectParams
+
     mass = _loguniform(rng, 0.3, 5.0 if lifted else 30.0)
     damping = 0.0 if rng.random() < ZERO_SHARE else _loguniform(rng, 1.0, 100.0)
     stiffness = 0.0 if rng.random() < ZERO_SHARE else _loguniform(rng, 5.0, 2000.0)
-    static = (0.0 if rng.random() < ZERO_SHARE
-              else float(rng.choice([-1.0, 1.0]) * rng.uniform(1.0, 40.0)))
+    static = (
+        0.0
+        if rng.random() < ZERO_SHARE
+        else float(rng.choice([-1.0, 1.0]) * rng.uniform(1.0, 40.0))
+    )
     return ObjectParams(mass, damping, stiffness, static)
 
 
 def _changed_enough(old, new) -> bool:
-    pairs = ((old.mass, new.mass), (old.damping, new.damping), (old.stiffness, new.stiffness),
-             (old.static_force, new.static_force))
-    return any(abs(b - a) >= 0.3 * max(abs(a), abs(b)) and max(abs(a), abs(b)) > 0
-               for a, b in pairs)
+    pairs = (
+        (old.mass, new.mass),
+        (old.damping, new.damping),
+        (old.stiffness, new.stiffness),
+        (old.static_force, new.static_force),
+    )
+    return any(
+        abs(b - a) >= 0.3 * max(abs(a), abs(b)) and max(abs(a), abs(b)) > 0 for a, b in pairs
+    )
 
 
 def draw_motion(rng, kind: str, duration: float):
     """A motion of ``kind`` lasting ``duration`` s (starts and ends at rest)."""
     from ...sim import mujoco_world as mw
+
     hold = rng.uniform(0.3, 1.0)
     ramp = 0.5
     if kind in ("multisine", "sine"):
@@ -126,7 +149,7 @@ def draw_motion(rng, kind: str, duration: float):
         return mw.MultiSine(amps, freqs, rng.uniform(0, 2 * np.pi, k), hold, ramp, duration)
     if kind == "push":
         speed = rng.uniform(0.01, 0.05) * rng.choice([-1.0, 1.0])
-        speed = math.copysign(min(abs(speed), 0.15 / duration), speed)   # <= 15 cm of travel
+        speed = math.copysign(min(abs(speed), 0.15 / duration), speed)  # <= 15 cm of travel
         return mw.Push(speed, hold, ramp, duration)
     if kind == "steps":
         # out to +/- 2-6 cm, back to 0, out to the other side, ...; each move a quintic of
@@ -159,6 +182,7 @@ def make_spec(seed: int, short: bool = False) -> RunSpec:
     """The run a seed names (without simulating it). ``short``: the same draws with every
     contact SHORT_FACTOR as long (for the test suite's subset)."""
     from ...sim import mujoco_world as mw
+
     rng = np.random.default_rng([VALIDATION_STREAM, int(seed)])
     robot = ROBOT_NAMES[int(seed) % len(ROBOT_NAMES)]
     entry = robots()[robot]
@@ -195,28 +219,44 @@ def make_spec(seed: int, short: bool = False) -> RunSpec:
     for i, (T, objs) in enumerate(contacts):
         if i:
             phases.append(mw.FreePhase(SWAP_FREE_TIME, seed=int(rng.integers(1 << 30))))
-        phases.append(mw.ContactPhase(T, draw_motion(rng, motion_kind, T),
-                                      tuple((t, o) for t, o in objs)))
+        phases.append(
+            mw.ContactPhase(T, draw_motion(rng, motion_kind, T), tuple((t, o) for t, o in objs))
+        )
     n = movable_joint_count(entry.urdf_text())
     sheet = entry.sensors
     e_sd = _loguniform(rng, *sheet.effort_noise)
     v_sd = _loguniform(rng, *sheet.velocity_noise)
     spec = RunSpec(
-        seed=int(seed), robot=robot, short=bool(short), rate=rate, direction=u, q0=q0, gravity_on_object=lifted,
-        motion=motion_kind, change=change, objects=objects, phases=phases,
+        seed=int(seed),
+        robot=robot,
+        short=bool(short),
+        rate=rate,
+        direction=u,
+        q0=q0,
+        gravity_on_object=lifted,
+        motion=motion_kind,
+        change=change,
+        objects=objects,
+        phases=phases,
         effort_noise=e_sd * rng.uniform(0.7, 1.3, n),
         velocity_noise=v_sd * rng.uniform(0.7, 1.3, n),
         bias=rng.uniform(-sheet.bias_max, sheet.bias_max, n),
-        noise_draw={"effort_noise": round(e_sd, 6), "velocity_noise": round(v_sd, 7),
-                    "encoder_bits": sheet.encoder_bits, "bias_max": sheet.bias_max},
+        noise_draw={
+            "effort_noise": round(e_sd, 6),
+            "velocity_noise": round(v_sd, 7),
+            "encoder_bits": sheet.encoder_bits,
+            "bias_max": sheet.bias_max,
+        },
         drop_fraction=0.01 if rng.random() < 1.0 / 3.0 else 0.0,
-        time_offset=float(1.7e9 + rng.uniform(0.0, 1e6)) if rng.random() < 0.5 else 0.0)
+        time_offset=float(1.7e9 + rng.uniform(0.0, 1e6)) if rng.random() < 0.5 else 0.0,
+    )
     return spec
 
 
 def movable_joint_count(urdf_text: str) -> int:
     """Joints a JointState of this URDF carries (every top-level joint that is not fixed)."""
     import xml.etree.ElementTree as ET
+
     return sum(1 for j in ET.fromstring(urdf_text).findall("joint") if j.get("type") != "fixed")
 
 
@@ -225,6 +265,7 @@ def build_phases(spec: RunSpec, world) -> list:
     where the object's peak force (sum of the peaks of its terms) would exceed the force the
     robot's URDF effort limits allow along u at its posture (ObjectWorld.force_budget)."""
     from ...sim import mujoco_world as mw
+
     budget = world.force_budget()
     out = []
     for ph in spec.phases:
@@ -234,8 +275,9 @@ def build_phases(spec: RunSpec, world) -> list:
             static = max(abs(world.static_total(o)) for o in objs)
             if peak > budget and peak > static:
                 room = max(budget - static, 0.25 * budget)
-                ph = mw.ContactPhase(ph.duration, ph.motion.scaled(min(1.0, room / (peak - static))),
-                                     ph.objects)
+                ph = mw.ContactPhase(
+                    ph.duration, ph.motion.scaled(min(1.0, room / (peak - static))), ph.objects
+                )
         out.append(ph)
     return out
 
@@ -254,20 +296,25 @@ def parameter_file(spec: RunSpec, entry: RobotEntry) -> str:
         "contact_frame": entry.contact_frame,
         "effort_side": "link",
         "direction": {"mode": "world", "vector": [float(x) for x in spec.direction]},
-        "observer": {"effort_noise": float(sheet.effort_noise[1]),
-                     "velocity_noise": float(sheet.velocity_noise[1]),
-                     "max_gap": max(0.05, 5.0 / spec.rate)},
+        "observer": {
+            "effort_noise": float(sheet.effort_noise[1]),
+            "velocity_noise": float(sheet.velocity_noise[1]),
+            "max_gap": max(0.05, 5.0 / spec.rate),
+        },
         "health": {"min_rate": 0.8 * spec.rate},
         "input": {"expected_rate": spec.rate},
     }
     import yaml
-    return yaml.safe_dump({"/**/interaction_estimator": {"ros__parameters": values}},
-                          sort_keys=False)
+
+    return yaml.safe_dump(
+        {"/**/interaction_estimator": {"ros__parameters": values}}, sort_keys=False
+    )
 
 
 # --------------------------------------------------------------------------------------------
 # Simulation, corruption, cache
 # --------------------------------------------------------------------------------------------
+
 
 def _sources_digest() -> str:
     """Digest of what a cached simulation depends on: the world, this generator, the robot
@@ -276,6 +323,7 @@ def _sources_digest() -> str:
 
     from ...sim import mujoco_world
     from . import robots as robots_module
+
     h = hashlib.sha256()
     for mod in (mujoco_world, robots_module):
         h.update(Path(mod.__file__).read_bytes())
@@ -296,6 +344,7 @@ def simulate(spec: RunSpec, cache_dir: Path | None = None):
     """The clean ScheduledRun of ``spec``, from the cache when there (keyed by seed and the
     sources' digest), else simulated and stored."""
     from ...sim.mujoco_world import ObjectWorld, ScheduledRun
+
     path = None
     if cache_dir is not None:
         kind = "short" if spec.short else "run"
@@ -305,27 +354,47 @@ def simulate(spec: RunSpec, cache_dir: Path | None = None):
                 meta = json.loads(str(z["meta"]))
                 arrays = {k: z[k] for k in ScheduledRun.ARRAYS}
             arrays["attached"] = arrays["attached"].astype(bool)
-            return ScheduledRun(**arrays, joint_names=tuple(meta["joint_names"]),
-                                joint_kinds=tuple(meta["joint_kinds"]), rate=meta["rate"],
-                                dt=meta["dt"], urdf=robots()[spec.robot].urdf_text(),
-                                notes=meta["notes"])
+            return ScheduledRun(
+                **arrays,
+                joint_names=tuple(meta["joint_names"]),
+                joint_kinds=tuple(meta["joint_kinds"]),
+                rate=meta["rate"],
+                dt=meta["dt"],
+                urdf=robots()[spec.robot].urdf_text(),
+                notes=meta["notes"],
+            )
     entry = robots()[spec.robot]
-    world = ObjectWorld(entry.urdf_path, entry.contact_frame, spec.direction, q0=spec.q0,
-                        dt=SIM_DT, gravity_on_object=spec.gravity_on_object)
+    world = ObjectWorld(
+        entry.urdf_path,
+        entry.contact_frame,
+        spec.direction,
+        q0=spec.q0,
+        dt=SIM_DT,
+        gravity_on_object=spec.gravity_on_object,
+    )
     run = world.simulate(build_phases(spec, world), spec.rate)
     if run.position.shape[1] != len(spec.bias):
-        raise RuntimeError(f"{spec.robot}: MuJoCo has {run.position.shape[1]} joints, the URDF "
-                           f"{len(spec.bias)} movable ones")
+        raise RuntimeError(
+            f"{spec.robot}: MuJoCo has {run.position.shape[1]} joints, the URDF "
+            f"{len(spec.bias)} movable ones"
+        )
     if path is not None:
         path.parent.mkdir(parents=True, exist_ok=True)
-        meta = {"joint_names": list(run.joint_names), "joint_kinds": list(run.joint_kinds),
-                "rate": run.rate, "dt": run.dt, "notes": run.notes, "spec": spec.summary()}
+        meta = {
+            "joint_names": list(run.joint_names),
+            "joint_kinds": list(run.joint_kinds),
+            "rate": run.rate,
+            "dt": run.dt,
+            "notes": run.notes,
+            "spec": spec.summary(),
+        }
         buf = io.BytesIO()
-        np.savez_compressed(buf, meta=json.dumps(meta),
-                            **{k: getattr(run, k) for k in ScheduledRun.ARRAYS})
+        np.savez_compressed(
+            buf, meta=json.dumps(meta), **{k: getattr(run, k) for k in ScheduledRun.ARRAYS}
+        )
         tmp = path.with_suffix(".tmp")
         tmp.write_bytes(buf.getvalue())
-        tmp.replace(path)   # atomic: parallel workers never read half a file
+        tmp.replace(path)  # atomic: parallel workers never read half a file
     return run
 
 
@@ -357,5 +426,11 @@ def measure(run, spec: RunSpec) -> Measured:
     if spec.drop_fraction > 0:
         keep[20:] = rng.random(N - 20) >= spec.drop_fraction
     index = np.flatnonzero(keep)
-    return Measured(run.time[index] + spec.time_offset, tuple(run.joint_names), position[index],
-                    velocity[index], effort[index], index)
+    return Measured(
+        run.time[index] + spec.time_offset,
+        tuple(run.joint_names),
+        position[index],
+        velocity[index],
+        effort[index],
+        index,
+    )

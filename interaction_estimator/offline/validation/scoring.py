@@ -48,21 +48,22 @@ the object's true parameters theta (the static force including the object's weig
   Monte Carlo Methods in Statistical Mechanics, 1997). Only the standard deviations are public,
   so the NEES is taken with a diagonal covariance.
 """
+
 from __future__ import annotations
 
 import math
 
 import numpy as np
 
-EXCITED_STD = 0.02       # excited: the bound's std <= 2 % of max(|theta|, s)
+EXCITED_STD = 0.02  # excited: the bound's std <= 2 % of max(|theta|, s)
 IDENTIFIABLE_ERROR = 0.02  # identifiable: the force-limited fit errs <= 2 % of max(|theta|, s)
-FELT_SIGMAS = 20.0       # felt: peak force along u >= 20 sigma_f
-MIN_SNR = 10.0           # excited: unexplained RMS of a column >= 10 x its measurement noise
+FELT_SIGMAS = 20.0  # felt: peak force along u >= 20 sigma_f
+MIN_SNR = 10.0  # excited: unexplained RMS of a column >= 10 x its measurement noise
 DIFFERENTIATOR_SPAN = 0.1  # s, the reference differentiator for the noise of x''
-ROWS_BEFORE = 0.5        # s: filter rows this long before an attachment belong to its contact
-SCALE_SHARE = 0.05       # s: 5 % of the RMS force along u (issue 17)
+ROWS_BEFORE = 0.5  # s: filter rows this long before an attachment belong to its contact
+SCALE_SHARE = 0.05  # s: 5 % of the RMS force along u (issue 17)
 NEES_CONFIDENCE = 0.95
-LEVELS = 4               # OK, WARN, ERROR, STALE
+LEVELS = 4  # OK, WARN, ERROR, STALE
 
 
 def integrated_autocorrelation_time(x: np.ndarray, c: float = 5.0) -> float:
@@ -89,6 +90,7 @@ def nees_check(err: np.ndarray, std: np.ndarray, mask: np.ndarray) -> dict | Non
     """Normalized average NEES over the samples and parameters of ``mask`` (m, 4) and its
     chi-square interval (see the module docstring); None without any converged sample."""
     from scipy.stats import chi2
+
     rows = mask.any(axis=1)
     if not rows.any():
         return None
@@ -101,10 +103,11 @@ def nees_check(err: np.ndarray, std: np.ndarray, mask: np.ndarray) -> dict | Non
     tau = integrated_autocorrelation_time(np.minimum(per_sample / dof, 1e12))
     d_eff = max(total_dof / tau, 1e-3)
     alpha = 1.0 - NEES_CONFIDENCE
-    lo, hi = (float(chi2.ppf(alpha / 2, d_eff) / d_eff),
-              float(chi2.ppf(1 - alpha / 2, d_eff) / d_eff))
-    return {"value": value, "lo": lo, "hi": hi, "inside": bool(lo <= value <= hi),
-            "dof_eff": d_eff}
+    lo, hi = (
+        float(chi2.ppf(alpha / 2, d_eff) / d_eff),
+        float(chi2.ppf(1 - alpha / 2, d_eff) / d_eff),
+    )
+    return {"value": value, "lo": lo, "hi": hi, "inside": bool(lo <= value <= hi), "dof_eff": d_eff}
 
 
 def scales(f: np.ndarray, H: np.ndarray) -> np.ndarray:
@@ -126,21 +129,28 @@ def force_noise_along(jacobians: np.ndarray, effort_noise: np.ndarray, u: np.nda
     return math.sqrt(float(np.mean(var)))
 
 
-def kinematic_noise(jacobians: np.ndarray, velocity_noise: np.ndarray, encoder_step: float,
-                    angular: np.ndarray, u: np.ndarray, rate: float) -> np.ndarray:
+def kinematic_noise(
+    jacobians: np.ndarray,
+    velocity_noise: np.ndarray,
+    encoder_step: float,
+    angular: np.ndarray,
+    u: np.ndarray,
+    rate: float,
+) -> np.ndarray:
     """(4,) measurement noise of the regressor [x'' m/s^2, x' m/s, x m, 1]: velocity noise and
     quantization (step / sqrt(12) on angular joints) through J_p along u (RMS over the
     Jacobians), x'' as the least-squares slope of x' over DIFFERENTIATOR_SPAN s."""
-    lever = np.array([Jp.T @ u for Jp in jacobians])            # (K, n)
+    lever = np.array([Jp.T @ u for Jp in jacobians])  # (K, n)
     s_v = float(np.sqrt(np.mean(np.sum((lever * velocity_noise) ** 2, axis=1))))
     q = np.where(angular, encoder_step / math.sqrt(12.0), 0.0)
     s_x = float(np.sqrt(np.mean(np.sum((lever * q) ** 2, axis=1))))
-    s_a = s_v * math.sqrt(12.0 / (rate * DIFFERENTIATOR_SPAN ** 3))
+    s_a = s_v * math.sqrt(12.0 / (rate * DIFFERENTIATOR_SPAN**3))
     return np.array([s_a, s_v, s_x, 0.0])
 
 
-def excitation(H: np.ndarray, sigma_f: float, d: np.ndarray,
-               noise: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def excitation(
+    H: np.ndarray, sigma_f: float, d: np.ndarray, noise: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """(excited (4,) bool, bound std (4,)): sigma_f sqrt(diag((H^T H)^-1)) <= EXCITED_STD d,
     and (``noise``: the columns' measurement noise) the part of each column the others do not
     explain has an RMS of at least MIN_SNR times its noise."""
@@ -173,14 +183,21 @@ def time_to_convergence(t: np.ndarray, flag: np.ndarray, start: float) -> float:
     return float(t[first] - start)
 
 
-def method_scores(trace, idx: np.ndarray, t: np.ndarray, theta: np.ndarray, d: np.ndarray,
-                  excited: np.ndarray, start: float) -> dict:
+def method_scores(
+    trace,
+    idx: np.ndarray,
+    t: np.ndarray,
+    theta: np.ndarray,
+    d: np.ndarray,
+    excited: np.ndarray,
+    start: float,
+) -> dict:
     """Scores of one method over one episode's samples ``idx`` (indices into the trace)."""
     est = trace.theta[idx]
     std = trace.std[idx]
     conv = trace.converged[idx]
     allc = trace.all_converged[idx]
-    valid = np.isfinite(est).all(axis=1)    # a rejected sample has no estimate
+    valid = np.isfinite(est).all(axis=1)  # a rejected sample has no estimate
     end = est[valid][-1] if valid.any() else np.full(len(theta), np.inf)
     err = np.abs(end - theta) / d
     err = np.where(np.isfinite(err), err, np.inf)
@@ -205,6 +222,7 @@ def method_scores(trace, idx: np.ndarray, t: np.ndarray, theta: np.ndarray, d: n
 def score_episodes(run, measured, spec, trace, rls) -> list[dict]:
     """Every episode of a run, scored for the estimator, the batch fit and the naive RLS."""
     from .methods import batch_fit
+
     truth_episode = run.episode[measured.index]
     t = measured.time
     u = run.direction
@@ -221,31 +239,44 @@ def score_episodes(run, measured, spec, trace, rls) -> list[dict]:
         H = H_all[idx]
         s = scales(f_true, H)
         d = np.maximum(np.abs(theta), s)
-        jac_rows = np.flatnonzero((run.jacobian_index >= ridx[0]) & (run.jacobian_index <= ridx[-1]))
+        jac_rows = np.flatnonzero(
+            (run.jacobian_index >= ridx[0]) & (run.jacobian_index <= ridx[-1])
+        )
         if len(jac_rows) == 0:
             jac_rows = np.array([np.argmin(np.abs(run.jacobian_index - ridx[0]))])
         sigma_f = force_noise_along(run.jacobian[jac_rows], spec.effort_noise, u)
         angular = np.array([k != "prismatic" for k in run.joint_kinds])
         step = 2 * np.pi / 2 ** int(spec.noise_draw["encoder_bits"])
-        noise = kinematic_noise(run.jacobian[jac_rows], spec.velocity_noise, step, angular, u,
-                                spec.rate)
+        noise = kinematic_noise(
+            run.jacobian[jac_rows], spec.velocity_noise, step, angular, u, spec.rate
+        )
         excited, bound = excitation(H, sigma_f, d, noise)
         f_est = trace.force_along[idx]
         ok = np.isfinite(f_est)
-        oracle = (np.linalg.lstsq(H[ok], f_est[ok], rcond=None)[0] if ok.sum() > 4
-                  else np.full(4, np.inf))
+        oracle = (
+            np.linalg.lstsq(H[ok], f_est[ok], rcond=None)[0] if ok.sum() > 4 else np.full(4, np.inf)
+        )
         oracle_err = np.abs(oracle - theta) / d
         identifiable = excited & (oracle_err <= IDENTIFIABLE_ERROR)
         start = float(t[idx[0]])
         end_t = float(t[idx[-1]])
         previous = truth_episode[idx[0] - 1] if idx[0] > 0 else -1
-        kind = ("first" if ep == 0 else "after_step" if previous == ep - 1 else "after_swap")
+        kind = "first" if ep == 0 else "after_step" if previous == ep - 1 else "after_swap"
         rec: dict = {
-            "seed": spec.seed, "robot": spec.robot, "rate": spec.rate, "motion": spec.motion,
-            "change": spec.change, "episode": int(ep), "kind": kind,
-            "duration": end_t - start, "theta": theta.tolist(), "scale": s.tolist(),
-            "excited": excited.tolist(), "bound_std": (bound / d).tolist(),
-            "sigma_f": sigma_f, "oracle_error": oracle_err.tolist(),
+            "seed": spec.seed,
+            "robot": spec.robot,
+            "rate": spec.rate,
+            "motion": spec.motion,
+            "change": spec.change,
+            "episode": int(ep),
+            "kind": kind,
+            "duration": end_t - start,
+            "theta": theta.tolist(),
+            "scale": s.tolist(),
+            "excited": excited.tolist(),
+            "bound_std": (bound / d).tolist(),
+            "sigma_f": sigma_f,
+            "oracle_error": oracle_err.tolist(),
             "identifiable": identifiable.tolist(),
         }
         rec["estimator"] = method_scores(trace, idx, t[idx], theta, d, excited, start)
@@ -256,23 +287,27 @@ def score_episodes(run, measured, spec, trace, rls) -> list[dict]:
         first_row = start if kind == "after_step" else start - ROWS_BEFORE
         rows = (trace.rows_time >= first_row) & (trace.rows_time <= end_t)
         b_theta, b_std = batch_fit(trace.rows_h[rows], trace.rows_f[rows])
-        b_err = np.abs(b_theta - theta) / d    # NaN: no rows (the contact was not found)
-        rec["batch"] = {"error": b_err.tolist(),
-                        "rows": int(rows.sum()),
-                        "inside3": (np.abs(b_theta - theta) <= 3 * b_std).tolist()}
+        b_err = np.abs(b_theta - theta) / d  # NaN: no rows (the contact was not found)
+        rec["batch"] = {
+            "error": b_err.tolist(),
+            "rows": int(rows.sum()),
+            "inside3": (np.abs(b_theta - theta) <= 3 * b_std).tolist(),
+        }
         # the estimator's other figures
         peak = float(np.max(np.abs(f_true))) if len(f_true) else 0.0
-        rec["force_rmse"] = (float(np.sqrt(np.mean((f_est[ok] - f_true[ok]) ** 2)))
-                             if ok.any() else math.inf)
+        rec["force_rmse"] = (
+            float(np.sqrt(np.mean((f_est[ok] - f_true[ok]) ** 2))) if ok.any() else math.inf
+        )
         rec["force_peak"] = peak
         rec["felt"] = bool(peak >= FELT_SIGMAS * sigma_f)
-        rec["force_rms"] = float(np.sqrt(np.mean(f_true ** 2)))
+        rec["force_rms"] = float(np.sqrt(np.mean(f_true**2)))
         lv = trace.level[idx]
         rec["levels"] = [int(np.sum(lv == k)) for k in range(LEVELS)]
         rec["samples"] = int(len(idx))
         contact = trace.in_contact[idx]
-        rec["onset_delay"] = (float(t[idx[np.argmax(contact)]] - start) if contact.any()
-                              else math.inf)
+        rec["onset_delay"] = (
+            float(t[idx[np.argmax(contact)]] - start) if contact.any() else math.inf
+        )
         rec["contact_share"] = float(contact.mean())
         out.append(rec)
     return out
