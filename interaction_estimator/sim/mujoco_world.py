@@ -466,7 +466,8 @@ def run_attached_object(urdf_path: str | Path, mass: float, damping: float, stif
     The object is a point mass ``mass`` (kg) on a slide joint along ``direction`` through the
     contact point's position at the moment of attachment (``truth["attach_point"]``), with
     MuJoCo's joint spring (``stiffness``, N/m, rest at the attach point) and damper
-    (``damping``, N s/m), and a constant resisting force ``static_force`` (N, ``qfrc_applied = -static_force`` on the slide, from attachment on).
+    (``damping``, N s/m), and a constant resisting force ``static_force`` (N,
+    ``qfrc_applied = -static_force`` on the slide, from attachment on).
     With ``gravity_on_object`` gravity acts on the object too (a lifted payload: the robot then
     carries ``mass * 9.80665 * u_z`` more along u); otherwise the object's weight is
     compensated (``gravcomp = 1``). Thus, along u, the robot applies
