@@ -2,7 +2,8 @@
 
 Subcommands (each one an entry of :data:`COMMANDS`; a new one is one more entry):
 
-* ``run [--ros-args ...]``: the ROS 2 node (everything after ``run`` goes to it);
+* ``run [--managed] [--ros-args ...]``: the ROS 2 node (everything after ``run`` goes to it;
+  ``--managed``: a lifecycle node);
 * ``replay BAG [BAG ...] --out DIR``: offline estimates, summary and report from bags;
 * ``simulate SCENARIO --out BAG``: a built-in invented scenario written as a bag with its
   ground truth;
@@ -94,8 +95,8 @@ def _hertz(text: str) -> float:
 
 def _run_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("ros_args", nargs=argparse.REMAINDER,
-                   help="passed to the node, e.g. --ros-args --params-file FILE -r "
-                        "__ns:=/marten")
+                   help="passed to the node, e.g. --managed (a lifecycle node) --ros-args "
+                        "--params-file FILE -r __ns:=/marten")
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -241,7 +242,8 @@ def _simulate(args: argparse.Namespace) -> int:
 # --------------------------------------------------------------------------------------------
 
 COMMANDS: tuple[Command, ...] = (
-    Command("run", "run the ROS 2 node (arguments after 'run' go to it)", _run_arguments,
+    Command("run", "run the ROS 2 node (arguments after 'run' go to it; --managed: a "
+                   "lifecycle node)", _run_arguments,
             _run),
     Command("replay", "estimate offline from recorded bags: CSV, summary and report",
             _replay_arguments, _replay),

@@ -14,6 +14,8 @@ Arguments (all optional):
   robot_description  topic of the URDF, std_msgs/String, transient local (default:
                      robot_description)
   log_level          debug, info, warn, error (default: info)
+  managed            true: the node is a managed (lifecycle) node that waits, unconfigured,
+                     for a lifecycle manager's configure and activate (default: false)
 """
 PACKAGE = "interaction_estimator"
 EXECUTABLE = "estimator_node"
@@ -47,6 +49,9 @@ def generate_launch_description():
                               description="URDF topic (std_msgs/String, transient local)"),
         DeclareLaunchArgument("log_level", default_value="info",
                               description="Logging level: debug, info, warn or error"),
+        DeclareLaunchArgument("managed", default_value="false",
+                              description="true: a managed (lifecycle) node; false: starts "
+                                          "running at once"),
     ]
     remappings = [
         ("joint_states", LaunchConfiguration("joint_states")),
@@ -59,7 +64,9 @@ def generate_launch_description():
         name=NODE_NAME,
         namespace=LaunchConfiguration("namespace"),
         remappings=remappings,
-        arguments=["--ros-args", "--log-level", LaunchConfiguration("log_level")],
+        # one argument "--managed=true" or "--managed=false" (the node accepts both)
+        arguments=[["--managed=", LaunchConfiguration("managed")],
+                   "--ros-args", "--log-level", LaunchConfiguration("log_level")],
         output="screen",
         emulate_tty=True,
     )

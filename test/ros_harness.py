@@ -62,13 +62,16 @@ def local_env(domain: int) -> dict[str, str]:
 
 
 class NodeProcess:
-    """``python -m interaction_estimator.ros.node --ros-args ...`` with output in a log file."""
+    """``python -m interaction_estimator.ros.node [node_args] --ros-args ...`` with output in a
+    log file."""
 
-    def __init__(self, ros_args: list[str], domain: int, log_path: Path):
+    def __init__(self, ros_args: list[str], domain: int, log_path: Path,
+                 node_args: list[str] | None = None):
         self.log_path = log_path
         self._log = open(log_path, "wb")
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "interaction_estimator.ros.node", "--ros-args", *ros_args],
+            [sys.executable, "-m", "interaction_estimator.ros.node", *(node_args or []),
+             "--ros-args", *ros_args],
             env=local_env(domain), stdout=self._log, stderr=subprocess.STDOUT, cwd=REPO)
 
     def alive(self) -> bool:

@@ -162,3 +162,26 @@ def test_generate_launch_description_where_launch_ros_exists():
     from launch.actions import DeclareLaunchArgument
     args = [e.name for e in description.entities if isinstance(e, DeclareLaunchArgument)]
     assert "params_file" in args and "namespace" in args
+
+
+def test_managed_argument_reaches_the_node_as_a_flag_it_accepts(launch_tree):
+    """The launch argument ``managed`` becomes the node's ``--managed=<value>`` argument;
+    reference: the node's own argument reader (ros/node.py managed_flag), which the console
+    script estimator_node runs."""
+    fn = generate_function(launch_tree)
+    declared = {ast.literal_eval(c.args[0]): c for c in calls(fn, "DeclareLaunchArgument")}
+    default = next(k.value.value for k in declared["managed"].keywords
+                   if k.arg == "default_value")
+    assert default == "false"
+    common = next(n for n in ast.walk(fn) if isinstance(n, ast.Assign)
+                  and getattr(n.targets[0], "id", "") == "common")
+    arguments = next(k.value for k in common.value.keywords if k.arg == "arguments")
+    first = arguments.elts[0]   # ["--managed=", LaunchConfiguration("managed")]
+    assert ast.literal_eval(first.elts[0]) == "--managed="
+    assert ast.literal_eval(first.elts[1].args[0]) == "managed"
+    assert ast.literal_eval(arguments.elts[1]) == "--ros-args"  # before the ROS arguments
+    for value, managed in (("false", False), ("true", True), ("True", True)):
+        assert estimator_node.managed_flag([f"--managed={value}"]) == (managed, [])
+    assert estimator_node.managed_flag(["--managed"]) == (True, [])
+    assert estimator_node.managed_flag([]) == (False, [])
+    assert estimator_node.managed_flag(["--managed=maybe"]) == (None, ["--managed=maybe"])

@@ -11,8 +11,15 @@ remapping apply):
 - out ``~/wrench`` (geometry_msgs/WrenchStamped: force N and torque N·m the robot applies to the
   environment, world frame = URDF root unless ``output.frame_id``), ``~/environment``
   (std_msgs/Float64MultiArray: mass kg, damping N·s/m, stiffness N/m, static force N, then their
-  standard deviations), ``~/status`` (diagnostic_msgs/DiagnosticStatus) and ``/diagnostics``;
+  standard deviations), ``~/status`` (diagnostic_msgs/DiagnosticStatus), ``/diagnostics`` and
+  ``~/markers`` (visualization_msgs/MarkerArray for RViz, at the status rate while subscribed:
+  :mod:`.markers`);
 - services ``~/reset`` and ``~/calibrate_bias`` (std_srvs/Trigger).
+
+Two kinds of node, one behaviour: :class:`EstimatorNode` is set up and running from its start;
+:class:`ManagedEstimatorNode` (``--managed``) is a ROS 2 lifecycle node that a lifecycle manager
+configures, activates, deactivates and cleans up (see its docstring); its status then also
+reports ``unconfigured`` and ``inactive`` (the lifecycle state's label).
 
 States reported in the status besides the pipeline's (learning_bias, free_motion, in_contact,
 converged, contact_lost): ``waiting_for_model`` (WARN: no URDF yet), ``model_error`` (ERROR: the
@@ -26,7 +33,7 @@ the node's own work per message. A message that cannot be used is counted by rea
 reported (status key-values and a throttled warning); an exception while handling one is
 caught, counted and reported the same way. No non-finite number is ever published.
 
-Run: ``estimator_node --ros-args --params-file config/default.yaml -r __ns:=/arm``.
+Run: ``estimator_node [--managed] --ros-args --params-file config/default.yaml -r __ns:=/arm``.
 """
 from __future__ import annotations
 
@@ -46,6 +53,7 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
 from rcl_interfaces.msg import SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
+from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from rclpy.node import Node
 from rclpy.parameter import Parameter
 from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy
@@ -53,18 +61,29 @@ from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
+from builtin_interfaces.msg import Time as TimeMsg
+from visualization_msgs.msg import MarkerArray
 
 from ..core.compiled import CACHE_DIR
-from ..core.health import ERROR, STALE, WARN
+from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.health import ERROR, OK, STALE, WARN
 from ..core.model import ModelError
 from ..core.pipeline import Estimate, Pipeline
 from ..core.samples import RejectCounts, Sample, SampleRejected
-from ..core.settings import NODE_NAME, SPECS, Settings, SettingsError, unknown_name_message
+from ..core.settings import (
+    NODE_NAME,
+    SPEC_BY_NAME,
+    SPECS,
+    Settings,
+    SettingsError,
+    unknown_name_message,
+)
 from ..core.warmup import warm_up
 from ..io.description_file import resolve as resolve_description
 from ..io.effort_matching import EffortMatcher
 from . import parameters as node_params
 from .inputs import LatencyMeter, WarningThrottle
+from .markers import ContactPoint, MarkerBuilder, MarkerScene
 from .messages import (
     MODEL_ERROR,
     WAITING_FOR_INPUT,
@@ -94,12 +113,16 @@ ROBOT_DESCRIPTION_TOPIC = "robot_description"
 WRENCH_TOPIC = "~/wrench"
 ENVIRONMENT_TOPIC = "~/environment"
 STATUS_TOPIC = "~/status"
+MARKERS_TOPIC = "~/markers"
 DIAGNOSTICS_TOPIC = "/diagnostics"
 RESET_SERVICE = "~/reset"
 CALIBRATE_SERVICE = "~/calibrate_bias"
+# lifecycle states as the status reports them (the labels of lifecycle_msgs/State)
+UNCONFIGURED, INACTIVE, ACTIVE, FINALIZED = "unconfigured", "inactive", "active", "finalized"
 INPUT_TOPICS = (JOINT_STATES_TOPIC, JOINT_EFFORTS_TOPIC, ROBOT_DESCRIPTION_TOPIC)
-OUTPUT_TOPICS = (WRENCH_TOPIC, ENVIRONMENT_TOPIC, STATUS_TOPIC, DIAGNOSTICS_TOPIC)
+OUTPUT_TOPICS = (WRENCH_TOPIC, ENVIRONMENT_TOPIC, STATUS_TOPIC, DIAGNOSTICS_TOPIC, MARKERS_TOPIC)
 
+MARKERS_DEPTH = 5           # marker arrays kept (reliable): a viewer wants the latest
 OUTPUT_DEPTH = 100          # messages kept per output publisher (reliable): 0.1 s at 1 kHz
 WATCH_PERIOD_S = 0.25       # s, period of the check that reports waiting / stale states
 RATE_TOLERANCE = 0.2        # input rate "far" from input.expected_rate: off by more than 20 %
@@ -108,18 +131,22 @@ EFFORT_BUFFER = 100         # joint states (and effort messages) held for stamp 
 SPIN_TIMEOUT_S = 0.1        # s, executor wait per spin_once
 
 
-class EstimatorNode(Node):
-    """The estimator as a ROS 2 node. Raises SettingsError if its parameters are invalid."""
+class _Estimator:
+    """The estimator's node behaviour, shared by :class:`EstimatorNode` (a plain node: all of it
+    set up at construction) and :class:`ManagedEstimatorNode` (a lifecycle node: set up by its
+    transitions). Mixed into an rclpy Node class."""
 
-    def __init__(self, parameter_files: Sequence[str] = (), **node_kwargs: Any):
-        super().__init__(NODE_NAME, **node_kwargs)
-        self._parameter_files = tuple(parameter_files)  # robot_description_file is relative to
-        # the file that sets it
+    managed = False
+
+    # --- set-up in pieces (a plain node makes them all at once, a managed one per transition)
+    def _init_state(self, settings: Settings) -> None:
+        """Everything but the ROS entities; ``settings`` validated."""
         self._throttle = WarningThrottle(self.get_logger().warning)
-        self.settings = self._declare_settings()
+        self.settings = settings
         self.pipeline: Pipeline | None = None
         self._model_text: str | None = None
         self._model_error = ""
+        self._model_source = ""
         self._old_rejects: dict[str, int] = {}   # counts of pipelines replaced by a new model
         self._node_rejects = RejectCounts(counts={})
         self._reject_times: deque[float] = deque(maxlen=1000)   # monotonic s, node + pipeline
@@ -140,21 +167,51 @@ class EstimatorNode(Node):
         self._environment_encoder = EnvironmentEncoder()
         self._status_encoder = StatusEncoder()
         self._matcher: EffortMatcher[JointState, JointState] = EffortMatcher(
-            self.settings["input.stamp_tolerance"], EFFORT_BUFFER)
+            settings["input.stamp_tolerance"], EFFORT_BUFFER)
+        self._wrench_pub = self._environment_pub = self._markers_pub = None
+        self._states_sub = self._efforts_sub = self._description_sub = None
+        self._node_services: list = []
+        self._watch_timer = None
+        # markers: drawn only while someone subscribes (checked by the watch timer)
+        self._markers_wanted = False
+        self._markers_shown = False
+        self._contact_point: ContactPoint | None = None
+        self._last_sample: Sample | None = None
+        self._marker_scale = self._node_setting("output.marker_force_scale")
+        self._marker_builder: MarkerBuilder | None = None   # made for the current settings
+        self._declare_errors: dict[str, str] = {}
+        self._lifecycle = ACTIVE   # a plain node is always active; a managed one says
+        self._configure_error = ""
 
+    def _create_status_outputs(self) -> None:
+        """~/status and /diagnostics (published in every lifecycle state)."""
+        self._status_pub = self.create_publisher(DiagnosticStatus, STATUS_TOPIC,
+                                                 self._output_qos())
+        self._diagnostics_pub = self.create_publisher(DiagnosticArray, DIAGNOSTICS_TOPIC, 10)
+        self._diagnostics_timer = self.create_timer(
+            1.0 / self.settings["output.diagnostics_rate"], self._on_diagnostics)
+
+    @staticmethod
+    def _output_qos() -> QoSProfile:
+        return QoSProfile(depth=OUTPUT_DEPTH, history=HistoryPolicy.KEEP_LAST,
+                          reliability=ReliabilityPolicy.RELIABLE,
+                          durability=DurabilityPolicy.VOLATILE)
+
+    def _create_outputs(self) -> None:
+        """~/wrench, ~/environment and ~/markers (lifecycle publishers in a managed node)."""
+        make = self.create_lifecycle_publisher if self.managed else self.create_publisher
+        qos = self._output_qos()
+        self._wrench_pub = make(WrenchStamped, WRENCH_TOPIC, qos)
+        self._environment_pub = make(Float64MultiArray, ENVIRONMENT_TOPIC, qos)
+        self._markers_pub = make(MarkerArray, MARKERS_TOPIC, MARKERS_DEPTH)
+
+    def _create_inputs(self) -> None:
+        """The joint-state subscriptions (and the separate efforts')."""
         s = self.settings
         reliability = (ReliabilityPolicy.RELIABLE if s["input.reliability"] == "reliable"
                        else ReliabilityPolicy.BEST_EFFORT)
         input_qos = QoSProfile(depth=s["input.queue_depth"], history=HistoryPolicy.KEEP_LAST,
                                reliability=reliability, durability=DurabilityPolicy.VOLATILE)
-        output_qos = QoSProfile(depth=OUTPUT_DEPTH, history=HistoryPolicy.KEEP_LAST,
-                                reliability=ReliabilityPolicy.RELIABLE,
-                                durability=DurabilityPolicy.VOLATILE)
-        self._wrench_pub = self.create_publisher(WrenchStamped, WRENCH_TOPIC, output_qos)
-        self._environment_pub = self.create_publisher(Float64MultiArray, ENVIRONMENT_TOPIC,
-                                                      output_qos)
-        self._status_pub = self.create_publisher(DiagnosticStatus, STATUS_TOPIC, output_qos)
-        self._diagnostics_pub = self.create_publisher(DiagnosticArray, DIAGNOSTICS_TOPIC, 10)
         self._efforts_sub = None
         if not s["input.separate_efforts"]:  # the bytes received, read by JointStateReader
             self._states_sub = self.create_subscription(JointState, JOINT_STATES_TOPIC,
@@ -165,6 +222,17 @@ class EstimatorNode(Node):
                                                         self._on_joint_state, input_qos)
             self._efforts_sub = self.create_subscription(JointState, JOINT_EFFORTS_TOPIC,
                                                          self._on_efforts, input_qos)
+
+    def _destroy_inputs(self) -> None:
+        for sub in (self._states_sub, self._efforts_sub):
+            if sub is not None:
+                self.destroy_subscription(sub)
+        self._states_sub = self._efforts_sub = None
+        self._matcher.clear()
+
+    def _create_model_input(self) -> None:
+        """The robot_description subscription, unless robot_description_file names a file."""
+        s = self.settings
         self._description_sub = None
         self._model_source = s["robot_description_file"]
         if not self._model_source:
@@ -174,40 +242,67 @@ class EstimatorNode(Node):
             self._description_sub = self.create_subscription(
                 String, ROBOT_DESCRIPTION_TOPIC, self._on_description, description_qos)
             self._model_source = f"topic {self._description_sub.topic_name}"
-        self.create_service(Trigger, RESET_SERVICE, self._on_reset)
-        self.create_service(Trigger, CALIBRATE_SERVICE, self._on_calibrate)
-        self.create_timer(WATCH_PERIOD_S, self._on_watch)
-        self._diagnostics_timer = self.create_timer(1.0 / s["output.diagnostics_rate"],
-                                                    self._on_diagnostics)
-        self.add_pre_set_parameters_callback(self._normalize_parameters)
-        self.add_on_set_parameters_callback(self._on_set_parameters)
 
-        if s["robot_description_file"]:
-            self._load_file(s["robot_description_file"])
-        self._publish_idle()
+    def _create_services(self) -> None:
+        self._node_services = [self.create_service(Trigger, RESET_SERVICE, self._on_reset),
+                               self.create_service(Trigger, CALIBRATE_SERVICE,
+                                                   self._on_calibrate)]
 
-    # --- parameters ------------------------------------------------------------------------
-    def _declare_settings(self) -> Settings:
-        """Declare every setting as a parameter; return the validated settings."""
-        values: dict[str, Any] = {}
-        for spec in SPECS:
+    def _create_watch(self) -> None:
+        self._watch_timer = self.create_timer(WATCH_PERIOD_S, self._on_watch)
+
+    def _node_setting(self, name: str) -> Any:
+        """A node-only setting (node_params.NODE_SPECS) or, once the registry has it, the
+        registry's value."""
+        if name in SPEC_BY_NAME:
+            return self.settings[name]
+        return node_params.node_value(node_params.NODE_SPEC_BY_NAME[name],
+                                      self.get_parameter(name).value)
+
+
+    # --- parameters (both node kinds) -------------------------------------------------
+    def _declare_parameters(self) -> dict[str, str]:
+        """Declare every setting (and node-only setting) as a parameter. A value from a
+        parameter file that rclpy refuses (wrong type, out of the descriptor's range) leaves
+        the default declared; returns {name: why} for those, and for names no setting has
+        (key ``<unknown>``)."""
+        errors: dict[str, str] = {}
+        for spec in (*SPECS, *node_params.NODE_SPECS):
             try:
-                param = self.declare_parameter(spec.name, node_params.declared_default(spec),
-                                               node_params.descriptor(spec))
-            except Exception as exc:  # a parameter-file value of the wrong type
-                raise SettingsError(f"parameter {spec.name}: {exc}; expected "
-                                    f"{spec.range_text()}") from None
-            values[spec.name] = node_params.setting_value(param)
+                self.declare_parameter(spec.name, node_params.declared_default(spec),
+                                       node_params.descriptor(spec))
+            except Exception as exc:  # a parameter-file value of the wrong type or range
+                errors[spec.name] = (f"parameter {spec.name}: {exc}; expected "
+                                     f"{spec.range_text()}")
+                self.declare_parameter(spec.name, node_params.declared_default(spec),
+                                       node_params.descriptor(spec), ignore_override=True)
         # what the parameter files and -p set (rclpy keeps it; no public accessor exists)
         overrides = list(getattr(self, "_parameter_overrides", {}))
         unknown = node_params.unknown_overrides(overrides,
                                                 [n for n in overrides if self.has_parameter(n)])
         if unknown:
-            raise SettingsError("; ".join(unknown_name_message(n) for n in unknown))
-        settings = Settings(values)
-        # store floats and typed lists where a file wrote 9 for 9.0 or [] (not for read-only ones)
-        fixes = []
+            errors["<unknown>"] = "; ".join(unknown_name_message(n) for n in unknown)
+        return errors
+
+    def _read_settings(self) -> Settings:
+        """The settings the declared parameters hold, validated (raises SettingsError)."""
+        values: dict[str, Any] = {}
         for spec in SPECS:
+            try:
+                param = self.get_parameter(spec.name)
+            except ParameterUninitializedException:
+                param = Parameter(spec.name)
+            values[spec.name] = node_params.setting_value(param)
+        settings = Settings(values)
+        for spec in node_params.NODE_SPECS:
+            node_params.node_value(spec, self.get_parameter(spec.name).value)
+        return settings
+
+    def _normalize_declared(self) -> None:
+        """Store floats and typed lists where a file wrote 9 for 9.0 or [] (not for read-only
+        ones)."""
+        fixes = []
+        for spec in (*SPECS, *node_params.NODE_SPECS):
             try:
                 param = self.get_parameter(spec.name)
             except ParameterUninitializedException:
@@ -217,14 +312,23 @@ class EstimatorNode(Node):
                 fixes.append(fixed)
         if fixes:
             self.set_parameters(fixes)
-        return settings
 
     def _normalize_parameters(self, params: list[Parameter]) -> list[Parameter]:
         return [node_params.normalized(p) for p in params]
 
     def _on_set_parameters(self, params: list[Parameter]) -> SetParametersResult:
+        node_only = {}
+        for p in params:
+            spec = node_params.NODE_SPEC_BY_NAME.get(p.name)
+            if spec is not None:
+                try:
+                    node_only[p.name] = node_params.node_value(spec, p.value)
+                except SettingsError as exc:
+                    self.get_logger().warning(f"parameter change refused: {exc}")
+                    return SetParametersResult(successful=False, reason=str(exc))
         changes = node_params.changes_from(params)
         if not changes:
+            self._apply_node_only(node_only)
             return SetParametersResult(successful=True)
         try:
             new = self.settings.replace(changes)
@@ -241,6 +345,9 @@ class EstimatorNode(Node):
             self.get_logger().warning(f"parameter change refused: {reason}")
             return SetParametersResult(successful=False, reason=reason)
         old, self.settings = self.settings, new
+        self._apply_node_only(node_only)
+        for name in changes:
+            self._declare_errors.pop(name, None)
         self._matcher.tolerance_s = new["input.stamp_tolerance"]
         if new["output.diagnostics_rate"] != old["output.diagnostics_rate"]:
             self.destroy_timer(self._diagnostics_timer)
@@ -249,6 +356,16 @@ class EstimatorNode(Node):
         self.get_logger().info("parameters changed: " + ", ".join(
             f"{k}={v!r}" for k, v in sorted(changes.items())))
         return SetParametersResult(successful=True)
+
+    def _apply_node_only(self, values: dict[str, Any]) -> None:
+        for name in values:
+            self._declare_errors.pop(name, None)
+        if "output.marker_force_scale" in values:
+            self._marker_scale = values["output.marker_force_scale"]
+            self._marker_builder = None   # made again with the new scale
+        if values:
+            self.get_logger().info("parameters changed: " + ", ".join(
+                f"{k}={v!r}" for k, v in sorted(values.items())))
 
     # --- robot model -----------------------------------------------------------------------
     def _load_file(self, path: str) -> None:
@@ -280,6 +397,9 @@ class EstimatorNode(Node):
             self._set_model_error(f"robot description from {source} is unusable: {exc}")
             return
         self.pipeline, self._model_error = pipeline, ""
+        self._contact_point = ContactPoint(pipeline.model)
+        self._marker_builder = None
+        self._clear_markers()
         self._matcher.clear()
         self._node_reject_times.clear()  # rejects without a model are not this model's findings
         self._last_restarts = 0
@@ -295,6 +415,8 @@ class EstimatorNode(Node):
             for reason, n in self.pipeline.rejects.counts.items():
                 self._old_rejects[reason] = self._old_rejects.get(reason, 0) + n
         self.pipeline = None
+        self._contact_point = None
+        self._last_sample = None
 
     def _set_model_error(self, text: str) -> None:
         self._retire_pipeline()
@@ -433,9 +555,12 @@ class EstimatorNode(Node):
                 "or parameter; not published"))
         self._latency.add(time.perf_counter() - start)
         now = self._last_processed = time.monotonic()
+        self._last_sample = sample
         if self._status_due() if due is None else due:
             est = pipeline.estimate()
             self._publish(status_fields(est, self._figures(est), self._hardware_id()), now)
+            if self._markers_wanted and numbers is not None:
+                self._publish_markers(est, sample, sec, nanosec)
 
     # --- rejects and errors ----------------------------------------------------------------
     def _reject_node(self, exc: SampleRejected) -> None:
@@ -524,9 +649,29 @@ class EstimatorNode(Node):
             return self._model_error
         if self.pipeline is None:
             return f"waiting for the robot description on {self._model_source}"
-        return f"no usable joint state on {self._states_sub.topic_name}"
+        topic = (self._states_sub.topic_name if self._states_sub is not None
+                 else self.resolve_topic_name(JOINT_STATES_TOPIC))
+        return f"no usable joint state on {topic}"
+
+    def _lifecycle_state(self) -> tuple[str, int, str]:
+        """The status of a managed node that is not active: the lifecycle state's label."""
+        if self._lifecycle == UNCONFIGURED:
+            if self._configure_error:
+                return UNCONFIGURED, ERROR, self._configure_error
+            return UNCONFIGURED, WARN, ("not configured: waiting for the configure transition "
+                                        "(a lifecycle manager or the change_state service)")
+        if self._lifecycle == FINALIZED:
+            return FINALIZED, WARN, "shut down"
+        if self._model_error:
+            return INACTIVE, ERROR, self._model_error
+        model = ("model not yet received" if self.pipeline is None
+                 else f"model {self.pipeline.model.model.name!r} ready")
+        return INACTIVE, OK, (f"configured and inactive ({model}): no estimates until "
+                              "activated")
 
     def _idle_state(self) -> tuple[str, int, str]:
+        if self._lifecycle != ACTIVE:
+            return self._lifecycle_state()
         if self._model_error:
             return MODEL_ERROR, ERROR, self._model_error
         if self.pipeline is None:
@@ -554,9 +699,11 @@ class EstimatorNode(Node):
 
     def _on_watch(self) -> None:
         try:
+            self._check_marker_subscribers()
             now = time.monotonic()
             quiet = max(self.settings["health.stale_after"], WATCH_PERIOD_S)
             if self._last_processed is None or now - self._last_processed > quiet:
+                self._clear_markers()
                 self._publish_idle()
         except Exception as exc:
             self._internal_error(exc, "status check")
@@ -571,6 +718,38 @@ class EstimatorNode(Node):
             self._diagnostics_pub.publish(msg)
         except Exception as exc:
             self._internal_error(exc, "diagnostics publication")
+
+    # --- markers ---------------------------------------------------------------------------
+    def _publish_markers(self, est: Estimate, sample: Sample, sec: int, nanosec: int) -> None:
+        """~/markers for the estimate just published (at the status rate, while subscribed)."""
+        builder = self._marker_builder
+        if builder is None:
+            builder = self._marker_builder = MarkerBuilder(
+                self._marker_scale, self.settings["health.stale_after"],
+                self._environment_model())
+        scene = MarkerScene(
+            frame_id=self._frame_id(), stamp=TimeMsg(sec=sec, nanosec=nanosec),
+            contact_point=self._contact_point.position(sample), force=est.force,
+            direction=est.direction, parameters=est.parameters.tolist(),
+            parameter_std=est.parameter_std.tolist(), names=PARAMETER_NAMES,
+            units=PARAMETER_UNITS, state=est.state,
+            level=self._last_status.level if self._last_status is not None else est.level)
+        self._markers_pub.publish(builder.markers(scene))
+        self._markers_shown = True
+
+    def _environment_model(self) -> str:
+        return (self.settings["environment.model"] if "environment.model" in SPEC_BY_NAME
+                else "along_direction")
+
+    def _clear_markers(self) -> None:
+        """One DELETEALL when markers are shown (stale estimates, model replaced, deactivated)."""
+        if self._markers_shown and self._markers_pub is not None:
+            self._markers_pub.publish(MarkerBuilder.clear(self._frame_id()))
+            self._markers_shown = False
+
+    def _check_marker_subscribers(self) -> None:
+        self._markers_wanted = (self._markers_pub is not None
+                                and self._markers_pub.get_subscription_count() > 0)
 
     # --- services --------------------------------------------------------------------------
     def _on_reset(self, request: Trigger.Request, response: Trigger.Response):
@@ -599,6 +778,168 @@ class EstimatorNode(Node):
         return response
 
 
+class EstimatorNode(_Estimator, Node):
+    """The estimator as a ROS 2 node, set up and running from construction. Raises
+    SettingsError if its parameters are invalid."""
+
+    def __init__(self, parameter_files: Sequence[str] = (), **node_kwargs: Any):
+        Node.__init__(self, NODE_NAME, **node_kwargs)
+        # robot_description_file is relative to the file that sets it
+        self._parameter_files = tuple(parameter_files)
+        errors = self._declare_parameters()
+        if errors:
+            raise SettingsError("; ".join(errors.values()))
+        settings = self._read_settings()
+        self._normalize_declared()
+        self._init_state(settings)
+        self._create_status_outputs()
+        self._create_outputs()
+        self._create_inputs()
+        self._create_model_input()
+        self._create_services()
+        self._create_watch()
+        self.add_pre_set_parameters_callback(self._normalize_parameters)
+        self.add_on_set_parameters_callback(self._on_set_parameters)
+
+        if settings["robot_description_file"]:
+            self._load_file(settings["robot_description_file"])
+        self._publish_idle()
+
+
+class ManagedEstimatorNode(_Estimator, LifecycleNode):
+    """The estimator as a ROS 2 managed (lifecycle) node: a lifecycle manager, or the
+    ``change_state`` service, takes it through its states (ROS 2 design article "Managed
+    nodes"):
+
+    - constructed (unconfigured): parameters declared; ~/status and /diagnostics say
+      ``unconfigured``; nothing else exists;
+    - configure: the parameters are read and validated and the URDF is read (the
+      ``robot_description_file``, else the ``robot_description`` topic is subscribed and the
+      model is built when it arrives); the outputs, services and the watch are created. A
+      refused parameter or an unusable URDF file fails the transition (its result is FAILURE:
+      the node stays unconfigured), and the reason is logged and is the status message;
+    - activate: joint states are subscribed and the outputs publish;
+    - deactivate: joint states unsubscribed, outputs silent, markers cleared (the estimates
+      are kept; the observer restarts at the gap when activated again);
+    - cleanup: everything configure made is destroyed and the model freed;
+    - shutdown (from any state): the same, and the node is finalized.
+    """
+
+    managed = True
+
+    def __init__(self, parameter_files: Sequence[str] = (), **node_kwargs: Any):
+        LifecycleNode.__init__(self, NODE_NAME, **node_kwargs)
+        # robot_description_file is relative to the file that sets it
+        self._parameter_files = tuple(parameter_files)
+        errors = self._declare_parameters()
+        try:
+            settings = self._read_settings()
+            self._normalize_declared()
+        except SettingsError as exc:   # reported by configure, which refuses to go on
+            settings, errors = Settings(), {**errors, "<settings>": str(exc)}
+        self._init_state(settings)
+        self._declare_errors = errors
+        self._lifecycle = UNCONFIGURED
+        self._configure_error = ""
+        self._create_status_outputs()
+        self._create_watch()
+        self.add_pre_set_parameters_callback(self._normalize_parameters)
+        self.add_on_set_parameters_callback(self._on_set_parameters)
+        self._publish_idle()
+
+    # --- transitions (each returns SUCCESS, FAILURE or ERROR) ---------------------------
+    def on_configure(self, state: LifecycleState) -> TransitionCallbackReturn:
+        problems = [v for k, v in self._declare_errors.items() if k != "<settings>"]
+        try:
+            settings = self._read_settings()
+        except SettingsError as exc:
+            problems.append(str(exc))
+        if problems:
+            return self._configure_failed("invalid parameters: " + "; ".join(problems))
+        self.settings = settings
+        self._declare_errors.pop("<settings>", None)
+        self._matcher = EffortMatcher(settings["input.stamp_tolerance"], EFFORT_BUFFER)
+        self._marker_scale = self._node_setting("output.marker_force_scale")
+        self._marker_builder = None
+        path = settings["robot_description_file"]
+        if path:
+            self._load_file(path)
+            if self.pipeline is None:
+                error = self._model_error
+                self._model_error = ""
+                return self._configure_failed(error)
+        self._create_outputs()
+        self._create_model_input()
+        self._create_services()
+        self._configure_error = ""
+        self._lifecycle = INACTIVE
+        result = super().on_configure(state)
+        self.get_logger().info(f"configured (model from {self._model_source})")
+        self._publish_idle()
+        return result
+
+    def _configure_failed(self, why: str) -> TransitionCallbackReturn:
+        self._configure_error = f"configure failed: {why}"
+        self.get_logger().error(self._configure_error)
+        self._retire_pipeline()
+        self._publish_idle()
+        return TransitionCallbackReturn.FAILURE
+
+    def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        result = super().on_activate(state)   # enables the lifecycle publishers
+        self._create_inputs()
+        self._last_processed = None
+        self._lifecycle = ACTIVE
+        self.get_logger().info(f"active: reading {self._states_sub.topic_name}")
+        self._publish_idle()
+        return result
+
+    def on_deactivate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._destroy_inputs()
+        self._clear_markers()
+        self._lifecycle = INACTIVE
+        result = super().on_deactivate(state)   # silences the lifecycle publishers
+        self.get_logger().info("inactive: joint states no longer read, outputs silent")
+        self._publish_idle()
+        return result
+
+    def on_cleanup(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._tear_down()
+        self.get_logger().info("cleaned up: model freed")
+        self._publish_idle()
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_shutdown(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._tear_down()
+        self._lifecycle = FINALIZED
+        self._publish_idle()
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_error(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._tear_down()
+        return TransitionCallbackReturn.SUCCESS   # back to unconfigured
+
+    def _tear_down(self) -> None:
+        """Destroy what configure and activate made; free the model."""
+        self._destroy_inputs()
+        self._clear_markers()   # from active (shutdown): its publisher is still enabled
+        for pub in (self._wrench_pub, self._environment_pub, self._markers_pub):
+            if pub is not None:
+                self.destroy_lifecycle_publisher(pub)
+        self._wrench_pub = self._environment_pub = self._markers_pub = None
+        self._markers_wanted = False
+        if self._description_sub is not None:
+            self.destroy_subscription(self._description_sub)
+            self._description_sub = None
+        for srv in self._node_services:
+            self.destroy_service(srv)
+        self._node_services = []
+        self._retire_pipeline()
+        self._model_text, self._model_error = None, ""
+        self._last_processed = None
+        self._lifecycle = UNCONFIGURED
+
+
 def make_executor():
     """rclpy's EventsExecutor where it exists, else the SingleThreadedExecutor."""
     try:
@@ -609,13 +950,36 @@ def make_executor():
         return SingleThreadedExecutor()
 
 
-USAGE = f"""usage: estimator_node [--ros-args [-p NAME:=VALUE] [--params-file FILE]
+USAGE = f"""usage: estimator_node [--managed] [--ros-args [-p NAME:=VALUE] [--params-file FILE]
                                  [-r FROM:=TO] ...]
 
 ROS 2 node '{NODE_NAME}': estimates the force a manipulator applies at its contact frame and the
 mass, damping, stiffness and static force of the object, from joint states alone.
+
+  --managed    run as a managed (lifecycle) node: it waits, unconfigured, for the configure
+               and activate transitions of a lifecycle manager or of the change_state
+               service (--managed=false: the plain node, the default)
+
 Parameters: see config/default.yaml (every one with unit, meaning and range).
 """
+
+
+def managed_flag(args: list[str]) -> tuple[bool | None, list[str]]:
+    """(--managed given as true/false, or None when absent; the other arguments). Accepts
+    ``--managed``, ``--managed=true`` and ``--managed=false`` (what the launch file passes);
+    returns (None, args) with the bad argument left in ``args`` for anything else."""
+    managed, rest = False, []
+    for a in args:
+        if a == "--managed":
+            managed = True
+        elif a.startswith("--managed="):
+            value = a.split("=", 1)[1].strip().lower()
+            if value not in ("true", "false"):
+                return None, [a]
+            managed = value == "true"
+        else:
+            rest.append(a)
+    return managed, rest
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -632,21 +996,31 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # rcl's parser refuses the arguments or a parameter file
         print(f"estimator_node: invalid ROS arguments: {exc}", file=sys.stderr)
         return 2
+    managed, rest = managed_flag(rest)
+    if managed is None:
+        print(f"estimator_node: {rest[0]!r} is not allowed; expected --managed, "
+              f"--managed=true or --managed=false\n\n{USAGE}", file=sys.stderr)
+        return 2
     if rest:
         if rest[0] in ("-h", "--help"):
             print(USAGE)
             return 0
-        print(f"estimator_node: unexpected arguments {rest}; expected ROS arguments after "
-              f"--ros-args\n\n{USAGE}", file=sys.stderr)
+        print(f"estimator_node: unexpected arguments {rest}; expected --managed and ROS "
+              f"arguments after --ros-args\n\n{USAGE}", file=sys.stderr)
         return 2
     rclpy.init(args=args)
     node = None
     try:
         try:
-            node = EstimatorNode(node_params.parameter_files(args))
+            files = node_params.parameter_files(args)
+            node = ManagedEstimatorNode(files) if managed else EstimatorNode(files)
         except SettingsError as exc:
             print(f"estimator_node: invalid parameters: {exc}", file=sys.stderr)
             return 2
+        except Exception:
+            if not rclpy.ok():   # SIGINT or SIGTERM while the node was being built: a stop
+                return 0
+            raise
         for path in node_params.parameter_files(args):
             warning = node_params.unmatched_file_warning(path, node.get_fully_qualified_name())
             if warning:

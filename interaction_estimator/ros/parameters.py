@@ -53,6 +53,32 @@ FOREIGN_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_se
 
 PER_JOINT_SETTINGS: tuple[str, ...] = tuple(s.name for s in SPECS if PER_JOINT in s.description)
 
+# Settings only the node uses (what it draws), declared as parameters beside the registry's.
+# They belong in the registry (core/settings.py SPECS) so that the replay and tune commands
+# accept a parameter file that sets them; until they are there, they are declared from here (a
+# name the registry has is skipped, so moving it there needs no change here).
+_NODE_ONLY = (
+    ParamSpec("output.marker_force_scale", "float", 0.01, "m/N",
+              "Length of the force arrow on ~/markers per newton of force.", 1e-5, 1.0),
+)
+NODE_SPECS: tuple[ParamSpec, ...] = tuple(s for s in _NODE_ONLY if s.name not in SPEC_BY_NAME)
+NODE_SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in NODE_SPECS}
+
+
+def node_value(spec: ParamSpec, value: Any) -> Any:
+    """Check a node-only setting's value (type and range) and return it normalized; raises
+    SettingsError naming the value and what is expected."""
+    if spec.kind == "float":
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise SettingsError(f"{spec.name}: {value!r} is not a number; expected "
+                                f"{spec.range_text()}")
+        x = float(value)
+        if not (spec.minimum <= x <= spec.maximum):
+            raise SettingsError(f"{spec.name}: {x!r} {spec.unit} is out of range; expected "
+                                f"{spec.range_text()}")
+        return x
+    raise AssertionError(f"node-only setting kind {spec.kind} not handled")  # a defect here
+
 
 def descriptor(spec: ParamSpec) -> ParameterDescriptor:
     """The ParameterDescriptor of one setting (description with unit and allowed values)."""
@@ -91,7 +117,7 @@ def normalized(param: Parameter) -> Parameter:
     for float lists; an empty/unset value -> STRING_ARRAY for string lists. Anything else is
     returned unchanged (and then refused by the validation, with the reason).
     """
-    spec = SPEC_BY_NAME.get(param.name)
+    spec = SPEC_BY_NAME.get(param.name) or NODE_SPEC_BY_NAME.get(param.name)
     if spec is None:
         return param
     t, v = param.type_, param.value
@@ -137,6 +163,7 @@ def unknown_overrides(names: Iterable[str], declared: Iterable[str]) -> list[str
     """Parameter-file names that are neither settings nor parameters rclpy declares itself."""
     known = set(declared)
     return sorted(n for n in names if n not in SPEC_BY_NAME and n not in known
+                  and n not in NODE_SPEC_BY_NAME
                   and not n.startswith(FOREIGN_PREFIXES))
 
 
@@ -199,4 +226,5 @@ def unmatched_file_warning(path: str, node_fqn: str) -> str:
 
 __all__ = ["parameter_files", "unreadable_file", "section_matches", "unmatched_file_warning",
            "descriptor", "declared_default", "normalized", "setting_value", "changes_from",
-           "check_fits_model", "unknown_overrides", "type_refusal", "PER_JOINT_SETTINGS"]
+           "check_fits_model", "unknown_overrides", "type_refusal", "PER_JOINT_SETTINGS",
+           "NODE_SPECS", "NODE_SPEC_BY_NAME", "node_value"]
