@@ -113,7 +113,8 @@ def _replay_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("bags", nargs="+", metavar="BAG", type=Path,
                    help="rosbag2 bag (directory, .mcap or .db3); several run in parallel")
     p.add_argument("--out", required=True, type=Path, metavar="DIR",
-                   help="output directory (one subdirectory per bag when several)")
+                   help="output directory, made with its missing parents (one subdirectory "
+                        "per bag when several)")
     p.add_argument("--params", type=Path, metavar="FILE",
                    help="ROS 2 parameter YAML of the node (the same file as on the robot)")
     p.add_argument("--urdf", type=Path, metavar="FILE",
@@ -127,6 +128,9 @@ def _replay_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--ignore-bag-settings", action="store_true",
                    help="do not apply the settings recommended in a simulated bag's ground "
                         "truth (only the defaults and --params)")
+    p.add_argument("--no-report", dest="report", action="store_false",
+                   help="write estimates.csv and summary.json only (no report.html): for "
+                        "batch runs")
     p.add_argument("--output-bag", action="store_true",
                    help="also write the estimates as the node's topics into DIR/estimates_bag")
     p.add_argument("--jobs", type=_positive_int, metavar="N",
@@ -142,7 +146,8 @@ def _replay(args: argparse.Namespace) -> int:
     from .offline.replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
     common = dict(params=args.params, urdf=args.urdf, topics=tuple(args.topics),
                   reference_topic=args.reference_topic, output_bag=args.output_bag,
-                  bag_settings=not args.ignore_bag_settings, file_format=args.file_format)
+                  bag_settings=not args.ignore_bag_settings, file_format=args.file_format,
+                  report=args.report)
     if len(args.bags) == 1:
         try:
             result = replay(ReplayRequest(args.bags[0], args.out, progress=args.progress,
@@ -150,7 +155,8 @@ def _replay(args: argparse.Namespace) -> int:
         except INPUT_ERRORS as exc:
             raise UsageError(str(exc)) from None
         print(format_summary(result.summary))
-        print(f"wrote {args.out}/estimates.{args.file_format}, summary.json, report.html"
+        print(f"wrote {args.out}/estimates.{args.file_format}, summary.json"
+              + (", report.html" if args.report else "")
               + (", estimates_bag" if args.output_bag else ""))
         return EXIT_OK
     names = subdir_names(args.bags)
@@ -267,23 +273,28 @@ def _excitation():
     return excitation
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(command: str | None = "*") -> argparse.ArgumentParser:
+    """The parser. ``command``: the subcommand whose arguments are added (None: none, for the
+    top-level help; ``"*"``: all). A subcommand's arguments may import what it needs (the
+    scenario names, the tuning module), so only the one being run pays for them."""
     parser = argparse.ArgumentParser(
         prog=PROG, description="Sensorless interaction-force and object-parameter estimation.")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for cmd in COMMANDS:
         p = sub.add_parser(cmd.name, help=cmd.help, description=cmd.help)
-        cmd.add_arguments(p)
+        if command in ("*", cmd.name):
+            cmd.add_arguments(p)
         p.set_defaults(_command=cmd)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
-    parser = build_parser()
     if argv and argv[0] == "run":  # everything after 'run' belongs to the node, unparsed
         args = argparse.Namespace(command="run", ros_args=argv[1:], _command=COMMANDS[0])
     else:
+        names = {c.name for c in COMMANDS}
+        parser = build_parser(argv[0] if argv and argv[0] in names else None)
         args = parser.parse_args(argv)
     try:
         return args._command.run(args)

@@ -89,7 +89,8 @@ class ReplayRequest:
     bag_settings: apply the settings recommended in the bag's ground truth (simulated bags)
     beneath the parameter file; bag_label: how the bag is named in the outputs (default: its
     path); file_format: of the estimates file, 'csv' (estimates.csv) or 'parquet'
-    (estimates.parquet, the same columns)."""
+    (estimates.parquet, the same columns); report: write report.html (False: the estimates
+    file and summary.json only, for batch runs)."""
 
     bag: Path
     out: Path
@@ -102,6 +103,7 @@ class ReplayRequest:
     bag_settings: bool = True
     bag_label: str | None = None
     file_format: str = "csv"
+    report: bool = True
 
 
 @dataclass
@@ -128,9 +130,12 @@ def check_output_dir(out: Path) -> None:
         if entries and not (out / "summary.json").exists() and not (out / "runs.json").exists():
             raise ReplayError(f"output directory {str(out)!r} exists and holds other files; "
                               "expected a new directory or an earlier replay's output")
-    if not out.parent.exists():
-        raise ReplayError(f"cannot write to {str(out)!r}: directory {str(out.parent)!r} does "
-                          "not exist")
+    ancestor = out.parent
+    while not ancestor.exists() and ancestor != ancestor.parent:
+        ancestor = ancestor.parent
+    if not ancestor.is_dir():
+        raise ReplayError(f"cannot write to {str(out)!r}: {str(ancestor)!r} is a file; expected "
+                          "a directory path")
 
 
 class StagedDir(Staged):
@@ -139,6 +144,13 @@ class StagedDir(Staged):
     there is replaced only then. Without a commit (an error), nothing is left."""
 
     def __init__(self, final: Path):
+        # missing parent folders are made (--out a/b/c), and removed again if nothing is
+        # committed into them
+        self._made: list[Path] = []
+        parent = final.parent
+        while not parent.exists():
+            self._made.append(parent)
+            parent = parent.parent
         final.parent.mkdir(parents=True, exist_ok=True)
         super().__init__(final)
         self.final = final
@@ -150,6 +162,11 @@ class StagedDir(Staged):
     def __exit__(self, *exc: Any) -> None:
         if not self.committed:
             self.discard()
+            for made in self._made:   # innermost first
+                try:
+                    made.rmdir()
+                except OSError:
+                    break
 
 
 # --------------------------------------------------------------------------------------------
@@ -393,7 +410,8 @@ def replay(req: ReplayRequest) -> ReplayResult:
         summary = summarize(cols, truth=truth.parameters if truth else None,
                             reference=reference, rejects=pipeline.rejects.counts,
                             samples_read=read, wall_time=wall, source=source)
-        write_outputs(stage.path, summary, table, reference, file_format=req.file_format)
+        write_outputs(stage.path, summary, table, reference, file_format=req.file_format,
+                      report=req.report)
         stage.commit()
     return ReplayResult(summary, cols, out)
 
@@ -401,15 +419,16 @@ def replay(req: ReplayRequest) -> ReplayResult:
 def write_outputs(directory: Path, summary: dict[str, Any],
                   estimates: EstimateTable | dict[str, np.ndarray],
                   reference: ForceReference | None, title: str | None = None,
-                  file_format: str = "csv") -> None:
-    """estimates.csv (or estimates.parquet), summary.json and report.html into ``directory``;
-    ``estimates``: the table (written from its own array) or its columns."""
-    from .report import write_report
+                  file_format: str = "csv", report: bool = True) -> None:
+    """estimates.csv (or estimates.parquet), summary.json and (``report``) report.html into
+    ``directory``; ``estimates``: the table (written from its own array) or its columns."""
     write_estimates(directory / FILE_NAMES[file_format], estimates, file_format)
-    cols = estimates.columns() if isinstance(estimates, EstimateTable) else estimates
     write_atomic(directory / "summary.json", json.dumps(summary, indent=2, allow_nan=False)
                  + "\n")
-    write_report(directory / "report.html", summary, cols, reference, title=title)
+    if report:
+        from .report import write_report   # imported on use: plotting costs time
+        cols = estimates.columns() if isinstance(estimates, EstimateTable) else estimates
+        write_report(directory / "report.html", summary, cols, reference, title=title)
 
 
 def _changed_settings(s: Settings) -> dict[str, Any]:
@@ -448,7 +467,7 @@ def replay_many(requests: list[ReplayRequest], out: Path, jobs: int,
     """Replay several bags in parallel processes into ``out/<bag>/``; returns the number of
     bags that failed (each failure is logged with its message)."""
     check_output_dir(out)
-    out.mkdir(exist_ok=True)
+    out.mkdir(parents=True, exist_ok=True)
     results: list[tuple[str, dict[str, Any] | None, str]]
     with ProcessPoolExecutor(max_workers=max(1, min(jobs, len(requests)))) as pool:
         results = list(pool.map(_replay_worker, requests))

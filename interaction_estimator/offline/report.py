@@ -8,19 +8,17 @@ the normalized innovation squared (NIS) average with its 95 % bounds.
 
 Every number in the tables comes from the summary dictionary that is also written as
 summary.json: each cell carries ``data-key`` (its dotted path in the summary) and ``data-value``
-(the exact JSON value), and shows the value rounded for reading. Plots are drawn with
-matplotlib's SVG backend; long runs are thinned (per span of samples the first one, the
-minimum and the maximum are kept) so that the file stays small, and the figure's caption then
-says so.
+(the exact JSON value), and shows the value rounded for reading. Plots are drawn as SVG by
+:mod:`.svgplot` (why not matplotlib: measured there); long runs are thinned (per span of
+samples the first one, the minimum and the maximum are kept) so that the file stays small, and
+the figure's caption then says so.
 """
 from __future__ import annotations
 
 import datetime as _dt
 import html
-import io
 import json
 import math
-import re
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -30,6 +28,7 @@ import numpy as np
 from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 from ..core.health import LEVEL_NAMES, STATES
 from ..io.estimates import ForceReference, match_reference
+from .svgplot import Chart
 
 # Our palette (hex): ink and paper, estimate, its band, the reference, the truth.
 INK = "#1d2731"
@@ -174,89 +173,67 @@ def thinning_note(n: int, tables: bool = True, points: int = _MAX_POINTS) -> str
             f"{points:,} points per line)." + (" The tables use every sample." if tables else ""))
 
 
-def _figure(rows: int, cols: int, height: float, bottom: float = 0.5, hspace: float = 0.45):
-    import matplotlib
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-    plt.rcParams.update({
-        "svg.fonttype": "none", "svg.hashsalt": "interaction-estimator",
-        "font.size": 9, "axes.edgecolor": "#8a949e", "axes.labelcolor": INK,
-        "xtick.color": INK, "ytick.color": INK, "axes.titlesize": 10,
-        "axes.titleweight": "bold", "axes.titlelocation": "left",
-        "axes.spines.top": False, "axes.spines.right": False,
-        "axes.grid": True, "grid.color": "#e3e0d8", "grid.linewidth": 0.6,
-        "legend.frameon": False, "figure.facecolor": PANEL, "axes.facecolor": PANEL,
-    })
-    fig, axes = plt.subplots(rows, cols, figsize=(9.6, height), squeeze=False)
-    # fixed margins (in inches, turned into fractions): much cheaper than an automatic layout
-    fig.subplots_adjust(left=0.75 / 9.6, right=1 - 0.2 / 9.6, bottom=bottom / height,
-                        top=1 - 0.35 / height, hspace=hspace, wspace=0.18)
-    return fig, axes
-
-
-def _svg(fig) -> str:
-    import matplotlib.pyplot as plt
-    buf = io.StringIO()
-    fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
-    plt.close(fig)
-    text = buf.getvalue()
-    text = text[text.index("<svg"):]  # drop the XML prolog and doctype: inline SVG in HTML
-    return re.sub(r"\s*<metadata>.*?</metadata>", "", text, count=1, flags=re.S)
+def _figure(rows: int, cols: int, height: float, bottom: float = 0.5, hspace: float = 0.45
+            ) -> Chart:
+    """A chart of rows x cols panels, 9.6 in wide and ``height`` in high (fixed margins in
+    inches), in the report's colours."""
+    return Chart(rows, cols, 9.6, height, left_in=0.75, right_in=0.2, bottom_in=bottom,
+                 top_in=0.35, hspace=hspace, wspace=0.18, ink=INK, grid="#e3e0d8",
+                 spine="#8a949e", background=PANEL)
 
 
 def force_figure(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
-    fig, axes = _figure(3, 1, 5.4)
+    chart = _figure(3, 1, 5.4)
     dt = float(np.median(np.diff(t))) if len(t) > 1 else 1.0
     width = max(1, int(round(SMOOTHING_WINDOW / dt))) if dt > 0 else 1
     for i, axis in enumerate("xyz"):
-        ax = axes[i, 0]
+        ax = chart.panels[i][0]
         raw = cols[f"force_{axis}"]
         et, ey = _thin(t - t0, raw)
-        ax.plot(et, ey, color=ESTIMATE, lw=0.6, alpha=0.3, label="estimate, each sample")
+        ax.line(et, ey, ESTIMATE, width=0.6, alpha=0.3, label="estimate, each sample")
         if width > 1 and len(raw) > width:
             mean = np.convolve(raw, np.ones(width) / width, mode="valid")
             mt, my = _thin(t[width - 1:] - t0, mean)
-            ax.plot(mt, my, color=ESTIMATE, lw=1.2,
+            ax.line(mt, my, ESTIMATE, width=1.2,
                     label=f"estimate, {SMOOTHING_WINDOW * 1e3:.0f} ms trailing mean")
         if ref is not None:
             rt, ry = _thin(ref.time - t0, ref.force[:, i])
-            ax.plot(rt, ry, color=REFERENCE, lw=1.5, label="reference", zorder=5)
-        ax.set_ylabel(f"force {axis} (N)")
+            ax.line(rt, ry, REFERENCE, width=1.5, label="reference")
+        ax.ylabel = f"force {axis} (N)"
         if i == 0:
-            ax.set_title("Force the robot applies, world frame")
-            ax.legend(loc="upper left", ncols=3)
-    axes[-1, 0].set_xlabel("time since first sample (s)")
-    return _svg(fig)
+            ax.title = "Force the robot applies, world frame"
+            ax.legend = {"where": "upper left", "columns": 3}
+    chart.panels[-1][0].xlabel = "time since first sample (s)"
+    return chart.svg()
 
 
 def parameter_figure(cols: Mapping[str, np.ndarray], summary: Mapping[str, Any]) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
-    fig, axes = _figure(2, 2, 5.6)
+    chart = _figure(2, 2, 5.6)
     for k, (p, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
-        ax = axes[k // 2, k % 2]
+        ax = chart.panels[k // 2][k % 2]
         value, std = cols[p], cols[f"{p}_std"]
         tt, v, s = _thin(t - t0, value, std)
-        ax.fill_between(tt, v - 2 * s, v + 2 * s, color=ESTIMATE, alpha=0.18, lw=0,
-                        label="\u00b12 std")
-        ax.plot(tt, v, color=ESTIMATE, lw=1.2, label="estimate")
+        ax.band(tt, v - 2 * s, v + 2 * s, ESTIMATE, 0.18, label="\u00b12 std")
+        ax.line(tt, v, ESTIMATE, width=1.2, label="estimate")
         truth = summary["parameters"][p]["truth"]
         if truth is not None:
-            ax.axhline(truth, color=TRUTH, lw=1.4, ls=(0, (5, 3)), label="truth")
+            ax.hline(truth, TRUTH, width=1.4, dash="5 3", label="truth")
         finite = v[np.isfinite(v)]
         if len(finite):  # keep the prior's wide band from flattening the estimate
             lo = min(float(np.min(finite)), truth if truth is not None else np.inf)
             hi = max(float(np.max(finite)), truth if truth is not None else -np.inf)
             pad = 0.25 * (hi - lo) + 0.05 * max(abs(hi), abs(lo), 1e-3)
-            ax.set_ylim(lo - pad, hi + pad)
-        ax.set_title(f"{PARAMETER_LABELS[p]} ({unit})")
+            ax.ylim = (lo - pad, hi + pad)
+        ax.title = f"{PARAMETER_LABELS[p]} ({unit})"
         if k == 0:
-            ax.legend(loc="upper left", ncols=3)
+            ax.legend = {"where": "upper left", "columns": 3}
         if k >= 2:
-            ax.set_xlabel("time since first sample (s)")
-    return _svg(fig)
+            ax.xlabel = "time since first sample (s)"
+    return chart.svg()
 
 
 def _runs(codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -278,8 +255,8 @@ def _level_names(level: np.ndarray) -> np.ndarray:
 def health_figure(cols: Mapping[str, np.ndarray]) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
-    fig, axes = _figure(1, 1, 2.1, bottom=0.95)
-    ax = axes[0, 0]
+    chart = _figure(1, 1, 2.1, bottom=0.95)
+    ax = chart.panels[0][0]
     end = np.append(t[1:], t[-1]) - t0 if len(t) else t
     states = np.asarray(cols["state"], dtype=object)
     seen_states, seen_levels = [], []
@@ -291,24 +268,21 @@ def health_figure(cols: Mapping[str, np.ndarray]) -> str:
         a, b = _runs(words)
         left = t[a] - t0
         runs = words[a].tolist()
-        # one collection of bars, in time order (a later bar is drawn over an earlier one
-        # where both fall on the same pixel)
-        ax.broken_barh(list(zip(left.tolist(), (end[b - 1] - left).tolist())), (y, 0.8),
-                       color=[colours.get(w, "#cccccc") for w in runs])
+        # one bar per run, in time order (a later bar is drawn over an earlier one where
+        # both fall on the same pixel)
+        ax.bars(left, end[b - 1] - left, y, 0.8, [colours.get(w, "#cccccc") for w in runs])
         seen += list(dict.fromkeys(runs))
-    ax.set_yticks([0.5, 1.5], ["level", "state"])
-    ax.set_ylim(0, 2)
-    ax.grid(False)
-    ax.set_xlabel("time since first sample (s)")
-    ax.set_title("Health timeline")
-    from matplotlib.patches import Patch
-    handles = [Patch(color=STATE_COLOURS.get(s, "#cccccc"), label=STATE_LABELS.get(s, s))
-               for s in STATES if s in seen_states]
-    handles += [Patch(color=LEVEL_COLOURS[lev], label=lev) for lev in LEVEL_NAMES.values()
-                if lev in seen_levels]
-    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55),
-              ncols=min(len(handles), 9), fontsize=8)
-    return _svg(fig)
+    ax.ylim = (0.0, 2.0)
+    ax.ytick_labels = ([0.5, 1.5], ["level", "state"])
+    ax.grid = False
+    ax.xlabel = "time since first sample (s)"
+    ax.title = "Health timeline"
+    ax.legend_items = [("patch", STATE_COLOURS.get(s, "#cccccc"), STATE_LABELS.get(s, s))
+                       for s in STATES if s in seen_states]
+    ax.legend_items += [("patch", LEVEL_COLOURS[lev], lev) for lev in LEVEL_NAMES.values()
+                        if lev in seen_levels]
+    ax.legend = {"where": "below", "columns": min(len(ax.legend_items), 9) or 1}
+    return chart.svg()
 
 
 def _nis_used(cols: Mapping[str, np.ndarray]) -> np.ndarray:
@@ -320,23 +294,22 @@ def _nis_used(cols: Mapping[str, np.ndarray]) -> np.ndarray:
 def nis_figure(cols: Mapping[str, np.ndarray]) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
-    fig, axes = _figure(1, 1, 2.6)
-    ax = axes[0, 0]
+    chart = _figure(1, 1, 2.6)
+    ax = chart.panels[0][0]
     avg, lo, hi = cols["nis_average"], cols["nis_lower"], cols["nis_upper"]
     used = _nis_used(cols)
     if used.any():
         tt, a, lw, up = _thin(t[used] - t0, avg[used], lo[used], hi[used])
-        ax.fill_between(tt, lw, up, color=BOUNDS, alpha=0.2, lw=0, label="95 % bounds")
-        ax.plot(tt, a, color=ESTIMATE, lw=1.2, label="NIS average")
-        ax.axhline(1.0, color=INK, lw=0.6, ls=":")
-        ax.set_yscale("log")
-        ax.legend(loc="upper right", ncols=2)
+        ax.band(tt, lw, up, BOUNDS, 0.2, label="95 % bounds")
+        ax.line(tt, a, ESTIMATE, width=1.2, label="NIS average")
+        ax.hline(1.0, INK, width=0.6, dash="1 2")
+        ax.log_y = True
+        ax.legend = {"where": "upper right", "columns": 2}
     else:
-        ax.text(0.5, 0.5, "no filter updates (no contact)", ha="center", va="center",
-                transform=ax.transAxes, color=INK)
-    ax.set_title("Normalized innovation squared (consistency of the filter)")
-    ax.set_xlabel("time since first sample (s)")
-    return _svg(fig)
+        ax.note("no filter updates (no contact)", INK)
+    ax.title = "Normalized innovation squared (consistency of the filter)"
+    ax.xlabel = "time since first sample (s)"
+    return chart.svg()
 
 
 # --------------------------------------------------------------------------------------------
