@@ -23,6 +23,8 @@ setup(
     description="Sensorless interaction-force and object-parameter estimation for ROS 2 manipulators.",
     license="Apache-2.0",
     tests_require=["pytest"],
+    # optional: replays of many bags on a Dask cluster (replay --cluster); not needed by the node
+    extras_require={"fleet": ["dask[distributed]>=2024.1"]},
     entry_points={
         "console_scripts": [
             "interaction-estimator = interaction_estimator.cli:main",

@@ -78,6 +78,27 @@ def _seconds(text: str) -> float:
     return value
 
 
+def _non_negative(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not (0 <= value < float("inf")):
+        raise argparse.ArgumentTypeError(f"{text!r} is not allowed; expected a number >= 0")
+    return value
+
+
+def _share(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not (0 <= value <= 1):
+        raise argparse.ArgumentTypeError(f"{text!r} is not allowed; expected a share in "
+                                         "[0, 1]")
+    return value
+
+
 def _hertz(text: str) -> float:
     try:
         value = float(text)
@@ -111,7 +132,8 @@ def _run(args: argparse.Namespace) -> int:
 
 def _replay_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("bags", nargs="+", metavar="BAG", type=Path,
-                   help="rosbag2 bag (directory, .mcap or .db3); several run in parallel")
+                   help="rosbag2 bag (directory, .mcap or .db3), a directory of bags, or a "
+                        "quoted glob pattern of bags; several run in parallel, one task each")
     p.add_argument("--out", required=True, type=Path, metavar="DIR",
                    help="output directory, made with its missing parents (one subdirectory "
                         "per bag when several)")
@@ -140,15 +162,34 @@ def _replay_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", dest="file_format",
                    help="estimates file: csv (estimates.csv, default) or parquet "
                         "(estimates.parquet, the same columns)")
+    fleet = p.add_argument_group(
+        "several bags", "one task per bag, locally or on a Dask cluster; DIR/runs.json and "
+        "DIR/fleet.html list every bag and those short of the limits below")
+    fleet.add_argument("--cluster", metavar="ADDRESS",
+                       help="Dask scheduler to run the bags on (e.g. tcp://host:8786; needs "
+                            "the [fleet] extra; bags and DIR on storage every worker sees)")
+    fleet.add_argument("--limit-force-rmse", type=_non_negative, metavar="N",
+                       help="a bag falls short when its force RMSE in contact exceeds N newtons")
+    fleet.add_argument("--limit-convergence-time", type=_non_negative, metavar="S",
+                       help="a bag falls short when its parameters take longer than S seconds "
+                            "after the first contact to converge (or never do)")
+    fleet.add_argument("--limit-reject-share", type=_share, metavar="F",
+                       help="a bag falls short when more than this share (0-1) of its joint "
+                            "states are rejected")
+    fleet.add_argument("--require-convergence", action="store_true",
+                       help="a bag falls short when not all four parameters converged")
 
 
 def _replay(args: argparse.Namespace) -> int:
-    from .offline.replay import INPUT_ERRORS, ReplayRequest, replay, replay_many, subdir_names
+    from .offline.replay import INPUT_ERRORS, ReplayRequest, replay, subdir_names
     common = dict(params=args.params, urdf=args.urdf, topics=tuple(args.topics),
                   reference_topic=args.reference_topic, output_bag=args.output_bag,
                   bag_settings=not args.ignore_bag_settings, file_format=args.file_format,
                   report=args.report)
-    if len(args.bags) == 1:
+    single = (len(args.bags) == 1 and args.cluster is None
+              and not (args.bags[0].is_dir() and not (args.bags[0] / "metadata.yaml").exists())
+              and not any(c in str(args.bags[0]) for c in "*?["))
+    if single:
         try:
             result = replay(ReplayRequest(args.bags[0], args.out, progress=args.progress,
                                           **common))
@@ -159,19 +200,29 @@ def _replay(args: argparse.Namespace) -> int:
               + (", report.html" if args.report else "")
               + (", estimates_bag" if args.output_bag else ""))
         return EXIT_OK
-    names = subdir_names(args.bags)
+    from .offline.fleet import Thresholds, expand_bags, replay_fleet
+    try:
+        bags = expand_bags(args.bags)
+    except INPUT_ERRORS as exc:
+        raise UsageError(str(exc)) from None
+    names = subdir_names(bags)
     requests = [ReplayRequest(b, args.out / n, progress=False, **common)
-                for b, n in zip(args.bags, names)]
+                for b, n in zip(bags, names)]
     jobs = args.jobs or min(len(requests), os.cpu_count() or 1)
+    limits = Thresholds(args.limit_force_rmse, args.limit_convergence_time,
+                        args.limit_reject_share, args.require_convergence)
     errors: list[str] = []
     try:
-        failed = replay_many(requests, args.out, jobs, errors.append)
+        failed, short = replay_fleet(requests, args.out, jobs, errors.append, args.cluster,
+                                     limits)
     except INPUT_ERRORS as exc:
         raise UsageError(str(exc)) from None
     for line in errors:
         print(f"{PROG} replay: error: {line}", file=sys.stderr)
-    print(f"replayed {len(requests) - failed} of {len(requests)} bags into {args.out}/"
-          f"({', '.join(n for n in names)})")
+    shown = ", ".join(names[:10]) + (f", ... ({len(names) - 10} more)" if len(names) > 10
+                                     else "")
+    print(f"replayed {len(requests) - failed} of {len(requests)} bags into {args.out}/ "
+          f"({shown}); {short} short of the limits; see {args.out}/fleet.html")
     return EXIT_USAGE if failed else EXIT_OK
 
 

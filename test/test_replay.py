@@ -181,10 +181,10 @@ def test_several_bags_run_in_parallel_into_subdirectories(bags, drawer_replays, 
                               "2"], capsys)
     assert code == 2  # one of the three failed, and says why; the other two are complete
     assert "missing_bag' does not exist" in err
-    runs = json.loads((tmp_path / "many" / "runs.json").read_text())
+    runs = json.loads((tmp_path / "many" / "runs.json").read_text())["runs"]
     assert [r["ok"] for r in runs] == [True, True, False]
     assert sorted(p.name for p in (tmp_path / "many").iterdir()) == [
-        "drawer_mcap", "drawer_sqlite", "runs.json"]
+        "drawer_mcap", "drawer_sqlite", "fleet.html", "runs.json"]
     # reference: the one-bag-at-a-time replays of the same bags
     for sub, single in (("drawer_mcap", "mcap"), ("drawer_sqlite", "sqlite")):
         assert (tmp_path / "many" / sub / "estimates.csv").read_bytes() == \

@@ -11,7 +11,8 @@
 * ``estimates_bag/`` (with ``--output-bag``): the node's three output topics as an MCAP bag.
 
 With one bag, DIR holds these files; with several, DIR holds one subdirectory per bag (named
-after it) and the bags run in parallel processes (``--jobs``). Every output directory is built
+after it), the bags run in parallel processes (``--jobs``) or on a cluster (``--cluster``), and
+DIR also holds runs.json and fleet.html (:mod:`.fleet`). Every output directory is built
 under a temporary name beside it and renamed when complete: a failed replay leaves no
 directory that looks like a result.
 
@@ -26,7 +27,6 @@ import math
 import sys
 import time
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
@@ -440,13 +440,6 @@ def _changed_settings(s: Settings) -> dict[str, Any]:
 # several bags
 
 
-def _replay_worker(req: ReplayRequest) -> tuple[str, dict[str, Any] | None, str]:
-    try:
-        return str(req.bag), replay(req).summary, ""
-    except INPUT_ERRORS as exc:
-        return str(req.bag), None, str(exc)
-
-
 def subdir_names(bags: list[Path]) -> list[str]:
     """One distinct output subdirectory name per bag (its file or directory name)."""
     names, used = [], set()
@@ -460,25 +453,3 @@ def subdir_names(bags: list[Path]) -> list[str]:
         used.add(name)
         names.append(name)
     return names
-
-
-def replay_many(requests: list[ReplayRequest], out: Path, jobs: int,
-                log: Callable[[str], None]) -> int:
-    """Replay several bags in parallel processes into ``out/<bag>/``; returns the number of
-    bags that failed (each failure is logged with its message)."""
-    check_output_dir(out)
-    out.mkdir(parents=True, exist_ok=True)
-    results: list[tuple[str, dict[str, Any] | None, str]]
-    with ProcessPoolExecutor(max_workers=max(1, min(jobs, len(requests)))) as pool:
-        results = list(pool.map(_replay_worker, requests))
-    failed = 0
-    runs = []
-    for req, (bag, summary, error) in zip(requests, results):
-        if summary is None:
-            failed += 1
-            log(f"{bag}: {error}")
-        runs.append({"bag": bag, "out": str(req.out), "ok": summary is not None,
-                     "error": error or None})
-    if failed < len(requests):
-        write_atomic(out / "runs.json", json.dumps(runs, indent=2) + "\n")
-    return failed
