@@ -723,23 +723,26 @@ class _Estimator:
     def _publish_markers(self, est: Estimate, sample: Sample, sec: int, nanosec: int) -> None:
         """~/markers for the estimate just published (at the status rate, while subscribed)."""
         builder = self._marker_builder
+        model = self._object_model()
         if builder is None:
             builder = self._marker_builder = MarkerBuilder(
-                self._marker_scale, self.settings["health.stale_after"],
-                self._environment_model())
+                self._marker_scale, self.settings["health.stale_after"], model[0])
         scene = MarkerScene(
             frame_id=self._frame_id(), stamp=TimeMsg(sec=sec, nanosec=nanosec),
             contact_point=self._contact_point.position(sample), force=est.force,
             direction=est.direction, parameters=est.parameters.tolist(),
-            parameter_std=est.parameter_std.tolist(), names=PARAMETER_NAMES,
-            units=PARAMETER_UNITS, state=est.state,
+            parameter_std=est.parameter_std.tolist(), names=model[1],
+            units=model[2], state=est.state,
             level=self._last_status.level if self._last_status is not None else est.level)
         self._markers_pub.publish(builder.markers(scene))
         self._markers_shown = True
 
-    def _environment_model(self) -> str:
-        return (self.settings["environment.model"] if "environment.model" in SPEC_BY_NAME
-                else "along_direction")
+    def _object_model(self) -> tuple[str, Sequence[str], Sequence[str]]:
+        """(name, parameter names, units) of the Pipeline's object model."""
+        m = getattr(self.pipeline, "object_model", None)
+        if m is None:
+            return "along_direction", PARAMETER_NAMES, PARAMETER_UNITS
+        return m.name, m.parameter_names, m.parameter_units
 
     def _clear_markers(self) -> None:
         """One DELETEALL when markers are shown (stale estimates, model replaced, deactivated)."""

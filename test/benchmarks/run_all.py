@@ -21,6 +21,8 @@ PLAN = {
     "bench_node.py": [],   # 60 s per subject, in 2 s turns
     "bench_replay.py": ["--minutes", "10"],
     "bench_identification.py": [],   # 60 s commissioning bag of a 7-joint arm
+    "bench_startup.py": ["--long-minutes", "10", "--repeat", "3"],
+    "bench_fleet.py": ["--bags", "8", "--seconds", "20", "--repeat", "2"],
 }
 
 
