@@ -27,7 +27,7 @@ setup(
     extras_require={"fleet": ["dask[distributed]>=2024.1"]},
     entry_points={
         "console_scripts": [
-            "interaction-estimator = interaction_estimator.cli:main",
+            "interaction-estimator = interaction_estimator.cli:entry",
             "estimator_node = interaction_estimator.ros.node:main",
         ],
     },

@@ -357,5 +357,19 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
 
 
+def entry() -> None:
+    """The console script: :func:`main`, then the process ends without the interpreter's
+    teardown for the offline commands. Measured on a 62 s replay (this machine, loaded): freeing
+    the compiled code and the models at exit took 0.23-0.27 s after the files were written
+    and closed. Output streams are flushed first; ``run`` (the node) ends normally."""
+    argv = sys.argv[1:]
+    code = main(argv)
+    if argv and argv[0] in ("replay", "simulate", "tune"):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    sys.exit(code)
+
+
 if __name__ == "__main__":
-    sys.exit(main())
+    entry()

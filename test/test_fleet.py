@@ -26,12 +26,20 @@ distributed = pytest.importorskip(
 def cluster():
     """Scheduler and two single-threaded worker processes, bound to 127.0.0.1 only."""
     local = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                     host="127.0.0.1", dashboard_address=None)
+                                     host="127.0.0.1", dashboard_address="127.0.0.1:0")
     try:
         with distributed.Client(local.scheduler_address) as client:
             workers = list(client.scheduler_info()["workers"])
         assert local.scheduler_address.startswith("tcp://127.0.0.1:")
         assert len(workers) == 2 and all(w.startswith("tcp://127.0.0.1:") for w in workers)
+        # reference: the operating system's table of listening sockets (through psutil) for
+        # this process and the worker processes: loopback only
+        import psutil
+        me = psutil.Process()
+        pids = {me.pid} | {c.pid for c in me.children(recursive=True)}
+        listening = [c.laddr for c in psutil.net_connections("inet")
+                     if c.status == psutil.CONN_LISTEN and c.pid in pids]
+        assert listening and all(a.ip == "127.0.0.1" for a in listening), listening
         yield local.scheduler_address
     finally:
         local.close()
