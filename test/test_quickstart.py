@@ -10,7 +10,6 @@ from __future__ import annotations
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
-from pathlib import Path
 
 import numpy as np
 import pytest

@@ -29,6 +29,7 @@ import json
 import math
 import os
 import time
+import uuid
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -171,11 +172,12 @@ def _task(req: ReplayRequest) -> dict[str, Any]:
 
 
 def _local_task(req: ReplayRequest) -> tuple[dict[str, Any] | None, str]:
-    """One bag in a local process: (result, "") or (None, why)."""
+    """One bag in a local process: (result, "") or (None, why). Any failure stays this bag's
+    (an unexpected one is named with its type, as on a cluster)."""
     try:
         return _task(req), ""
-    except INPUT_ERRORS as exc:
-        return None, str(exc)
+    except Exception as exc:
+        return None, _error_text(exc)
 
 
 def _error_text(exc: BaseException) -> str:
@@ -208,7 +210,8 @@ def run_on_cluster(requests: list[ReplayRequest], address: str,
                           "address of a running Dask scheduler, e.g. tcp://host:8786") from None
     results: list[tuple[dict[str, Any] | None, str]] = [(None, "not run")] * len(requests)
     try:
-        futures = [client.submit(_task, req, key=f"replay-{i}-{Path(req.out).name}",
+        run_id = uuid.uuid4().hex[:12]   # keys unique on a scheduler shared by many runs
+        futures = [client.submit(_task, req, key=f"replay-{run_id}-{i}-{Path(req.out).name}",
                                  retries=1, pure=False)
                    for i, req in enumerate(requests)]
         index = {f.key: i for i, f in enumerate(futures)}
@@ -346,7 +349,7 @@ h2 {{ font-size: 15px; margin: 0 0 8px; color: {ACCENT}; text-transform: upperca
 figure {{ margin: 0; }} figure svg {{ width: 100%; height: auto; }}
 table {{ border-collapse: collapse; width: 100%; font-size: 13px; }}
 th, td {{ padding: 4px 7px; border-bottom: 1px solid #ece9e2; text-align: right; }}
-th:first-child, td:first-child, td.text {{ text-align: left; }}
+th:first-child, td:first-child, td.text, th.text {{ text-align: left; }}
 thead th {{ border-bottom: 2px solid {INK}; color: #56606a; font-size: 12px; }}
 td.mark {{ border-left: 6px solid var(--mark); }}
 .note {{ color: #56606a; font-size: 12px; }}
@@ -399,9 +402,10 @@ def fleet_page(doc: dict[str, Any]) -> str:
                       th.get("max_time_to_convergence_s")), "</figure>",
         '<figure id="fig-rejects">', rejects_svg(ok), "</figure>",
         "</div></section>",
-        '<section><h2>Bags</h2><table id="bags"><thead><tr><th>Bag</th><th>Verdict</th>'
+        '<section><h2>Bags</h2><table id="bags"><thead><tr><th>Bag</th><th class="text">Verdict</th>'
         "<th>Duration (s)</th><th>Force RMSE in contact (N)</th><th>Convergence (s)</th>"
-        "<th>Converged</th><th>Rejected</th><th>Final state</th><th>Why</th></tr></thead>"
+        "<th>Converged</th><th>Rejected</th><th>Final state</th><th class=\"text\">Why</th>"
+        "</tr></thead>"
         "<tbody>", *rows, "</tbody></table>",
         '<p class="note">Each bag\'s own report is report.html in its folder; every figure '
         "here is in runs.json. The estimates are not a safety function.</p></section>",
