@@ -49,6 +49,7 @@ def main(argv: list[str] | None = None) -> None:
     except ImportError:
         print("Dask distributed is not installed (the [fleet] extra): nothing to measure")
         return
+    logging.getLogger("distributed").setLevel(logging.ERROR)   # figures, not Dask's chatter
     work = Path(tempfile.mkdtemp(prefix="bench_fleet."))
     cmd = command()
     clusters = []
