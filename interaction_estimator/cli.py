@@ -359,9 +359,9 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def entry() -> None:
     """The console script: :func:`main`, then the process ends without the interpreter's
-    teardown for the offline commands (not ``run``). Measured on a 62 s replay (this machine, loaded): freeing
-    the compiled code and the models at exit took 0.23-0.27 s after the files were written
-    and closed. Output streams are flushed first; ``run`` (the node) ends normally."""
+    teardown for the offline commands. Measured on a 62 s replay (this machine, loaded):
+    freeing the compiled code and the models at exit took 0.23-0.27 s after the files were
+    written and closed. Output streams are flushed first; ``run`` (the node) ends normally."""
     argv = sys.argv[1:]
     code = main(argv)
     if argv and argv[0] in ("replay", "simulate", "tune", "excitation"):

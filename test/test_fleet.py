@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 
 from interaction_estimator import cli
-from interaction_estimator.io.bag import write_simulated_bag
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
 
 distributed = pytest.importorskip(

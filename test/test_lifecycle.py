@@ -16,22 +16,30 @@ import time
 import numpy as np
 import pytest
 import rclpy
+from diagnostic_msgs.msg import DiagnosticStatus
+from geometry_msgs.msg import WrenchStamped
 from lifecycle_msgs.msg import State, Transition, TransitionEvent
 from lifecycle_msgs.srv import ChangeState, GetState
 from rcl_interfaces.srv import SetParameters
 from rclpy.context import Context
 from rclpy.executors import SingleThreadedExecutor
 from rclpy.parameter import Parameter
+from ros_harness import (
+    RELIABLE,
+    NodeProcess,
+    Peer,
+    Recorder,
+    level,
+    next_domain,
+    publish_paced,
+    still_scenario,
+    values,
+)
 from sensor_msgs.msg import JointState
-from diagnostic_msgs.msg import DiagnosticStatus
-from geometry_msgs.msg import WrenchStamped
 
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.settings import load_parameter_file
 from interaction_estimator.sim import marten
-
-from ros_harness import (RELIABLE, NodeProcess, Peer, Recorder, level, next_domain,
-                         publish_paced, still_scenario, values)
 
 PREFIX = "/interaction_estimator"
 

@@ -15,13 +15,21 @@ import numpy as np
 import pinocchio as pin
 import pytest
 from rclpy.serialization import deserialize_message
+from ros_harness import (
+    RELIABLE,
+    NodeProcess,
+    Peer,
+    Recorder,
+    contact_scenario,
+    level,
+    next_domain,
+    publish_paced,
+    values,
+)
 from visualization_msgs.msg import Marker, MarkerArray
 
 from interaction_estimator.ros.markers import LEVEL_COLOURS
 from interaction_estimator.sim import marten
-
-from ros_harness import (RELIABLE, NodeProcess, Peer, Recorder, contact_scenario, level,
-                         next_domain, publish_paced, values)
 
 SCALE = 0.02   # m/N
 

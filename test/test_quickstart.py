@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 
 from interaction_estimator import cli
-from interaction_estimator.io.bag import write_simulated_bag
 from interaction_estimator.offline import svgplot
+from interaction_estimator.sim.recording import write_simulated_bag
 from interaction_estimator.sim.simulator import simulate
 
 HEAVY = ("scipy", "matplotlib", "pinocchio", "numba", "rosbags", "rclpy",

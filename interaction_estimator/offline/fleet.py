@@ -30,13 +30,15 @@ import math
 import os
 import time
 import uuid
+from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
+from ..io.files import write_atomic
 from .replay import INPUT_ERRORS, ReplayError, ReplayRequest, check_output_dir, replay
 from .svgplot import Chart
 
@@ -259,9 +261,8 @@ def replay_fleet(requests: list[ReplayRequest], out: Path, jobs: int,
     doc = {"engine": f"dask distributed at {cluster}" if cluster else f"local, {jobs} processes",
            "bags": len(requests), "failed": failed, "short": short, "wall_time_s": wall,
            "thresholds": thresholds.as_dict(), "runs": runs}
-    (out / RUNS_FILE).write_text(json.dumps(doc, indent=2, allow_nan=False) + "\n",
-                                 encoding="utf-8")
-    (out / FLEET_PAGE).write_text(fleet_page(doc), encoding="utf-8")
+    write_atomic(out / RUNS_FILE, json.dumps(doc, indent=2, allow_nan=False) + "\n")
+    write_atomic(out / FLEET_PAGE, fleet_page(doc))
     return failed, short
 
 
@@ -402,7 +403,8 @@ def fleet_page(doc: dict[str, Any]) -> str:
                       th.get("max_time_to_convergence_s")), "</figure>",
         '<figure id="fig-rejects">', rejects_svg(ok), "</figure>",
         "</div></section>",
-        '<section><h2>Bags</h2><table id="bags"><thead><tr><th>Bag</th><th class="text">Verdict</th>'
+        '<section><h2>Bags</h2><table id="bags"><thead><tr><th>Bag</th>'
+        '<th class="text">Verdict</th>'
         "<th>Duration (s)</th><th>Force RMSE in contact (N)</th><th>Convergence (s)</th>"
         "<th>Converged</th><th>Rejected</th><th>Final state</th><th class=\"text\">Why</th>"
         "</tr></thead>"

@@ -426,7 +426,7 @@ def write_outputs(directory: Path, summary: dict[str, Any],
     write_atomic(directory / "summary.json", json.dumps(summary, indent=2, allow_nan=False)
                  + "\n")
     if report:
-        from .report import write_report   # imported on use: plotting costs time
+        from .report import write_report  # imported on use: plotting costs time
         cols = estimates.columns() if isinstance(estimates, EstimateTable) else estimates
         write_report(directory / "report.html", summary, cols, reference, title=title)
 

@@ -13,8 +13,8 @@ from __future__ import annotations
 import html
 import itertools
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Sequence
 
 import numpy as np
 

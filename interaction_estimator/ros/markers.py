@@ -23,12 +23,14 @@ ERROR red, STALE grey; the force arrow is teal and the direction violet.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Callable, Sequence
+from typing import Any
 
 import numpy as np
 import pinocchio as pin
-from builtin_interfaces.msg import Duration, Time as TimeMsg
+from builtin_interfaces.msg import Duration
+from builtin_interfaces.msg import Time as TimeMsg
 from geometry_msgs.msg import Point
 from std_msgs.msg import ColorRGBA
 from visualization_msgs.msg import Marker, MarkerArray
@@ -82,7 +84,7 @@ class MarkerScene:
 Layer = Callable[[MarkerScene, "MarkerBuilder"], list[Marker]]
 
 
-def direction_layer(scene: MarkerScene, builder: "MarkerBuilder") -> list[Marker]:
+def direction_layer(scene: MarkerScene, builder: MarkerBuilder) -> list[Marker]:
     """The manipulation direction u as an arrow of DIRECTION_LENGTH_M m from the contact
     point (``along_direction`` model)."""
     u = np.asarray(scene.direction, dtype=float)

@@ -49,6 +49,7 @@ from typing import Any
 import rclpy
 import rclpy.executors
 import rclpy.utilities
+from builtin_interfaces.msg import Time as TimeMsg
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
 from rcl_interfaces.msg import SetParametersResult
@@ -61,7 +62,6 @@ from rclpy.serialization import deserialize_message
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
-from builtin_interfaces.msg import Time as TimeMsg
 from visualization_msgs.msg import MarkerArray
 
 from ..core.compiled import CACHE_DIR

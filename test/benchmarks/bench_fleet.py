@@ -82,7 +82,7 @@ def main(argv: list[str] | None = None) -> None:
             shutil.rmtree(warm, ignore_errors=True)
             subjects[f"local, --jobs {workers}"] = ["--jobs", str(workers)]
         walls: dict[str, list[float]] = {k: [] for k in subjects}
-        for r in range(args.repeat):
+        for _ in range(args.repeat):
             for name, extra in subjects.items():
                 out = work / f"out_{len(walls[name])}_{name.split(',')[0]}"
                 walls[name].append(run([*cmd, "replay", str(bags), "--out", str(out),

@@ -36,8 +36,15 @@ import pinocchio as pin
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.settings import Settings
-from interaction_estimator.io.bag import (JOINT_STATE, STRING, BagWriter, JointStateEncoder,
-                                          RecordedBag, encode_string, seconds_to_stamp)
+from interaction_estimator.io.bag import RecordedBag
+from interaction_estimator.io.bag_writer import BagWriter
+from interaction_estimator.io.cdr import (
+    JOINT_STATE,
+    STRING,
+    JointStateEncoder,
+    encode_string,
+    seconds_to_stamp,
+)
 from interaction_estimator.offline.replay import run_pipeline
 from interaction_estimator.sim import marten
 
