@@ -1,25 +1,58 @@
-"""Environment-parameter filter: an adaptive Kalman filter on the object's parameters.
+"""Environment-parameter filter: the object's parameters at the information limit of the data.
 
-The object model (:mod:`.object_models`) gives a measurement row: the force f (N) and the
-regressor h (m,) with ``f = h . theta + v``; theta holds the model's m parameters (for the
-default model along the direction: [mass kg, damping N·s/m, stiffness N/m, static_force N] with
-h = [x'', x', x, 1]). The parameters follow a random walk, theta_k = theta_{k-1} + w_k with
-w_k ~ N(0, diag(q^2) dt), and the measurement noise v_k ~ N(0, R). This is a linear Kalman
-filter with F = I and a time-varying 1 x m measurement matrix h_k (Kalman 1960; the same
-equations as filterpy's ``KalmanFilter``, with the Joseph-form covariance update of Bucy and
-Joseph 1968). Nothing here knows m: every loop runs over the parameters the model declares.
+The object model (:mod:`.object_models`) gives a measurement row per sample: the force f (N) and
+the regressor h (m,) with ``f = h . theta + v`` (for the default model along the direction:
+theta = [mass kg, damping N·s/m, stiffness N/m, static_force N], h = [x'', x', x, 1]). The
+parameters of a stationary object do not change, so nothing is forgotten: the estimate is the
+Bayesian linear regression of every row since the contact began (or since a detected change),
+with the prior of the parameter file (Gaussian prior, Gaussian noise: the posterior mean and
+covariance of e.g. Bishop, Pattern Recognition and Machine Learning, 2006, sec. 3.3), computed
+exactly from sufficient statistics (Gram matrix G = sum h h^T, b = sum h f, sum f^2, count), so it
+equals a batch least-squares fit of the same rows with that prior - the filter form of recursive
+least squares without forgetting. Nothing here knows m.
 
-On top of it (each one cited where it is implemented): measurement-noise adaptation
-(fading-memory Sage-Husa, or covariance matching), optional diagonal process-noise adaptation,
-non-negativity of the parameters the model declares non-negative by projection, excitation
-monitoring with a Schmidt ("consider") gain for parameters the motion does not excite, NIS
-consistency against chi-square bounds, CUSUM change detection, and the widening of the
-standard deviations for correlated innovations.
+Rows are averaged over blocks of ``filter.update_interval`` s before they are used. The model is
+linear, so block means obey it as the rows do (mean f = mean h . theta); the force's error is
+coloured (it passes through the observer, the regressor through the differentiator), and the
+means of blocks longer than that colouring have nearly independent errors, so the batch
+residual variance of the block means is an honest noise level, whatever the sample rate. The
+remaining correlation of neighbouring blocks widens the standard deviations by the AR(1)
+variance inflation factor (1 + rho) / (1 - rho) (effective sample size; Box, Jenkins and
+Reinsel, Time Series Analysis, 4th ed. 2008, sec. 2.1).
+
+Per block (:func:`filter_update`):
+
+1. Innovation of the block against the estimate so far: y = f - h theta, S = h P h^T + R, and
+   its normalized square NIS = y^2 / S. The NIS averaged over the last ``filter.nis_time`` s is
+   compared with its two-sided 95 % chi-square interval (Bar-Shalom, Li and Kirubarajan,
+   Estimation with Applications to Tracking and Navigation, 2001, sec. 5.4).
+2. Change detection: one-sided CUSUM of the NIS, g = max(0, g + NIS - drift) (Page, "Continuous
+   inspection schemes", Biometrika 1954; Basseville and Nikiforov, Detection of Abrupt Changes,
+   1993, ch. 2). When g exceeds ``filter.change_threshold`` the object changed; the change
+   began where g last was zero, and the estimate is made again from the blocks since then
+   (kept for ``filter.history_time`` s): what was learned from the old object is dropped, what
+   the new one showed is kept.
+3. The block joins the sufficient statistics; the estimate is the solution of
+   (P0^-1 + G / R) theta = P0^-1 theta0 + b / R, with P = (P0^-1 + G / R)^-1 its covariance.
+4. R, the noise variance of a block mean, is the batch residual variance of the rows so far,
+   (sum f^2 - 2 theta^T b + theta^T G theta) / (n - m), pooled with the noise level carried over
+   from before (``filter.measurement_std`` at start) as a prior worth a few blocks.
+5. Non-negativity (``filter.nonnegative``, for the parameters the model declares non-negative):
+   the constrained minimizer of the same quadratic cost is the projection of the estimate onto
+   the bounds in the metric P^-1 (an active-set iteration, :func:`filter_project`; Simon and
+   Chia, IEEE TAES 2002; Simon, IET Control Theory Appl. 2010). The reported value is that
+   projection; the unconstrained solution is kept for the next block.
+6. Excitation and convergence are judged by what a parameter's uncertainty does to the force,
+   never by thresholds in its own units: its scale d_i = max(|theta_i|, 0.05 F_rms / h_rms_i) is
+   the larger of its value and the value whose contribution would be 5 % of the RMS force
+   (F_rms, h_rms_i: over the blocks the estimate rests on). Excited: its standard deviation is
+   below ``filter.excited_fraction`` d_i and the data, not the prior, determined it (below half
+   its prior standard deviation). Converged: below ``filter.converged_fraction`` d_i.
 
 Records (:class:`FilterRecords`): configuration :data:`PARAMS` and per-parameter
-:data:`PARAMETER_PARAMS`; state :data:`STATE`, per-parameter :data:`PARAMETERS` and the
-covariance (m, m); the NIS bounds table and the two windows; the last update's figures
-:data:`OUTPUT` and per-parameter :data:`PARAMETER_OUTPUT`. Memory is bounded (fixed windows).
+:data:`PARAMETER_PARAMS`; state :data:`STATE`, per-parameter :data:`PARAMETERS`, the Gram matrix
+and the covariance (m, m); the NIS table and window; the block history; the last update's
+figures :data:`OUTPUT` and per-parameter :data:`PARAMETER_OUTPUT`. Memory is bounded.
 """
 from __future__ import annotations
 
@@ -30,7 +63,7 @@ import numpy as np
 
 from .compiled import kernel
 from .object_models import ALONG_DIRECTION, ObjectModel
-from .records import B1, F8, I1, I8, record
+from .records import B1, F8, I8, record
 from .samples import SampleRejected
 from .settings import Settings, SettingsError
 
@@ -38,100 +71,102 @@ from .settings import Settings, SettingsError
 PARAMETER_NAMES = ALONG_DIRECTION.parameter_names
 PARAMETER_UNITS = ALONG_DIRECTION.parameter_units
 NIS_CONFIDENCE = 0.95  # two-sided probability of the NIS interval (Bar-Shalom et al. 2001)
+FORCE_SHARE = 0.05     # the scale of a parameter: the value whose contribution is 5 % of F_rms
+NOISE_PRIOR_BLOCKS = 3.0  # weight of the carried-over noise level, in blocks
+DATA_DETERMINED = 0.5  # excited only where the data brought the std below half its prior's
 
-CHANGE_REGAINED = 1  # the contact started again (the Pipeline's inflation)
+CHANGE_REGAINED = 1  # a new contact began after one had ended (the estimate started again)
 CHANGE_CUSUM = 2     # the innovation CUSUM crossed its threshold
-CHANGE_TEXT = 4      # an inflation asked for through EnvironmentFilter.inflate (its text)
+CHANGE_TEXT = 4      # a restart asked for through EnvironmentFilter.restart (its text)
 
-UPDATED, REJECT_NON_FINITE, REJECT_TIME_BACKWARDS = 0, 1, 2
-ADAPT_FIXED, ADAPT_SAGE_HUSA, ADAPT_MATCHING = 0, 1, 2
-_ADAPTATION = {"fixed": ADAPT_FIXED, "sage_husa": ADAPT_SAGE_HUSA, "matching": ADAPT_MATCHING}
+UPDATED, REJECT_NON_FINITE, REJECT_TIME_BACKWARDS, ADDED = 0, 1, 2, 3
 
 PARAMS = record(
     "environment filter parameters",
-    ("r0", F8, "N^2", "measurement variance to start from (filter.measurement_std^2)"),
-    ("measurement_std0", F8, "N", "filter.measurement_std, reported before the first update"),
-    ("r_floor", F8, "N^2", "floor of the adapted measurement variance"),
-    ("noise_adaptation", I1, "", "ADAPT_FIXED, ADAPT_SAGE_HUSA or ADAPT_MATCHING"),
-    ("fading", F8, "", "Sage-Husa fading factor b"),
-    ("process_adaptation", I1, "", "ADAPT_FIXED or ADAPT_SAGE_HUSA"),
+    ("block_s", F8, "s", "rows are averaged over blocks this long (0: every row a block)"),
+    ("measurement_std0", F8, "N", "noise std of a block mean to start from"),
+    ("learn_noise", B1, "", "estimate the noise level from the residuals"),
+    ("memory_s", F8, "s", "forgetting time of the statistics (0: nothing is forgotten)"),
     ("change_threshold", F8, "", "CUSUM threshold on the NIS"),
     ("change_drift", F8, "", "CUSUM drift"),
-    ("change_inflation", F8, "", "covariance factor at a change"),
-    ("excitation_window_s", F8, "s", "forgetting time of the excitation measure"),
-    ("converged_rel", F8, "", "relative std below which a parameter converged"),
-    ("correlation", B1, "", "widen the std for correlated innovations"),
-    ("nis_window", I8, "updates", "NIS averaging window"),
-    ("matching_window", I8, "updates", "covariance-matching window"),
+    ("excited_fraction", F8, "", "std below this share of the scale: excited"),
+    ("converged_fraction", F8, "", "std below this share of the scale: converged"),
+    ("correlation", B1, "", "widen the std for correlated innovations of neighbouring blocks"),
 )
 PARAMETER_PARAMS = record(
     "environment filter, per parameter",
     ("prior_mean", F8, "(parameter unit)", "prior mean"),
     ("prior_std", F8, "(parameter unit)", "prior standard deviation"),
     ("prior_var", F8, "(parameter unit)^2", "prior variance"),
-    ("process_var", F8, "(parameter unit)^2/s", "random-walk intensity q^2 to start from"),
-    ("excitation_min", F8, "(regressor unit)", "RMS of h_i below which i is not excited"),
-    ("converged_std", F8, "(parameter unit)", "std below which i counts as converged"),
     ("nonnegative", B1, "", "kept >= 0 by projection"),
 )
 STATE = record(
     "environment filter state",
-    ("r", F8, "N^2", "measurement variance R now"),
-    ("has_update", B1, "", "updated since the last reset"),
-    ("last_time_s", F8, "s", "time of the last update"),
-    ("samples", I8, "", "updates since the last reset"),
-    ("fading_power", F8, "", "b^k"),
+    ("block_count", I8, "", "rows in the block being gathered"),
+    ("block_time_sum", F8, "s", "sum of their times"),
+    ("block_force_sum", F8, "N", "sum of their forces"),
+    ("block_start_s", F8, "s", "time of its first row"),
+    ("has_row", B1, "", "a row was added since the last reset"),
+    ("last_row_s", F8, "s", "time of the last row"),
+    ("has_update", B1, "", "a block was used since the last reset"),
+    ("last_time_s", F8, "s", "time of the last block"),
+    ("samples", I8, "", "blocks used since the last reset"),
+    ("count", F8, "blocks", "blocks in the statistics (weighted when forgetting)"),
+    ("force_sq_sum", F8, "N^2", "sum of f^2 over them"),
+    ("noise_var", F8, "N^2", "noise variance R of a block mean, as estimated"),
+    ("noise_carry", F8, "N^2", "noise variance carried over as a prior"),
     ("cusum", F8, "", "CUSUM of the NIS"),
+    ("cusum_zero_s", F8, "s", "time of the last block at which the CUSUM was zero"),
     ("z_prev", F8, "", "previous normalized innovation"),
-    ("corr_lag", F8, "", "decaying sum of z_k z_(k-1)"),
-    ("corr_zero", F8, "", "decaying sum of z_k^2"),
-    ("excitation_weight", F8, "", "decaying count of the excitation sums"),
-    ("pending_change", I8, "", "CHANGE_* bits to report at the next update"),
-    ("pending_g", F8, "", "the CUSUM value that declared a pending change"),
+    ("corr_lag", F8, "", "sum of z_k z_(k-1)"),
+    ("corr_zero", F8, "", "sum of z_k^2"),
     ("nis_index", I8, "", "NIS window: next slot"),
     ("nis_count", I8, "", "NIS window: values held"),
     ("nis_sum", F8, "", "NIS window: running sum"),
-    ("match_index", I8, "", "matching window: next slot"),
-    ("match_count", I8, "", "matching window: values held"),
-    ("match_sum", F8, "N^2", "matching window: running sum"),
-    ("rejected", I8, "", "updates refused since start"),
+    ("history_index", I8, "", "block history: next slot"),
+    ("history_count", I8, "", "block history: blocks held"),
+    ("pending_change", I8, "", "CHANGE_* bits to report at the next update"),
+    ("pending_g", F8, "", "the CUSUM value that declared a pending change"),
+    ("rejected", I8, "", "rows refused since start"),
 )
 PARAMETERS = record(
     "environment filter state, per parameter",
-    ("theta", F8, "(parameter unit)", "estimate"),
-    ("process_var", F8, "(parameter unit)^2/s", "random-walk intensity q^2 now"),
-    ("excitation_sum", F8, "(regressor unit)^2", "decaying sum of h_i^2"),
+    ("theta", F8, "(parameter unit)", "estimate (without the non-negativity projection)"),
+    ("force_sum", F8, "(regressor unit)·N", "b_i = sum h_i f"),
+    ("block_sum", F8, "(regressor unit)", "sum of h_i over the block being gathered"),
 )
 NIS_BOUNDS = record(
-    "NIS interval by number of updates averaged",
+    "NIS interval by number of blocks averaged",
     ("lower", F8, "", "chi2.ppf(a/2, n) / n"),
     ("upper", F8, "", "chi2.ppf(1 - a/2, n) / n"),
 )
 OUTPUT = record(
     "environment filter, last update",
-    ("time_s", F8, "s", "time of the update"),
-    ("force", F8, "N", "measured force f"),
-    ("innovation", F8, "N", "f - h theta_prior"),
+    ("time_s", F8, "s", "time of the block"),
+    ("force", F8, "N", "its mean force f"),
+    ("innovation", F8, "N", "f - h theta before the block"),
     ("innovation_var", F8, "N^2", "S = h P h^T + R"),
     ("nis", F8, "", "innovation^2 / S"),
     ("nis_average", F8, "", "mean NIS over the NIS window"),
     ("nis_lower", F8, "", "lower bound of that mean (95 %)"),
     ("nis_upper", F8, "", "upper bound"),
-    ("r", F8, "N^2", "R used at this update"),
+    ("r", F8, "N^2", "noise variance of a block mean (R)"),
+    ("force_rms", F8, "N", "RMS of the block means' force since the estimate began"),
     ("change", I8, "", "CHANGE_* bits declared at (or just before) this update"),
     ("change_g", F8, "", "the CUSUM value of a CUSUM change"),
-    ("samples", I8, "", "updates since the last reset, this one included"),
+    ("samples", I8, "", "blocks used since the last reset, this one included"),
     ("all_excited", B1, "", "every parameter excited"),
     ("all_converged", B1, "", "every parameter converged"),
 )
 PARAMETER_OUTPUT = record(
     "environment filter, last update, per parameter",
-    ("value", F8, "(parameter unit)", "estimate"),
+    ("value", F8, "(parameter unit)", "estimate (projected onto the bounds)"),
     ("std", F8, "(parameter unit)", "standard deviation (widened for correlation)"),
-    ("excitation", F8, "(regressor unit)", "RMS of h_i over the excitation window"),
-    ("excited", B1, "", "updated at this step"),
-    ("converged", B1, "", "excited and std below its threshold"),
-    ("regressor", F8, "(regressor unit)", "h_i of this update"),
+    ("excitation", F8, "(regressor unit)", "RMS of h_i over the blocks the estimate rests on"),
+    ("scale", F8, "(parameter unit)", "d_i = max(|theta_i|, 0.05 F_rms / h_rms_i)"),
+    ("excited", B1, "", "the data determine it"),
+    ("converged", B1, "", "std below filter.converged_fraction of the scale"),
+    ("regressor", F8, "(regressor unit)", "h_i of this block"),
 )
 
 
@@ -142,10 +177,13 @@ class FilterRecords(NamedTuple):
     parameter_params: np.ndarray  # (m,) PARAMETER_PARAMS
     state: np.ndarray             # (1,) STATE
     parameters: np.ndarray        # (m,) PARAMETERS
-    covariance: np.ndarray        # (m, m) float
-    nis_bounds: np.ndarray        # (nis_window + 1,) NIS_BOUNDS
-    nis_ring: np.ndarray          # (nis_window,) float
-    match_ring: np.ndarray        # (matching_window,) float
+    gram: np.ndarray              # (m, m) G = sum h h^T
+    covariance: np.ndarray        # (m, m) P
+    nis_bounds: np.ndarray        # (nis capacity + 1,) NIS_BOUNDS
+    nis_ring: np.ndarray          # (nis capacity,)
+    history_time: np.ndarray      # (history capacity,) s, the blocks' times
+    history_force: np.ndarray     # (history capacity,) N, their mean forces
+    history_regressor: np.ndarray  # (history capacity, m) their mean regressors
     output: np.ndarray            # (1,) OUTPUT
     parameter_output: np.ndarray  # (m,) PARAMETER_OUTPUT
 
@@ -167,100 +205,6 @@ def nis_bounds_table(n_max: int) -> np.ndarray:
     table["lower"][1:] = chi2.ppf(alpha / 2.0, n) / n
     table["upper"][1:] = chi2.ppf(1.0 - alpha / 2.0, n) / n
     return table
-
-
-@kernel
-def _exact_sum(buf):
-    """Sum of buf with Neumaier's compensation (error about one rounding of the result, like
-    math.fsum for these magnitudes; Neumaier, ZAMM 1974)."""
-    s = 0.0
-    comp = 0.0
-    for k in range(buf.shape[0]):
-        x = buf[k]
-        t = s + x
-        if abs(s) >= abs(x):
-            comp += (s - t) + x
-        else:
-            comp += (x - t) + s
-        s = t
-    return s + comp
-
-
-@kernel
-def _window_push(ring, index, count, total, value):
-    """Mean of the last len(ring) values after adding ``value``; returns (mean, index, count,
-    total). The sum is recomputed with compensation each time the ring wraps, so rounding
-    errors do not accumulate."""
-    size = ring.shape[0]
-    total += value - ring[index]
-    ring[index] = value
-    index += 1
-    if count < size:
-        count += 1
-    if index == size:
-        index = 0
-        total = _exact_sum(ring)
-    return total / count, index, count, total
-
-
-@kernel
-def filter_inflate(fr, reason):
-    """Multiply P by the change inflation; rows and columns whose variance would exceed the
-    prior variance are scaled down together (P -> D P D), which keeps P positive semi-definite
-    and the correlations unchanged. ``reason``: a CHANGE_* bit reported at the next update."""
-    P = fr.covariance
-    m = P.shape[0]
-    infl = fr.params[0].change_inflation
-    scale = np.ones(m)
-    for i in range(m):
-        for j in range(m):
-            P[i, j] *= infl
-    for i in range(m):
-        prior = fr.parameter_params[i].prior_var
-        if P[i, i] > prior:
-            scale[i] = math.sqrt(prior / P[i, i])
-    for i in range(m):
-        for j in range(m):
-            P[i, j] *= scale[i] * scale[j]
-    s = fr.state[0]
-    s.cusum = 0.0
-    s.pending_change |= reason
-
-
-@kernel
-def filter_reset(fr):
-    """Back to the prior: theta = prior mean, P = diag(prior variance), R = r0 (floored),
-    q^2 = the process variance; windows, CUSUM and sample count cleared. The rejected count is
-    kept."""
-    p, s = fr.params[0], fr.state[0]
-    P = fr.covariance
-    m = P.shape[0]
-    for i in range(m):
-        pp, ps = fr.parameter_params[i], fr.parameters[i]
-        ps.theta = pp.prior_mean
-        ps.process_var = pp.process_var
-        ps.excitation_sum = 0.0
-        for j in range(m):
-            P[i, j] = 0.0
-        P[i, i] = pp.prior_var
-    s.r = max(p.r0, p.r_floor)
-    s.has_update = False
-    s.last_time_s = 0.0
-    s.samples = 0
-    s.fading_power = 1.0
-    s.cusum = 0.0
-    s.z_prev = 0.0
-    s.corr_lag = 0.0
-    s.corr_zero = 0.0
-    s.excitation_weight = 0.0
-    s.pending_change = 0
-    s.pending_g = 0.0
-    s.nis_index = s.nis_count = 0
-    s.nis_sum = 0.0
-    s.match_index = s.match_count = 0
-    s.match_sum = 0.0
-    fr.nis_ring[:] = 0.0
-    fr.match_ring[:] = 0.0
 
 
 @kernel
@@ -386,198 +330,351 @@ def filter_project(theta, P, excited, nonnegative):
 
 
 @kernel
-def filter_update(fr, t, h, f):
-    """One step of the adaptive filter (see :class:`EnvironmentFilter` for the steps): time t
-    (s), regressor h (m,), force f (N).
+def _solve(fr):
+    """theta and P from the sufficient statistics and the noise variance R (step 3)."""
+    pp, ps = fr.parameter_params, fr.parameters
+    s = fr.state[0]
+    G, P = fr.gram, fr.covariance
+    m = G.shape[0]
+    r = s.noise_var
+    A = np.empty((m, m))
+    c = np.empty(m)
+    for i in range(m):
+        for j in range(m):
+            A[i, j] = G[i, j] / r
+        A[i, i] += 1.0 / pp[i].prior_var
+        c[i] = ps[i].force_sum / r + pp[i].prior_mean / pp[i].prior_var
+    inverse = np.linalg.inv(A)
+    for i in range(m):
+        total = 0.0
+        for j in range(m):
+            P[i, j] = 0.5 * (inverse[i, j] + inverse[j, i])
+            total += inverse[i, j] * c[j]
+        ps[i].theta = total
 
-    Returns UPDATED, or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS with the state untouched
-    (the refusal counted in ``state.rejected``). The step's figures are in ``fr.output`` and
-    ``fr.parameter_output``."""
+
+@kernel
+def _noise(fr):
+    """R from the batch residual of the statistics, pooled with the carried-over level."""
+    p, s, ps = fr.params[0], fr.state[0], fr.parameters
+    if not p.learn_noise:
+        s.noise_var = p.measurement_std0 * p.measurement_std0
+        return
+    G = fr.gram
+    m = G.shape[0]
+    sse = s.force_sq_sum
+    for i in range(m):
+        sse -= 2.0 * ps[i].theta * ps[i].force_sum
+        for j in range(m):
+            sse += ps[i].theta * G[i, j] * ps[j].theta
+    dof = s.count - m
+    if dof < 0.0:
+        dof = 0.0
+    if sse < 0.0:   # rounding of a near-perfect fit
+        sse = 0.0
+    s.noise_var = (sse + NOISE_PRIOR_BLOCKS * s.noise_carry) / (dof + NOISE_PRIOR_BLOCKS)
+
+
+@kernel
+def _add_block(fr, t, f, h, decay):
+    """A block into the statistics (after forgetting by ``decay``)."""
+    s, ps = fr.state[0], fr.parameters
+    G = fr.gram
+    m = G.shape[0]
+    if decay != 1.0:
+        for i in range(m):
+            ps[i].force_sum *= decay
+            for j in range(m):
+                G[i, j] *= decay
+        s.count *= decay
+        s.force_sq_sum *= decay
+    for i in range(m):
+        ps[i].force_sum += h[i] * f
+        for j in range(m):
+            G[i, j] += h[i] * h[j]
+    s.count += 1.0
+    s.force_sq_sum += f * f
+
+
+@kernel
+def _clear_statistics(fr):
+    s, ps = fr.state[0], fr.parameters
+    fr.gram[:, :] = 0.0
+    for i in range(ps.shape[0]):
+        ps[i].force_sum = 0.0
+    s.count = 0.0
+    s.force_sq_sum = 0.0
+    s.z_prev = 0.0
+    s.corr_lag = 0.0
+    s.corr_zero = 0.0
+    s.nis_index = s.nis_count = 0
+    s.nis_sum = 0.0
+    s.cusum = 0.0
+
+
+@kernel
+def filter_reset(fr):
+    """Back to the prior: theta = prior mean, P = diag(prior variance), no statistics, no
+    history, the block being gathered dropped. The noise level learned so far is carried over
+    as a prior (a sensor property); the rejected count is kept."""
+    p, s = fr.params[0], fr.state[0]
+    _clear_statistics(fr)
+    s.noise_carry = s.noise_var if s.has_update else p.measurement_std0 * p.measurement_std0
+    s.noise_var = s.noise_carry
+    s.block_count = 0
+    s.block_time_sum = s.block_force_sum = 0.0
+    s.has_row = False
+    s.has_update = False
+    s.samples = 0
+    s.cusum_zero_s = 0.0
+    s.history_index = s.history_count = 0
+    s.pending_change = 0
+    s.pending_g = 0.0
+    pp, ps = fr.parameter_params, fr.parameters
+    P = fr.covariance
+    m = P.shape[0]
+    for i in range(m):
+        ps[i].theta = pp[i].prior_mean
+        ps[i].block_sum = 0.0
+        for j in range(m):
+            P[i, j] = 0.0
+        P[i, i] = pp[i].prior_var
+
+
+@kernel
+def filter_restart(fr, reason):
+    """A new object is expected (a contact regained after a long gap, or asked for): the
+    estimate starts from the prior again; ``reason`` (a CHANGE_* bit) is reported at the next
+    update."""
+    filter_reset(fr)
+    fr.state[0].pending_change |= reason
+
+
+@kernel
+def _window_push(ring, index, count, total, value):
+    """Mean of the last len(ring) values after adding ``value``; returns (mean, index, count,
+    total). The sum is recomputed each time the ring wraps, so rounding errors do not
+    accumulate."""
+    size = ring.shape[0]
+    total += value - ring[index]
+    ring[index] = value
+    index += 1
+    if count < size:
+        count += 1
+    if index == size:
+        index = 0
+        total = np.sum(ring)
+    return total / count, index, count, total
+
+
+@kernel
+def _outputs(fr, t, f, h, y, S, nis, nis_average):
+    """The figures of the update (steps 5 and 6)."""
     p, s, out = fr.params[0], fr.state[0], fr.output[0]
     pp, ps, po = fr.parameter_params, fr.parameters, fr.parameter_output
-    P = fr.covariance
-    m = h.shape[0]
-    # Innovation first: it is non-finite whenever h or f is (NaN and inf propagate through the
-    # dot product), so one test covers all inputs
-    predicted = 0.0
-    for i in range(m):
-        predicted += h[i] * ps[i].theta
-    y = f - predicted
-    if not (math.isfinite(y) and math.isfinite(t)):
-        s.rejected += 1
-        return REJECT_NON_FINITE
-    dt = 0.0
-    if s.has_update:
-        dt = t - s.last_time_s
-        if dt < 0.0:
-            s.rejected += 1
-            return REJECT_TIME_BACKWARDS
-
-    # 1. random-walk prediction (F = I): P += diag(q^2) dt
-    if dt > 0.0:
-        for i in range(m):
-            P[i, i] += ps[i].process_var * dt
-
-    # 2. excitation: exponentially weighted mean square of each regressor
-    decay = math.exp(-dt / p.excitation_window_s)
-    excitation_weight = s.excitation_weight * decay + 1.0
-    excitation_sum = np.empty(m)
-    excited = np.empty(m, np.bool_)
-    all_excited = True
-    for i in range(m):
-        excitation_sum[i] = ps[i].excitation_sum * decay + h[i] * h[i]
-        excited[i] = math.sqrt(excitation_sum[i] / excitation_weight) >= pp[i].excitation_min
-        all_excited = all_excited and excited[i]
-
-    # 3. Schmidt-Kalman update, Joseph form
-    a = np.empty(m)   # P h
-    for i in range(m):
-        acc = 0.0
-        for j in range(m):
-            acc += P[i, j] * h[j]
-        a[i] = acc
-    hph = 0.0
-    for i in range(m):
-        hph += h[i] * a[i]
-    R = s.r
-    S = hph + R
-    k = np.empty(m)
-    if all_excited:
-        for i in range(m):
-            k[i] = a[i] / S
-        # P - K K^T S (= P - P h^T h P / S), exactly symmetric
-        for i in range(m):
-            for j in range(i, m):
-                P[i, j] -= k[i] * a[j]
-                P[j, i] = P[i, j]
-    else:
-        for i in range(m):
-            k[i] = a[i] / S if excited[i] else 0.0
-        # P - (K (Ph)^T + (Ph) K^T) + S K K^T
-        for i in range(m):
-            b = S * k[i]
-            for j in range(i, m):
-                P[i, j] += -(k[i] * a[j] + a[i] * k[j]) + b * k[j]
-                P[j, i] = P[i, j]
-    theta = np.empty(m)
-    for i in range(m):
-        theta[i] = ps[i].theta + k[i] * y
-
-    # 4. non-negativity of the parameters the model declares non-negative
-    violated = False
-    for i in range(m):
-        if pp[i].nonnegative and theta[i] < 0.0:
-            violated = True
-    if violated:
-        filter_project(theta, P, excited, pp.nonnegative)
-    for i in range(m):
-        ps[i].theta = theta[i]
-
-    # 5.-6. noise adaptation
-    nis = y * y / S
-    samples = s.samples
-    if p.noise_adaptation != ADAPT_FIXED or p.process_adaptation != ADAPT_FIXED:
-        fading = p.fading
-        s.fading_power *= fading
-        d = (1.0 - fading) / (1.0 - s.fading_power)
-        if p.noise_adaptation != ADAPT_FIXED:
-            # residual form of Mohamed and Schwarz (1999): g = R (R NIS + h P h^T) / S >= 0
-            g = R * (R * nis + hph) / S
-            if p.noise_adaptation == ADAPT_SAGE_HUSA:
-                r_new = (1.0 - d) * R + d * g
-            else:
-                r_new, s.match_index, s.match_count, s.match_sum = _window_push(
-                    fr.match_ring, s.match_index, s.match_count, s.match_sum, g)
-            s.r = r_new if r_new > p.r_floor else p.r_floor
-        if p.process_adaptation != ADAPT_FIXED and dt > 0.0:
-            # diagonal Sage-Husa: q^2 += d K (y^2 - S) K^T / dt, floored at zero
-            gq = d * (y * y - S) / dt
-            for i in range(m):
-                ps[i].process_var = max(ps[i].process_var + gq * k[i] * k[i], 0.0)
-
-    # 7. NIS average and its chi-square interval
-    nis_avg, s.nis_index, s.nis_count, s.nis_sum = _window_push(
-        fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis)
-
-    # 8. CUSUM change detection (the step reports the variances before an inflation)
-    variance = np.empty(m)
-    for i in range(m):
-        variance[i] = P[i, i]
-    gc = s.cusum + nis - p.change_drift
-    s.cusum = gc if gc > 0.0 else 0.0
-    if gc > p.change_threshold:
-        filter_inflate(fr, CHANGE_CUSUM)
-        s.pending_g = gc
-    out.change = s.pending_change
-    out.change_g = s.pending_g
-    s.pending_change = 0
-
-    for i in range(m):
-        ps[i].excitation_sum = excitation_sum[i]
-    s.excitation_weight = excitation_weight
-    s.has_update = True
-    s.last_time_s = t
-    s.samples = samples + 1
-    # 9. correlated innovations: the standard deviations widened by the AR(1) variance
-    # inflation factor (1 + rho) / (1 - rho) (Box, Jenkins and Reinsel 2008, Sec. 2.1)
-    z = y / math.sqrt(S)
-    s.corr_lag = s.corr_lag * decay + z * s.z_prev
-    s.corr_zero = s.corr_zero * decay + z * z
-    s.z_prev = z
+    P, G = fr.covariance, fr.gram
+    m = P.shape[0]
     inflation = 1.0
     if p.correlation and s.corr_zero > 0.0:
-        rho = min(max(s.corr_lag / s.corr_zero, 0.0), 0.998)
+        rho = min(max(s.corr_lag / s.corr_zero, 0.0), 0.95)
         inflation = (1.0 + rho) / (1.0 - rho)
+    theta = np.empty(m)
+    for i in range(m):
+        theta[i] = ps[i].theta
+    all_true = np.ones(m, np.bool_)
+    nonnegative = np.empty(m, np.bool_)
+    violated = False
+    for i in range(m):
+        nonnegative[i] = pp[i].nonnegative
+        if nonnegative[i] and theta[i] < 0.0:
+            violated = True
+    if violated:
+        filter_project(theta, P, all_true, nonnegative)
+    count = s.count if s.count > 0.0 else 1.0
+    force_rms = math.sqrt(s.force_sq_sum / count)
+    all_excited = True
     all_converged = True
     for i in range(m):
-        v = variance[i]
-        std = math.sqrt(v * inflation) if v > 0.0 else 0.0
         o = po[i]
+        std = math.sqrt(P[i, i] * inflation) if P[i, i] > 0.0 else 0.0
+        h_rms = math.sqrt(G[i, i] / count)
+        scale = abs(theta[i])
+        if h_rms > 0.0:
+            scale = max(scale, FORCE_SHARE * force_rms / h_rms)
         o.value = theta[i]
         o.std = std
-        o.excited = excited[i]
-        o.converged = excited[i] and std < max(pp[i].converged_std, p.converged_rel * abs(theta[i]))
-        all_converged = all_converged and o.converged
-        o.excitation = math.sqrt(excitation_sum[i] / excitation_weight)
+        o.excitation = h_rms
+        o.scale = scale
+        o.excited = (h_rms > 0.0 and std <= p.excited_fraction * scale
+                     and std <= DATA_DETERMINED * pp[i].prior_std)
+        o.converged = o.excited and std <= p.converged_fraction * scale
         o.regressor = h[i]
+        all_excited = all_excited and o.excited
+        all_converged = all_converged and o.converged
     out.time_s = t
     out.force = f
     out.innovation = y
     out.innovation_var = S
     out.nis = nis
-    out.nis_average = nis_avg
+    out.nis_average = nis_average
     out.nis_lower = fr.nis_bounds[s.nis_count].lower
     out.nis_upper = fr.nis_bounds[s.nis_count].upper
-    out.r = R
-    out.samples = samples + 1
+    out.r = s.noise_var
+    out.force_rms = force_rms
+    out.samples = s.samples
     out.all_excited = all_excited
     out.all_converged = all_converged
+
+
+@kernel
+def _rebuild_since(fr, start):
+    """The statistics made again from the kept blocks later than ``start`` s (a change)."""
+    s = fr.state[0]
+    _clear_statistics(fr)
+    size = fr.history_time.shape[0]
+    first = s.history_index - s.history_count
+    for k in range(s.history_count):
+        slot = (first + k) % size
+        if fr.history_time[slot] > start:
+            _add_block(fr, fr.history_time[slot], fr.history_force[slot],
+                       fr.history_regressor[slot], 1.0)
+    _solve(fr)
+
+
+@kernel
+def _use_block(fr, t, f, h):
+    """One block mean (steps 1 to 6)."""
+    p, s, ps = fr.params[0], fr.state[0], fr.parameters
+    P = fr.covariance
+    m = P.shape[0]
+    dt = t - s.last_time_s if s.has_update else 0.0
+    # 1. innovation against the estimate so far
+    predicted = 0.0
+    for i in range(m):
+        predicted += h[i] * ps[i].theta
+    y = f - predicted
+    hph = 0.0
+    for i in range(m):
+        acc = 0.0
+        for j in range(m):
+            acc += P[i, j] * h[j]
+        hph += h[i] * acc
+    S = hph + s.noise_var
+    nis = y * y / S
+    nis_average, s.nis_index, s.nis_count, s.nis_sum = _window_push(
+        fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis)
+    z = y / math.sqrt(S)
+    s.corr_lag += z * s.z_prev
+    s.corr_zero += z * z
+    s.z_prev = z
+    # the block is kept for a possible re-estimation after a change
+    size = fr.history_time.shape[0]
+    slot = s.history_index
+    fr.history_time[slot] = t
+    fr.history_force[slot] = f
+    for i in range(m):
+        fr.history_regressor[slot, i] = h[i]
+    s.history_index = (slot + 1) % size
+    if s.history_count < size:
+        s.history_count += 1
+    # 2. change detection (only once the estimate has something to compare with)
+    g = s.cusum + nis - p.change_drift
+    if g <= 0.0 or s.samples < m:
+        g = 0.0
+        s.cusum_zero_s = t
+    s.cusum = g
+    decay = math.exp(-dt / p.memory_s) if p.memory_s > 0.0 else 1.0
+    if g > p.change_threshold:
+        start = s.cusum_zero_s
+        s.noise_carry = s.noise_var
+        s.pending_change |= CHANGE_CUSUM
+        s.pending_g = g
+        # the estimate starts again from the blocks since the change
+        _rebuild_since(fr, start)
+        _noise(fr)
+        _solve(fr)
+        fr.nis_ring[:] = 0.0
+        s.cusum_zero_s = t
+    else:
+        # 3. the block into the statistics, 4. the noise level, and the estimate
+        _add_block(fr, t, f, h, decay)
+        _solve(fr)
+        _noise(fr)
+        _solve(fr)
+    s.has_update = True
+    s.last_time_s = t
+    s.samples += 1
+    _outputs(fr, t, f, h, y, S, nis, nis_average)
+    out = fr.output[0]
+    out.change = s.pending_change
+    out.change_g = s.pending_g
+    s.pending_change = 0
+
+
+@kernel
+def filter_update(fr, t, h, f):
+    """Add one row (time t s, regressor h (m,), force f N); when its block is complete, use
+    the block's mean (:func:`_use_block`).
+
+    Returns ADDED (the row joined its block), UPDATED (a block was used: the figures are in
+    ``fr.output`` and ``fr.parameter_output``), or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS
+    with the state untouched (the refusal counted in ``state.rejected``)."""
+    p, s, ps = fr.params[0], fr.state[0], fr.parameters
+    m = h.shape[0]
+    total = f + t
+    for i in range(m):
+        total += h[i]
+    if not math.isfinite(total):
+        s.rejected += 1
+        return REJECT_NON_FINITE
+    if s.has_row and t < s.last_row_s:
+        s.rejected += 1
+        return REJECT_TIME_BACKWARDS
+    s.has_row = True
+    s.last_row_s = t
+    if s.block_count == 0:
+        s.block_start_s = t
+    s.block_count += 1
+    s.block_time_sum += t
+    s.block_force_sum += f
+    for i in range(m):
+        ps[i].block_sum += h[i]
+    if t - s.block_start_s < p.block_s:
+        return ADDED
+    n = float(s.block_count)
+    mean_h = np.empty(m)
+    for i in range(m):
+        mean_h[i] = ps[i].block_sum / n
+        ps[i].block_sum = 0.0
+    mean_t, mean_f = s.block_time_sum / n, s.block_force_sum / n
+    s.block_count = 0
+    s.block_time_sum = s.block_force_sum = 0.0
+    _use_block(fr, mean_t, mean_f, mean_h)
     return UPDATED
 
 
 def change_text(bits: int, g: float, threshold: float, text: str = "") -> str:
-    """The ``change`` words of a step from its CHANGE_* bits (``text``: inflations asked for by
-    name through :meth:`EnvironmentFilter.inflate`)."""
+    """The ``change`` words of an update from its CHANGE_* bits (``text``: restarts asked for
+    by name through :meth:`EnvironmentFilter.restart`)."""
     parts = [text] if bits & CHANGE_TEXT and text else []
     if bits & CHANGE_REGAINED:
-        parts.append("contact regained")
+        parts.append("new contact: estimate started again")
     if bits & CHANGE_CUSUM:
-        parts.append(f"innovation CUSUM {g:.1f} > {threshold:g}")
+        parts.append(f"object changed (innovation CUSUM {g:.1f} > {threshold:g}): estimated "
+                     "again from the change on")
     return "; ".join(parts)
 
 
 class FilterStep(NamedTuple):
-    """One record per update; all SI, the parameters in the model's order and units.
+    """One record per block update; all SI, the parameters in the model's order and units.
 
-    theta (m,): estimate. std (m,): standard deviations. innovation: f - h theta_prior, N.
-    innovation_var: S = h P h^T + R, N^2. nis: innovation^2 / S. nis_average: mean NIS over the
-    last filter.nis_window updates. nis_bounds: two-sided 95 % chi-square interval of that
-    average (chi2(n)/n, n the number of updates averaged). measurement_var: R used at this
-    step, N^2. excitation (m,): RMS of each regressor over the excitation window. excited (m,)
-    bool: the parameter was updated at this step. converged (m,) bool: excited and std below
-    its threshold (filter.converged_std or filter.converged_rel_std * |theta|). change: "" or
-    why a change was declared at (or just before) this step. samples: updates since the last
-    reset, this one included.
+    theta (m,): estimate (projected onto the bounds). std (m,): standard deviations.
+    innovation: f - h theta before the block, N. innovation_var: S = h P h^T + R, N^2. nis:
+    innovation^2 / S. nis_average: mean NIS over the last filter.nis_time s. nis_bounds: its
+    two-sided 95 % chi-square interval. measurement_var: R, the noise variance of a block
+    mean, N^2. excitation (m,): RMS of each regressor over the blocks the estimate rests on.
+    excited, converged (m,) bool (see the module docstring). change: "" or why a change was
+    declared at (or just before) this update. samples: blocks since the last reset.
     """
 
     theta: np.ndarray
@@ -604,6 +701,14 @@ def _per_parameter(s: Settings, name: str, model: ObjectModel) -> list[float]:
     return values
 
 
+def _capacities(s: Settings) -> tuple[int, int]:
+    """Blocks held by the NIS window and by the history, from their times in s."""
+    block = max(float(s["filter.update_interval"]), 1e-3)
+    nis = max(1, min(int(math.ceil(float(s["filter.nis_time"]) / block)), 100_000))
+    history = max(2, min(int(math.ceil(float(s["filter.history_time"]) / block)) + 1, 100_000))
+    return nis, history
+
+
 def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     """Write the filter.* settings into the configuration records (checked for cross-setting
     rules; raises SettingsError naming the bad value)."""
@@ -616,28 +721,24 @@ def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
                     f"filter.initial_mean[{i}]: {x!r} {model.parameter_units[i]}"
                     f" ({model.parameter_names[i]}) is negative while filter.nonnegative is"
                     f" true; expected a value >= 0")
+    excited, converged = float(s["filter.excited_fraction"]), float(s["filter.converged_fraction"])
+    if converged > excited:
+        raise SettingsError(f"filter.converged_fraction: {converged!r} is above "
+                            f"filter.excited_fraction ({excited!r}); expected a value <= it")
     p = fr.params[0]
+    p["block_s"] = float(s["filter.update_interval"])
     p["measurement_std0"] = float(s["filter.measurement_std"])
-    p["r0"] = float(s["filter.measurement_std"]) ** 2
-    p["r_floor"] = float(s["filter.measurement_std_floor"]) ** 2
-    p["noise_adaptation"] = _ADAPTATION[s["filter.noise_adaptation"]]
-    p["fading"] = float(s["filter.fading_factor"])
-    p["process_adaptation"] = _ADAPTATION[s["filter.process_adaptation"]]
+    p["learn_noise"] = bool(s["filter.learn_noise"])
+    p["memory_s"] = float(s["filter.memory"])
     p["change_threshold"] = float(s["filter.change_threshold"])
     p["change_drift"] = float(s["filter.change_drift"])
-    p["change_inflation"] = float(s["filter.change_inflation"])
-    p["excitation_window_s"] = float(s["filter.excitation_window"])
-    p["converged_rel"] = float(s["filter.converged_rel_std"])
+    p["excited_fraction"] = excited
+    p["converged_fraction"] = converged
     p["correlation"] = bool(s["filter.correlation_correction"])
-    p["nis_window"] = int(s["filter.nis_window"])
-    p["matching_window"] = int(s["filter.matching_window"])
     pp = fr.parameter_params
     pp["prior_mean"] = mean
     pp["prior_std"] = _per_parameter(s, "filter.initial_std", model)
     pp["prior_var"] = np.square(pp["prior_std"])
-    pp["process_var"] = np.square(_per_parameter(s, "filter.process_std", model))
-    pp["excitation_min"] = _per_parameter(s, "filter.excitation_min", model)
-    pp["converged_std"] = _per_parameter(s, "filter.converged_std", model)
     pp["nonnegative"] = [nonnegative and x for x in model.nonnegative]
 
 
@@ -646,76 +747,32 @@ def new_records(s: Settings, model: ObjectModel,
     """Records for ``model`` configured from ``s`` and reset to the prior: the filter's own, or
     ``views`` (the Pipeline's storage) with windows sized for ``s``."""
     m = model.size
-    n, w = int(s["filter.nis_window"]), int(s["filter.matching_window"])
+    nis, history = _capacities(s)
+    windows = dict(nis_bounds=nis_bounds_table(nis), nis_ring=np.zeros(nis),
+                   history_time=np.zeros(history), history_force=np.zeros(history),
+                   history_regressor=np.zeros((history, m)))
     if views is None:
         fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(),
-                           PARAMETERS.many(m), np.zeros((m, m)), nis_bounds_table(n),
-                           np.zeros(n), np.zeros(w), OUTPUT.one(), PARAMETER_OUTPUT.many(m))
+                           PARAMETERS.many(m), np.zeros((m, m)), np.zeros((m, m)),
+                           output=OUTPUT.one(), parameter_output=PARAMETER_OUTPUT.many(m),
+                           **windows)
     else:
-        fr = views._replace(nis_bounds=nis_bounds_table(n), nis_ring=np.zeros(n),
-                            match_ring=np.zeros(w))
+        fr = views._replace(**windows)
     configure(fr, s, model)
     filter_reset(fr)
     return fr
 
 
 class EnvironmentFilter:
-    """Adaptive Kalman filter on the parameters theta of an object model (default: along the
-    direction, theta = [mass kg, damping N·s/m, stiffness N/m, static_force N]).
+    """The object's parameters theta of an object model (default: along the direction,
+    theta = [mass kg, damping N·s/m, stiffness N/m, static_force N]); see the module docstring
+    for the method.
 
-    Call :meth:`update` once per sample with the time t (s), the regressor h (m,) (for the
-    default model [x'' m/s^2, x' m/s, x m, 1]) and the force f (N); it returns a
-    :class:`FilterStep`. The filter reads only the ``filter.*`` settings.
-
-    Per update (:func:`filter_update`, compiled):
-
-    1. Prediction of the random walk: P += diag(q^2) * dt, dt = t - t_prev (0 for the first).
-    2. Excitation: exponentially weighted mean of h_i^2 with per-sample forgetting
-       exp(-dt / filter.excitation_window); parameter i is excited when the RMS is at least
-       filter.excitation_min[i].
-    3. Update with a Schmidt-Kalman ("consider") gain (Schmidt 1966; Simon, Optimal State
-       Estimation, 2006, sec. 7.4): innovation y = f - h theta, S = h P h^T + R with the full h,
-       K = P h^T / S with the entries of not-excited parameters set to zero. Those parameters
-       are thus not updated and keep their prior, while their uncertainty still enters S (so
-       the NIS stays consistent). The covariance update
-       P+ = P - K h P - P h^T K^T + S K K^T is the Joseph form (Bucy and Joseph 1968), valid
-       for this sub-optimal gain; with every parameter excited it is the ordinary Kalman update.
-    4. Non-negativity (filter.nonnegative, for the parameters the model declares non-negative):
-       a negative estimate is projected onto the constraint, minimising
-       (x - theta)^T P^-1 (x - theta) over the excited parameters subject to the bounds (an
-       active-set iteration, see :func:`filter_project`; Simon and Chia, "Kalman filtering with
-       state equality constraints", IEEE TAES 2002; Simon, "Kalman filtering with state
-       constraints: a survey of linear and nonlinear algorithms", IET Control Theory Appl.
-       2010, estimate projection). P is not changed.
-    5. Measurement noise R (filter.noise_adaptation). The classic Sage-Husa estimate
-       R_k = (1 - d_k) R_{k-1} + d_k (y^2 - h P h^T), with d_k = (1 - b) / (1 - b^(k+1)) and
-       fading factor b (Sage and Husa 1969), can go negative. We use instead the residual form
-       (Mohamed and Schwarz, "Adaptive Kalman filtering for INS/GPS", J. Geodesy 1999):
-       R = E[r^2] + h P+ h^T with r the post-fit residual, a sum of non-negative terms. It is
-       evaluated for the full (every parameter updated) gain, for which r = (R/S) y and
-       h P+ h^T = R h P h^T / S, so the sample is g = R (R * NIS + h P h^T) / S >= 0, with
-       E[g] = R when R is right. 'sage_husa': R_k = (1 - d_k) R_{k-1} + d_k g_k. 'matching':
-       R_k = mean of g over the last filter.matching_window samples, covariance matching
-       (Mehra, "Approaches to adaptive filtering", IEEE TAC 1972) in the same form. R is
-       floored at filter.measurement_std_floor^2.
-    6. Process noise (filter.process_adaptation 'sage_husa'): with F = I the Sage-Husa
-       estimate Q_k = (1 - d_k) Q_{k-1} + d_k (K y^2 K^T + P_k - P_{k-1}) equals
-       Q_{k-1} + d_k K (y^2 - S) K^T; only its diagonal is kept, divided by dt to give the
-       intensity q^2 (per second), and floored at zero. Parameters that are not excited have
-       K_i = 0 and keep their q.
-    7. NIS y^2/S, its mean over the last filter.nis_window updates and the two-sided 95 %
-       chi-square interval of that mean (Bar-Shalom, Li and Kirubarajan, Estimation with
-       Applications to Tracking and Navigation, 2001, sec. 5.4).
-    8. Change detection: one-sided CUSUM g = max(0, g + NIS - filter.change_drift) (Page,
-       "Continuous inspection schemes", Biometrika 1954); when g exceeds
-       filter.change_threshold a change is declared, the covariance is inflated by
-       filter.change_inflation and g restarts from zero.
-    9. Correlated innovations: the force passes through the observer and the regressor
-       through the differentiator, so neighbouring residuals are correlated and P (which
-       assumes white noise) is too small. The standard deviations are widened by the AR(1)
-       variance inflation factor (1 + rho) / (1 - rho), rho the lag-1 autocorrelation of the
-       normalized innovations over the excitation window (effective sample size n (1 - rho)
-       / (1 + rho); Box, Jenkins and Reinsel, Time Series Analysis, 4th ed. 2008, Sec. 2.1).
+    Call :meth:`update` once per measurement row with the time t (s), the regressor h (m,) (for
+    the default model [x'' m/s^2, x' m/s, x m, 1]) and the force f (N); rows are gathered into
+    blocks of ``filter.update_interval`` s, and :meth:`update` returns the :class:`FilterStep` of
+    the last block used (None before the first). The filter reads only the ``filter.*``
+    settings.
 
     Bad input (non-finite t, h or f; time going backwards) raises
     :class:`~interaction_estimator.core.samples.SampleRejected`, is counted in
@@ -728,7 +785,7 @@ class EnvironmentFilter:
         self.records = new_records(settings, model, views)
         self._change_threshold = float(settings["filter.change_threshold"])
         self._resets = 0
-        self._text = ""            # pending inflation reasons asked for by name
+        self._text = ""            # pending restart reasons asked for by name
         self._last: FilterStep | None = None
         self._last_key: tuple[int, int] | None = None
         self.reset("start")
@@ -737,59 +794,42 @@ class EnvironmentFilter:
     # state handling
 
     def reset(self, reason: str = "reset") -> None:
-        """Back to the prior: theta = filter.initial_mean, P = diag(filter.initial_std^2),
-        R = filter.measurement_std^2, q = filter.process_std; windows, CUSUM and sample count
-        cleared. The rejected count is kept."""
+        """Back to the prior (filter.initial_mean, filter.initial_std); the noise level learned
+        so far is kept as a prior; the rejected count is kept."""
         filter_reset(self.records)
         self.reset_reason = reason   # why the filter last started from its prior
         self._resets += 1
         self._text = ""
         self._last, self._last_key = None, None
 
-    def inflate(self, reason: str) -> None:
-        """Multiply the covariance by filter.change_inflation (used when the contact starts
-        again or a new object is expected) and report ``reason`` in the next step's ``change``.
-
-        No parameter's variance is taken beyond its prior variance: rows and columns whose
-        variance would exceed it are scaled down together (P -> D P D, D diagonal), which keeps
-        P positive semi-definite and the correlations unchanged."""
-        filter_inflate(self.records, CHANGE_TEXT)
+    def restart(self, reason: str) -> None:
+        """A new object is expected: the estimate starts from the prior again, and ``reason`` is
+        reported in the next step's ``change``."""
+        filter_restart(self.records, CHANGE_TEXT)
         self._text = f"{self._text}; {reason}" if self._text else reason
 
     def update_settings(self, settings: Settings) -> None:
         """Apply new filter.* settings at run time without losing the estimate.
 
-        theta, P, the adapted R and q, the CUSUM and the excitation are kept. A new
-        filter.measurement_std takes effect at once when noise_adaptation is 'fixed', a new
-        filter.process_std when process_adaptation is 'fixed'. A changed nis_window or
-        matching_window restarts that window. The prior (initial_mean, initial_std) is used at
-        the next reset. Raises SettingsError (state untouched) for a bad combination."""
+        The statistics, the estimate and the noise level are kept. A changed filter.nis_time
+        restarts the NIS window, a changed filter.history_time or filter.update_interval the
+        block history. The prior (initial_mean, initial_std) is used at the next reset. Raises
+        SettingsError (state untouched) for a bad combination."""
         old = self.records
         new = new_records(settings, self.model)   # checks everything before anything changes
-        p_old, p_new = old.params[0], new.params[0]
         s = old.state[0]
-        nis_ring, nis_bounds, match_ring = old.nis_ring, old.nis_bounds, old.match_ring
-        if p_new["nis_window"] != p_old["nis_window"]:
-            nis_ring, nis_bounds = new.nis_ring, new.nis_bounds
+        keep: dict[str, np.ndarray] = {}
+        if new.nis_ring.shape != old.nis_ring.shape:
             s["nis_index"] = s["nis_count"] = 0
             s["nis_sum"] = 0.0
-        if p_new["matching_window"] != p_old["matching_window"]:
-            match_ring = new.match_ring
-            s["match_index"] = s["match_count"] = 0
-            s["match_sum"] = 0.0
-        if p_new["noise_adaptation"] == ADAPT_FIXED:
-            s["r"] = max(p_new["r0"], p_new["r_floor"])
-        else:
-            s["r"] = max(s["r"], p_new["r_floor"])
-        if p_new["process_adaptation"] == ADAPT_FIXED:
-            old.parameters["process_var"] = new.parameter_params["process_var"]
-        if p_new["fading"] != p_old["fading"]:
-            # keeps d_k = (1-b)/(1-b^(k+1))
-            s["fading_power"] = p_new["fading"] ** s["samples"]
+            keep.update(nis_bounds=new.nis_bounds, nis_ring=new.nis_ring)
+        if new.history_time.shape != old.history_time.shape:
+            s["history_index"] = s["history_count"] = 0
+            keep.update(history_time=new.history_time, history_force=new.history_force,
+                        history_regressor=new.history_regressor)
         old.params[:] = new.params
         old.parameter_params[:] = new.parameter_params
-        self.records = old._replace(nis_bounds=nis_bounds, nis_ring=nis_ring,
-                                    match_ring=match_ring)
+        self.records = old._replace(**keep)
         self._change_threshold = float(settings["filter.change_threshold"])
 
     # ----------------------------------------------------------------------------------------
@@ -797,7 +837,8 @@ class EnvironmentFilter:
 
     @property
     def theta(self) -> np.ndarray:
-        """(m,) current estimate, in the model's units (a copy)."""
+        """(m,) current estimate, in the model's units, before the non-negativity projection
+        (a copy)."""
         return self.records.parameters["theta"].copy()
 
     @property
@@ -807,22 +848,17 @@ class EnvironmentFilter:
 
     @property
     def measurement_var(self) -> float:
-        """Current measurement-noise variance R, N^2."""
-        return float(self.records.state[0]["r"])
-
-    @property
-    def process_std(self) -> np.ndarray:
-        """(m,) current random-walk intensity (parameter unit per square root of a second)."""
-        return np.sqrt(self.records.parameters["process_var"])
+        """Current noise variance R of a block mean, N^2."""
+        return float(self.records.state[0]["noise_var"])
 
     @property
     def samples(self) -> int:
-        """Updates since the last reset."""
+        """Blocks used since the last reset."""
         return int(self.records.state[0]["samples"])
 
     @property
     def rejected(self) -> int:
-        """Updates refused (non-finite input, time going backwards) since start."""
+        """Rows refused (non-finite input, time going backwards) since start."""
         return int(self.records.state[0]["rejected"])
 
     @property
@@ -831,13 +867,13 @@ class EnvironmentFilter:
 
     @property
     def last(self) -> FilterStep | None:
-        """The :class:`FilterStep` of the last update (None before the first one after a
-        reset); the same object until the next update."""
+        """The :class:`FilterStep` of the last block used (None before the first one after a
+        reset); the same object until the next block."""
         n = self.samples
         if n == 0:
             return None
         if self._last_key != (self._resets, n):
-            self._last = self._step(self._text)
+            self._last = self._step("")
             self._last_key = (self._resets, n)
         return self._last
 
@@ -856,12 +892,12 @@ class EnvironmentFilter:
     # the update
 
     def refusal(self, code: int, t: float, h: np.ndarray, f: float) -> SampleRejected:
-        """The SampleRejected naming the bad input of an update the compiled code refused."""
+        """The SampleRejected naming the bad input of a row the compiled code refused."""
         if code == REJECT_TIME_BACKWARDS:
             return SampleRejected(
                 "time_backwards",
                 f"environment filter: t = {t:.6f} s is older than the previous "
-                f"{float(self.records.state[0]['last_time_s']):.6f} s")
+                f"{float(self.records.state[0]['last_row_s']):.6f} s")
         if not math.isfinite(t):
             return SampleRejected("non_finite_output", f"environment filter: time t is {t!r} s")
         for i, label in enumerate(self.model.regressor_labels):
@@ -869,21 +905,15 @@ class EnvironmentFilter:
                 return SampleRejected(
                     "non_finite_output",
                     f"environment filter: regressor {label} is {float(h[i])!r}")
-        if not math.isfinite(f):
-            return SampleRejected("non_finite_output", f"environment filter: force f is {f!r} N")
-        return SampleRejected(
-            "non_finite_output",
-            f"environment filter: predicted force h theta overflowed for h = "
-            f"{[float(v) for v in h]} and theta = {self.theta.tolist()}")
+        return SampleRejected("non_finite_output", f"environment filter: force f is {f!r} N")
 
-    def update(self, t: float, h, f: float) -> FilterStep:
-        """One filter step.
-
-        t: time in s (must not decrease); h: (m,) regressor (for the default model [x'' m/s^2,
-        x' m/s, x m, 1]); f: force along the direction, N. Returns the :class:`FilterStep` (also
-        kept in :attr:`last`). Raises SampleRejected('non_finite_output') for a non-finite t, h
-        or f and SampleRejected('time_backwards') when t is older than the previous update; the
-        state is then untouched and :attr:`rejected` counts it.
+    def update(self, t: float, h, f: float) -> FilterStep | None:
+        """Add one row: t: time in s (must not decrease); h: (m,) regressor (for the default
+        model [x'' m/s^2, x' m/s, x m, 1]); f: force along the direction, N. Returns the
+        :class:`FilterStep` of the last block used (also kept in :attr:`last`), None before the
+        first. Raises SampleRejected('non_finite_output') for a non-finite t, h or f and
+        SampleRejected('time_backwards') when t is older than the previous row; the state is
+        then untouched and :attr:`rejected` counts it.
         """
         h = np.array(h, dtype=float)
         if h.shape != (self.model.size,):
@@ -891,12 +921,14 @@ class EnvironmentFilter:
                              f"({self.model.size},) = {list(self.model.regressor_labels)}")
         t, f = float(t), float(f)
         code = filter_update(self.records, t, h, f)
-        if code != UPDATED:
+        if code == UPDATED:
+            step = self._step(self._text)
+            self._text = ""
+            self._last, self._last_key = step, (self._resets, self.samples)
+            return step
+        if code != ADDED:
             raise self.refusal(code, t, h, f)
-        step = self._step(self._text)
-        self._text = ""
-        self._last, self._last_key = step, (self._resets, self.samples)
-        return step
+        return self.last
 
     @staticmethod
     def _project(theta, P, excited, nonnegative=(True, True, True, False)) -> list[float]:

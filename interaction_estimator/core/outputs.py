@@ -49,7 +49,7 @@ SAMPLE = record(
     ("change", I8, "", "environment.CHANGE_* bits of this sample's filter update"),
     ("change_g", F8, "", "the CUSUM value of a CUSUM change"),
     ("observer_restarts", I8, "", "observer restarts so far"),
-    ("filter_code", I1, "", "FILTER_NOT_UPDATED, environment.UPDATED or its refusal code"),
+    ("filter_code", I1, "", "FILTER_NOT_UPDATED, environment.ADDED, UPDATED or a refusal code"),
     ("filter_time_s", F8, "s", "time of the filter's measurement row (window centre)"),
     ("filter_force", F8, "N", "force of that row"),
     ("regained", B1, "", "a contact began after one had ended: the covariance was inflated"),

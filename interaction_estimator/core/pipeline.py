@@ -110,7 +110,8 @@ class Pipeline:
         noise_tc = s["contact.noise_time_constant"]
         contact_settings = (s["contact.enter_level"], s["contact.exit_level"],
                             s["contact.hold_time"], s["contact.noise_floor"], noise_tc,
-                            s["contact.release_time"], min(_LEARN_INTERVAL, noise_tc / 20.0))
+                            s["contact.release_time"], min(_LEARN_INTERVAL, noise_tc / 20.0),
+                            s["contact.evidence"])
         if getattr(self, "contact", None) is None:
             self.contact = ContactMonitor(nv, *contact_settings,
                                           records=storage.contact_views(st))
@@ -147,7 +148,8 @@ class Pipeline:
         ring, coefficients = ((kin.ring, kin.coefficients) if kin is not None
                               else self._storage[-2:])
         self._storage = self._storage._replace(
-            nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, match_ring=fr.match_ring,
+            nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, history_time=fr.history_time,
+            history_force=fr.history_force, history_regressor=fr.history_regressor,
             ring=ring, coefficients=coefficients)
 
     def apply_settings(self, settings: Settings) -> None:
@@ -360,15 +362,15 @@ class Pipeline:
 
     # --- what the last sample did inside (for the tuning command) ---------------------------
     def filter_input(self) -> tuple[float, tuple[float, ...], float, np.ndarray] | None:
-        """The environment filter's update at the last processed sample, or None when the
-        filter was not updated then: (t s, h (m,) the measurement row's regressor, f N,
+        """The environment filter's block update at the last processed sample, or None when no
+        block was used then: (t s, h (m,) the block's mean regressor, f N its mean force,
         excited (m,) bool)."""
-        o = self._out
-        if o["filter_code"][0] != UPDATED:
+        if self._out["filter_code"][0] != UPDATED:
             return None
-        return (float(o["filter_time_s"][0]),
-                tuple(self._model_records.row["regressor"].tolist()),
-                float(o["filter_force"][0]), self._out_params["excited"].copy())
+        fr = self.filter.records
+        return (float(fr.output["time_s"][0]),
+                tuple(fr.parameter_output["regressor"].tolist()),
+                float(fr.output["force"][0]), fr.parameter_output["excited"].copy())
 
     def last_regained(self) -> bool:
         """True when the last processed sample began a contact after one that had ended (the

@@ -172,6 +172,10 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("contact.hold_time", 0.02, "s",
        "The level must stay above contact.enter_level this long before contact begins.",
        0.0, 10.0),
+    _f("contact.evidence", 0.5, "s",
+       "Contact also begins, sooner, when the time integral of level^2 - exit_level^2 (a"
+       " CUSUM of the residual's evidence) exceeds this: about 20 ms at level 6, 80 ms at level"
+       " 4. 0: off (the level rule alone).", 0.0, 1e6),
     _f("contact.release_time", 1.0, "s",
        "The level must stay below contact.exit_level this long before contact ends (a held"
        " object's force passes through zero briefly without ending the contact).", 0.0, 60.0),
@@ -204,60 +208,48 @@ SPECS: tuple[ParamSpec, ...] = (
     _fa("filter.initial_mean", [0.0, 0.0, 0.0, 0.0], "kg, N·s/m, N/m, N",
         "Prior of [mass, damping, stiffness, static_force]. With filter.nonnegative the first"
         " three must not be negative.", -1e6, 1e6, length=4),
-    _fa("filter.initial_std", [20.0, 100.0, 1000.0, 100.0], "kg, N·s/m, N/m, N",
-        "Prior standard deviation of [mass, damping, stiffness, static_force]; a parameter the"
-        " motion does not excite keeps this prior.", 1e-9, 1e9, length=4),
-    _fa("filter.process_std", [0.01, 0.1, 1.0, 0.1], "kg/√s, N·s/m/√s, N/m/√s, N/√s",
-        "Random-walk intensity of each parameter (how fast it may change): the process noise"
-        " over dt seconds is diag(process_std^2) * dt. Start value when filter.process_adaptation"
-        " is 'sage_husa'.", 0.0, 1e6, length=4),
+    _fa("filter.initial_std", [50.0, 500.0, 5000.0, 200.0], "kg, N·s/m, N/m, N",
+        "Prior standard deviation of [mass, damping, stiffness, static_force]: wide enough for"
+        " any object the robot may meet; what the motion does not tell stays at this prior.",
+        1e-9, 1e9, length=4),
+    _f("filter.update_interval", 0.1, "s",
+       "The measurement rows are averaged over blocks this long before the estimate uses them:"
+       " the force's error is coloured over a few tens of milliseconds, the means of longer"
+       " blocks are nearly independent, so the noise level is learned honestly at any sample"
+       " rate. 0: every row is a block.", 0.0, 10.0),
     _f("filter.measurement_std", 2.0, "N",
-       "Standard deviation of the force measurement along the direction: fixed value, or start"
-       " value of the adaptation.", 1e-6, 1e6),
-    _f("filter.measurement_std_floor", 0.01, "N",
-       "The adapted measurement standard deviation is never taken below this value.",
-       1e-6, 1e6),
-    _s("filter.noise_adaptation", "sage_husa",
-       "Measurement-noise adaptation: 'sage_husa' (fading-memory Sage-Husa), 'matching'"
-       " (covariance matching over filter.matching_window samples) or 'fixed'. Both adaptive"
-       " forms use the post-fit residual, which keeps the estimate positive.",
-       choices=("sage_husa", "matching", "fixed")),
-    _f("filter.fading_factor", 0.998, "",
-       "Sage-Husa fading factor b in (0, 1); memory about 1/(1-b) samples.", 0.0, 1.0,
-       exclusive=True),
-    _i("filter.matching_window", 500, "samples",
-       "Window of the covariance-matching estimator.", 2, 100000),
-    _s("filter.process_adaptation", "fixed",
-       "Process-noise adaptation: 'fixed' (from filter.process_std) or 'sage_husa' (diagonal"
-       " Sage-Husa estimate with fading factor filter.fading_factor, floored at zero).",
-       choices=("fixed", "sage_husa")),
-    _i("filter.nis_window", 1000, "samples",
-       "Window over which the normalized innovation squared (NIS) is averaged and compared"
-       " with its two-sided 95 % chi-square interval.", 1, 100000),
-    _f("filter.change_threshold", 100.0, "",
-       "CUSUM threshold on the normalized innovation squared above which a change is declared.",
-       0.0, 1e9, exclusive=True),
+       "Noise level of a block's mean force to start from; learned from the residuals when"
+       " filter.learn_noise is true (this value then weighs as a few blocks).", 1e-6, 1e6),
+    _b("filter.learn_noise", True,
+       "Learn the noise level from the residuals of the fit (else filter.measurement_std is"
+       " used as it is)."),
+    _f("filter.memory", 0.0, "s",
+       "Forgetting time of the data behind the estimate; 0: nothing is forgotten (a stationary"
+       " object; changes are detected by filter.change_threshold instead).", 0.0, 1e6),
+    _f("filter.change_threshold", 20.0, "",
+       "CUSUM threshold on the normalized innovation squared of the blocks above which the"
+       " object is taken to have changed (the estimate is then made again from the blocks"
+       " since the change).", 0.0, 1e9, exclusive=True),
     _f("filter.change_drift", 2.0, "",
-       "CUSUM drift subtracted from each NIS before accumulating (1 is the NIS mean).",
+       "CUSUM drift subtracted from each block's NIS before accumulating (1 is the NIS mean).",
        0.0, 1e6),
-    _f("filter.change_inflation", 10.0, "",
-       "Covariance is multiplied by this factor when a change is declared (or the contact"
-       " starts again); no variance is taken beyond its prior.", 1.0, 1e12),
-    _f("filter.excitation_window", 2.0, "s",
-       "Window (exponential forgetting time) of the excitation measure.", 1e-3, 3600.0),
-    _fa("filter.excitation_min", [0.05, 0.02, 0.005, 0.5], "m/s^2, m/s, m, 1",
-        "RMS of each regressor [x'', x', x, 1] over the window below which that parameter"
-        " counts as not excited: it is then not updated and keeps its prior.", 0.0, 1e9,
-        length=4),
-    _fa("filter.converged_std", [0.2, 1.0, 5.0, 0.5], "kg, N·s/m, N/m, N",
-        "A parameter is converged when its standard deviation is below this value (or below"
-        " filter.converged_rel_std of its magnitude) and it is excited.", 0.0, 1e9, length=4),
-    _f("filter.converged_rel_std", 0.05, "",
-       "Relative standard deviation below which a parameter counts as converged.", 0.0, 10.0),
+    _f("filter.history_time", 5.0, "s",
+       "Blocks kept for estimating again after a change.", 0.1, 600.0),
+    _f("filter.nis_time", 5.0, "s",
+       "Time over which the blocks' normalized innovation squared (NIS) is averaged and"
+       " compared with its two-sided 95 % chi-square interval.", 0.1, 3600.0),
+    _f("filter.excited_fraction", 0.25, "",
+       "A parameter is excited when its standard deviation is below this share of its scale"
+       " (the larger of its value and the value whose force would be 5 % of the RMS force)"
+       " and below half its prior standard deviation.", 1e-6, 10.0),
+    _f("filter.converged_fraction", 0.025, "",
+       "A parameter has converged when its standard deviation is below this share of its"
+       " scale (see filter.excited_fraction): a verdict on what its uncertainty does to the"
+       " force, the same for every object.", 1e-6, 10.0),
     _b("filter.nonnegative", True, "Keep mass, damping and stiffness non-negative."),
     _b("filter.correlation_correction", True,
        "Widen the reported standard deviations by the variance inflation factor of correlated"
-       " innovations (the observer and the differentiator colour the noise)."),
+       " innovations of neighbouring blocks."),
     # --- health ---------------------------------------------------------------------------
     _f("health.max_latency", 0.01, "s",
        "Processing latency above which the status warns.", 0.0, 10.0),
@@ -285,6 +277,34 @@ SPECS: tuple[ParamSpec, ...] = (
 )
 
 SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in SPECS}
+
+# Settings of earlier versions, with what replaces them (a file that still sets one is refused
+# with this message rather than read with a changed meaning).
+RETIRED: dict[str, str] = {
+    "filter.process_std": "a stationary object is no longer forgotten: changes are detected"
+    " (filter.change_threshold); for an object that drifts, set filter.memory (s)",
+    "filter.measurement_std_floor": "the noise level is learned from the fit's residuals"
+    " (filter.learn_noise)",
+    "filter.noise_adaptation": "the noise level is learned from the fit's residuals"
+    " (filter.learn_noise)",
+    "filter.fading_factor": "the noise level is learned from the fit's residuals"
+    " (filter.learn_noise); forgetting is filter.memory, in seconds",
+    "filter.matching_window": "windows are in seconds now; the noise level is learned from the"
+    " fit's residuals (filter.learn_noise)",
+    "filter.process_adaptation": "a stationary object is no longer forgotten: see"
+    " filter.memory (s) and filter.change_threshold",
+    "filter.nis_window": "windows are in seconds now: use filter.nis_time (s)",
+    "filter.change_inflation": "after a change the estimate is made again from the blocks since"
+    " the change (filter.history_time, s)",
+    "filter.excitation_window": "excitation is judged over the data the estimate rests on; see"
+    " filter.excited_fraction",
+    "filter.excitation_min": "excitation is judged by what a parameter's uncertainty does to the"
+    " force, not by thresholds in m/s: use filter.excited_fraction",
+    "filter.converged_std": "convergence is judged by what a parameter's uncertainty does to the"
+    " force, not by thresholds in kg or N/m: use filter.converged_fraction",
+    "filter.converged_rel_std": "use filter.converged_fraction (a share of the parameter's"
+    " scale)",
+}
 
 
 def _is_number(value: Any) -> bool:
@@ -358,6 +378,8 @@ def validate_value(name: str, value: Any) -> Any:
 
 
 def unknown_name_message(name: str) -> str:
+    if name in RETIRED:
+        return f"setting {name!r} is no longer used: {RETIRED[name]}"
     close = difflib.get_close_matches(name, SPEC_BY_NAME, n=3)
     hint = f"; did you mean {', '.join(close)}?" if close else ""
     return f"unknown setting {name!r}{hint} (see config/default.yaml for the full list)"

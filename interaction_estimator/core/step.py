@@ -114,13 +114,17 @@ def monitor(st, t, dt):
     residual = np.empty(nv)
     for j in range(nv):
         residual[j] = joints[j].pipeline.residual
-    level, event = contact.contact_step(cp, cs, cj, t, residual)
+    level, event = contact.contact_step(cp, cs, cj, t, dt, residual)
     if cs.in_contact:
+        if event == contact.EVENT_BEGIN:
+            # what was learned since the contact's likely onset was contact force: taken back
+            contact.take_back(cp, cs, cj, bj, cs.onset_s)
         return PHASE_CONTACT, event, level
-    # learn only from quiet free motion: a residual above the exit level may be a contact
-    # building up, and must not be learned as bias or noise; nor right after a contact ended
-    # (it may resume: a held object's force passing through zero)
-    if (not cs.pending and level < cp.exit_level
+    # learn only from quiet free motion: a residual above the exit level, or evidence of a
+    # contact building up, may be contact force, and must not be learned as bias or noise; nor
+    # right after a contact ended (it may resume: a held object's force passing through zero)
+    contact.snapshot(cp, cs, cj, bj, t)
+    if (not cs.pending and level < cp.exit_level and cs.evidence_g == 0.0
             and t - s.contact_end_s > st.params[0].pipeline.forget_after_s):
         compensation.bias_update(bp, bs, bj, t, dt, raw)
         for j in range(nv):
@@ -189,7 +193,7 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
             kinematics.kinematics_start_contact(ks, ring, s.quiet_position_m)
             st.state[0].model.filtered = False
             if s.ever_contact:
-                environment.filter_inflate(_filter(st), environment.CHANGE_REGAINED)
+                environment.filter_restart(_filter(st), environment.CHANGE_REGAINED)
                 out.regained = True
         else:
             event = EV_RESUMED
@@ -197,7 +201,7 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
     kinematics.kinematics_push(kp, ks, ring, st.coefficients, t, dx, velocity_along,
                                force_along)
     if phase != PHASE_CONTACT:
-        if level < st.params[0].contact.exit_level:
+        if st.state[0].contact.onset_g == 0.0:   # no contact under way: x starts here
             s.quiet_position_m = ks.position_m
     else:
         full, acc, vel, pos, force, time = kinematics.kinematics_centre(kp, ks, ring)
@@ -212,6 +216,8 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
             out.filter_force = force
             code = environment.filter_update(_filter(st), time, h, force)
             out.filter_code = code
+            if code == environment.ADDED:   # the row joined its block
+                return _kinematics_out(out, kp, ks, event)
             if code != environment.UPDATED:
                 return event, STEP_FILTER_REFUSED
             fo = st.state[0].filter_output
@@ -219,6 +225,11 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
             out.change_g = fo.change_g
             if fo.change != 0:
                 event = EV_CHANGE
+    return _kinematics_out(out, kp, ks, event)
+
+
+@kernel
+def _kinematics_out(out, kp, ks, event):
     out.position_along = ks.position_m
     out.acceleration_along = ks.acceleration
     out.kinematics_lag_s = kp.half * kp.nominal_dt_s
@@ -292,8 +303,9 @@ def _filter(st):
     """The environment filter's records (views of the storage), as its functions take them."""
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
-        st.parameters["filter"], st.covariance, st.nis_bounds, st.nis_ring, st.match_ring,
-        st.state["filter_output"], st.parameters["filter_output"])
+        st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
+        st.history_time, st.history_force, st.history_regressor, st.state["filter_output"],
+        st.parameters["filter_output"])
 
 
 @kernel

@@ -11,8 +11,8 @@ matters: 36 stage arrays cost the step call several microseconds):
 - ``joints`` (nv,) :data:`JOINT`: every stage's per-joint records;
 - ``parameters`` (m,) :data:`PARAMETER`: the environment filter's and the object model's
   per-parameter records;
-- the arrays whose size is not nv or m: the filter's covariance (m, m), NIS table and windows,
-  the kinematics ring buffer and coefficients.
+- the arrays whose size is not nv or m: the filter's Gram matrix and covariance (m, m), NIS
+  table and window, block history, the kinematics ring buffer and coefficients.
 
 A stage object holds views of its fields (``params["observer"]`` is a (1,) array of the
 observer's parameters record, sharing memory), so the object's methods and the compiled step
@@ -96,10 +96,13 @@ class Storage(NamedTuple):
     state: np.ndarray          # (1,) STATE
     joints: np.ndarray         # (nv,) JOINT
     parameters: np.ndarray     # (m,) PARAMETER
-    covariance: np.ndarray     # (m, m) the environment filter's P
-    nis_bounds: np.ndarray     # (nis_window + 1,) environment.NIS_BOUNDS
-    nis_ring: np.ndarray       # (nis_window,)
-    match_ring: np.ndarray     # (matching_window,)
+    gram: np.ndarray           # (m, m) the environment filter's G = sum h h^T
+    covariance: np.ndarray     # (m, m) its P
+    nis_bounds: np.ndarray     # (nis capacity + 1,) environment.NIS_BOUNDS
+    nis_ring: np.ndarray       # (nis capacity,)
+    history_time: np.ndarray   # (history capacity,) the filter's kept blocks: times s
+    history_force: np.ndarray  # forces N
+    history_regressor: np.ndarray  # (history capacity, m) regressors
     ring: np.ndarray           # (2n,) kinematics.RING
     coefficients: np.ndarray   # (n,) kinematics.COEFFICIENTS
 
@@ -109,8 +112,9 @@ def new_storage(nv: int, m: int) -> Storage:
     are placeholders until the Pipeline sizes them)."""
     ring, coefficients = kinematics.placeholder()
     return Storage(np.zeros(1, PARAMS), np.zeros(1, STATE), np.zeros(nv, JOINT),
-                   np.zeros(m, PARAMETER), np.zeros((m, m)),
-                   environment.NIS_BOUNDS.many(2), np.zeros(1), np.zeros(1), ring, coefficients)
+                   np.zeros(m, PARAMETER), np.zeros((m, m)), np.zeros((m, m)),
+                   environment.NIS_BOUNDS.many(2), np.zeros(1), np.zeros(2), np.zeros(2),
+                   np.zeros((2, m)), ring, coefficients)
 
 
 def observer_views(st: Storage) -> observer.ObserverRecords:
@@ -139,5 +143,6 @@ def model_views(st: Storage) -> object_models.ModelRecords:
 def filter_views(st: Storage) -> environment.FilterRecords:
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
-        st.parameters["filter"], st.covariance, st.nis_bounds, st.nis_ring, st.match_ring,
-        st.state["filter_output"], st.parameters["filter_output"])
+        st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
+        st.history_time, st.history_force, st.history_regressor, st.state["filter_output"],
+        st.parameters["filter_output"])

@@ -51,8 +51,7 @@ def warm_up() -> float:
     start = time.perf_counter()
     for extra in ({}, {"observer.form": "first_order", "wrench.mode": "wrench",
                        "direction.mode": "estimated", "effort_side": "motor",
-                       "friction.viscous": [0.1], "filter.noise_adaptation": "matching",
-                       "filter.process_adaptation": "sage_husa"}):
+                       "friction.viscous": [0.1], "filter.memory": 5.0}):
         settings = Settings({"contact.hold_time": 0.0, "bias.startup": 0.01, **extra})
         pipe = Pipeline(settings, WARMUP_URDF)
         names = pipe.model.joint_names
@@ -85,8 +84,9 @@ def warm_up() -> float:
     kin.centre()
     kin.start_contact(0.0)
     flt = EnvironmentFilter(Settings())
-    flt.update(0.0, np.array([0.1, 0.2, 0.01, 1.0]), 3.0)
-    flt.inflate("warm-up")
+    for k in range(30):
+        flt.update(k * 0.01, np.array([0.1 * k, 0.2, 0.01, 1.0]), 3.0 + k)
+    flt.restart("warm-up")
     EnvironmentFilter._project([1.0, -1.0, -1.0, 0.0], np.eye(4), (True,) * 4)
     return time.perf_counter() - start
 
