@@ -35,8 +35,9 @@ Per block (:func:`filter_update`):
 3. The block joins the sufficient statistics; the estimate is the solution of
    (P0^-1 + G / R) theta = P0^-1 theta0 + b / R, with P = (P0^-1 + G / R)^-1 its covariance.
 4. R, the noise variance of a block mean, is the batch residual variance of the rows so far,
-   (sum f^2 - 2 theta^T b + theta^T G theta) / (n - m), pooled with the noise level carried over
-   from before (``filter.measurement_std`` at start) as a prior worth a few blocks.
+   (sum f^2 - 2 theta^T b + theta^T G theta) / (n - m); while n - m is below 3 the noise level
+   carried over from before (``filter.measurement_std`` at start) fills in for the missing
+   degrees of freedom.
 5. Non-negativity (``filter.nonnegative``, for the parameters the model declares non-negative):
    the constrained minimizer of the same quadratic cost is the projection of the estimate onto
    the bounds in the metric P^-1 (an active-set iteration, :func:`filter_project`; Simon and
@@ -72,7 +73,7 @@ PARAMETER_NAMES = ALONG_DIRECTION.parameter_names
 PARAMETER_UNITS = ALONG_DIRECTION.parameter_units
 NIS_CONFIDENCE = 0.95  # two-sided probability of the NIS interval (Bar-Shalom et al. 2001)
 FORCE_SHARE = 0.05     # the scale of a parameter: the value whose contribution is 5 % of F_rms
-NOISE_PRIOR_BLOCKS = 3.0  # weight of the carried-over noise level, in blocks
+NOISE_PRIOR_BLOCKS = 3.0  # degrees of freedom below which the carried-over noise level helps
 DATA_DETERMINED = 0.5  # excited only where the data brought the std below half its prior's
 
 CHANGE_REGAINED = 1  # a new contact began after one had ended (the estimate started again)
@@ -372,7 +373,12 @@ def _noise(fr):
         dof = 0.0
     if sse < 0.0:   # rounding of a near-perfect fit
         sse = 0.0
-    s.noise_var = (sse + NOISE_PRIOR_BLOCKS * s.noise_carry) / (dof + NOISE_PRIOR_BLOCKS)
+    # the carried-over level fills in only for the degrees of freedom the data lack, so it
+    # stops counting once there are NOISE_PRIOR_BLOCKS of them
+    lack = max(NOISE_PRIOR_BLOCKS - dof, 0.0)
+    # a floor of (1e-6 of the RMS force)^2 keeps a noise-free fit (a simulation) solvable
+    floor = 1e-12 * max(s.force_sq_sum / max(s.count, 1.0), 1e-12)
+    s.noise_var = max((sse + lack * s.noise_carry) / (dof + lack), floor)
 
 
 @kernel
