@@ -68,7 +68,7 @@ JOINTS = record(
 
 
 @kernel
-def _shared_gain(s, dt, mean_r, effort_noise):
+def shared_gain(s, dt, mean_r, effort_noise):
     """One predict-update of the shared covariance (units of R_i); returns the gains."""
     c = s.shared_cov
     p00, p01, p02 = c[0, 0], c[0, 1], c[0, 2]
@@ -185,9 +185,9 @@ def _kalman_shared_step(p, s, js, dt, momentum, beta, M):
         # this interval first, so that the start does not read velocity noise as a large
         # external torque (a cold, wide prior did: hundreds of newtons for a few ms)
         for _ in range(p.settle_steps):
-            _shared_gain(s, dt, mean_r, p.effort_noise)
+            shared_gain(s, dt, mean_r, p.effort_noise)
         s.settle_pending = False
-    k0, k1, k2 = _shared_gain(s, dt, mean_r, p.effort_noise)
+    k0, k1, k2 = shared_gain(s, dt, mean_r, p.effort_noise)
     a, b, c = dt, 0.5 * dt * dt, 0.5 * dt
     for j in range(n):
         # predict: p- = p + dt d + dt^2/2 e + dt/2 (beta_prev + beta), d- = d + dt e, e- = e;

@@ -32,7 +32,13 @@ from .environment import UPDATED, EnvironmentFilter, change_text
 from .health import Health
 from .kinematics import AlongKinematics
 from .model import RobotModel
-from .object_models import ALONG_DIRECTION, ObjectModel, new_records
+from .object_models import (
+    ALONG_DIRECTION,
+    MATCH_FIRST_ORDER,
+    MATCH_KALMAN,
+    ObjectModel,
+    new_records,
+)
 from .observer import KalmanMomentumObserver, MomentumObserver
 from .outputs import EV_CHANGE, EVENTS, Estimate, EstimateBlock
 from .samples import RejectCounts, Sample, SampleBlock, SampleRejected, SampleValidator
@@ -127,10 +133,10 @@ class Pipeline:
                                    st.state["direction"])
         if kept is not None and kept[0] == self.direction.mode == "estimated":
             self.direction.u = kept[1]
-        # lag of the force behind tau_ext that the measurement row must match: first order
-        # 1/K_O; the Kalman form has none for slowly varying forces (None: no matching filter)
-        matching = None if kalman else float(np.mean(gain))
-        self._model_records = new_records(self.object_model, matching,
+        # the force is the observer's output: the measurement row passes through the same
+        # dynamics (object_models), the first-order law or the Kalman form's steady state
+        match = MATCH_KALMAN if kalman else MATCH_FIRST_ORDER
+        self._model_records = new_records(self.object_model, match, float(np.mean(gain)),
                                           storage.model_views(st))
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"], self.object_model.parameter_names,

@@ -122,7 +122,7 @@ def inertial_problems(urdf: str) -> list[str]:
             tensors.append((name, inertia_tensor(values)))
     traces = [float(np.trace(t)) for _, t in tensors]
     robot_scale = max([abs(x) for x in traces], default=0.0)
-    for (name, tensor), trace in zip(tensors, traces):
+    for (name, tensor), trace in zip(tensors, traces, strict=True):
         principal = np.linalg.eigvalsh(tensor)
         size, phrase = moment_violation(principal)
         tolerance = max(RELATIVE_TOLERANCE * abs(trace), ROBOT_TOLERANCE * robot_scale)
