@@ -367,3 +367,33 @@ def test_restart_reset_and_runtime_settings():
     assert changes and changes[0] == "new object"
     flt.reset("reset")
     assert flt.samples == 0 and flt.last is None
+
+
+def test_three_channels_equal_batch_least_squares_of_stacked_rows():
+    # A model whose measurement is a force vector (three rows per sample, as a 3-D object model
+    # has): here an isotropic object, F = m a + d v + k x + f0 (1,1,1) per axis. With every row
+    # its own block and a diffuse prior the estimate is the least-squares fit of all rows stacked
+    # (reference: numpy.linalg.lstsq), and the NIS bounds count three degrees of freedom per
+    # block (scipy.stats.chi2).
+    from dataclasses import replace
+
+    from interaction_estimator.core.object_models import ALONG_DIRECTION
+    model = replace(ALONG_DIRECTION, name="isotropic_test", channels=3)
+    rng = np.random.default_rng(21)
+    t = np.arange(0.0, 4.0, 1e-2)
+    theta = np.array([2.0, 6.0, 80.0, 1.5])
+    rows_all, f_all = [], []
+    flt = EnvironmentFilter(Settings({**PLAIN, "filter.learn_noise": True,
+                                      "filter.initial_std": DIFFUSE,
+                                      "filter.nis_time": 1.0}), model)
+    for k, tk in enumerate(t):
+        H = np.column_stack([rng.normal(0, 1, 3), rng.normal(0, 0.3, 3),
+                             rng.normal(0, 0.05, 3), np.ones(3)])
+        f = H @ theta + rng.normal(0, 0.2, 3)
+        step = flt.update(tk, H, f)
+        rows_all.append(H)
+        f_all.append(f)
+    ref, *_ = np.linalg.lstsq(np.vstack(rows_all), np.concatenate(f_all), rcond=None)
+    np.testing.assert_allclose(step.theta, ref, rtol=1e-6, atol=1e-6)
+    n = len(t) * 3   # every block in the window (it holds 1 s at 1 ms blocks), three rows each
+    assert step.nis_bounds == pytest.approx((chi2.ppf(0.025, n) / n, chi2.ppf(0.975, n) / n))

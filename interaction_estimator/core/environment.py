@@ -105,7 +105,6 @@ STATE = record(
     "environment filter state",
     ("block_count", I8, "", "rows in the block being gathered"),
     ("block_time_sum", F8, "s", "sum of their times"),
-    ("block_force_sum", F8, "N", "sum of their forces"),
     ("block_start_s", F8, "s", "time of its first row"),
     ("has_row", B1, "", "a row was added since the last reset"),
     ("last_row_s", F8, "s", "time of the last row"),
@@ -134,7 +133,6 @@ PARAMETERS = record(
     "environment filter state, per parameter",
     ("theta", F8, "(parameter unit)", "estimate (without the non-negativity projection)"),
     ("force_sum", F8, "(regressor unit)·N", "b_i = sum h_i f"),
-    ("block_sum", F8, "(regressor unit)", "sum of h_i over the block being gathered"),
 )
 NIS_BOUNDS = record(
     "NIS interval by number of blocks averaged",
@@ -183,8 +181,10 @@ class FilterRecords(NamedTuple):
     nis_bounds: np.ndarray        # (nis capacity + 1,) NIS_BOUNDS
     nis_ring: np.ndarray          # (nis capacity,)
     history_time: np.ndarray      # (history capacity,) s, the blocks' times
-    history_force: np.ndarray     # (history capacity,) N, their mean forces
-    history_regressor: np.ndarray  # (history capacity, m) their mean regressors
+    history_force: np.ndarray     # (history capacity, p) N, their mean forces
+    history_regressor: np.ndarray  # (history capacity, p, m) their mean regressors
+    block_force: np.ndarray       # (p,) N, sum of the forces of the block being gathered
+    block_regressor: np.ndarray   # (p, m) sum of its regressors
     output: np.ndarray            # (1,) OUTPUT
     parameter_output: np.ndarray  # (m,) PARAMETER_OUTPUT
 
@@ -382,8 +382,9 @@ def _noise(fr):
 
 
 @kernel
-def _add_block(fr, t, f, h, decay):
-    """A block into the statistics (after forgetting by ``decay``)."""
+def _add_block(fr, t, f, H, decay):
+    """A block (force f (p,), regressor H (p, m)) into the statistics (after forgetting by
+    ``decay``)."""
     s, ps = fr.state[0], fr.parameters
     G = fr.gram
     m = G.shape[0]
@@ -394,13 +395,13 @@ def _add_block(fr, t, f, h, decay):
                 G[i, j] *= decay
         s.count *= decay
         s.force_sq_sum *= decay
-    for i in range(m):
-        ps[i].force_sum += h[i] * f
-        for j in range(m):
-            G[i, j] += h[i] * h[j]
-    s.count += 1.0
-    s.force_sq_sum += f * f
-
+    for c in range(f.shape[0]):
+        for i in range(m):
+            ps[i].force_sum += H[c, i] * f[c]
+            for j in range(m):
+                G[i, j] += H[c, i] * H[c, j]
+        s.count += 1.0
+        s.force_sq_sum += f[c] * f[c]
 
 @kernel
 def _clear_statistics(fr):
@@ -428,7 +429,9 @@ def filter_reset(fr):
     s.noise_carry = s.noise_var if s.has_update else p.measurement_std0 * p.measurement_std0
     s.noise_var = s.noise_carry
     s.block_count = 0
-    s.block_time_sum = s.block_force_sum = 0.0
+    s.block_time_sum = 0.0
+    fr.block_force[:] = 0.0
+    fr.block_regressor[:, :] = 0.0
     s.has_row = False
     s.has_update = False
     s.samples = 0
@@ -441,7 +444,6 @@ def filter_reset(fr):
     m = P.shape[0]
     for i in range(m):
         ps[i].theta = pp[i].prior_mean
-        ps[i].block_sum = 0.0
         for j in range(m):
             P[i, j] = 0.0
         P[i, i] = pp[i].prior_var
@@ -474,8 +476,9 @@ def _window_push(ring, index, count, total, value):
 
 
 @kernel
-def _outputs(fr, t, f, h, y, S, nis, nis_average):
-    """The figures of the update (steps 5 and 6)."""
+def _outputs(fr, t, f, H, y, S, nis, nis_average):
+    """The figures of the update (steps 5 and 6); y, S: the first channel's innovation and
+    its variance, nis: the block's normalized innovation squared over all channels."""
     p, s, out = fr.params[0], fr.state[0], fr.output[0]
     pp, ps, po = fr.parameter_params, fr.parameters, fr.parameter_output
     P, G = fr.covariance, fr.gram
@@ -514,23 +517,23 @@ def _outputs(fr, t, f, h, y, S, nis, nis_average):
         o.excited = (h_rms > 0.0 and std <= p.excited_fraction * scale
                      and std <= DATA_DETERMINED * pp[i].prior_std)
         o.converged = o.excited and std <= p.converged_fraction * scale
-        o.regressor = h[i]
+        o.regressor = H[0, i]
         all_excited = all_excited and o.excited
         all_converged = all_converged and o.converged
+    channels = f.shape[0]
     out.time_s = t
-    out.force = f
+    out.force = f[0]
     out.innovation = y
     out.innovation_var = S
     out.nis = nis
     out.nis_average = nis_average
-    out.nis_lower = fr.nis_bounds[s.nis_count].lower
-    out.nis_upper = fr.nis_bounds[s.nis_count].upper
+    out.nis_lower = fr.nis_bounds[s.nis_count * channels].lower
+    out.nis_upper = fr.nis_bounds[s.nis_count * channels].upper
     out.r = s.noise_var
     out.force_rms = force_rms
     out.samples = s.samples
     out.all_excited = all_excited
     out.all_converged = all_converged
-
 
 @kernel
 def _rebuild_since(fr, start):
@@ -548,28 +551,43 @@ def _rebuild_since(fr, start):
 
 
 @kernel
-def _use_block(fr, t, f, h):
-    """One block mean (steps 1 to 6)."""
+def _use_block(fr, t, f, H):
+    """One block mean: force f (p,), regressor H (p, m) (steps 1 to 6)."""
     p, s, ps = fr.params[0], fr.state[0], fr.parameters
     P = fr.covariance
     m = P.shape[0]
+    channels = f.shape[0]
     dt = t - s.last_time_s if s.has_update else 0.0
-    # 1. innovation against the estimate so far
-    predicted = 0.0
-    for i in range(m):
-        predicted += h[i] * ps[i].theta
-    y = f - predicted
-    hph = 0.0
-    for i in range(m):
-        acc = 0.0
-        for j in range(m):
-            acc += P[i, j] * h[j]
-        hph += h[i] * acc
-    S = hph + s.noise_var
-    nis = y * y / S
+    # 1. innovation against the estimate so far: y = f - H theta, S = H P H^T + R I
+    y = np.empty(channels)
+    PH = np.empty((m, channels))
+    for c in range(channels):
+        predicted = 0.0
+        for i in range(m):
+            predicted += H[c, i] * ps[i].theta
+        y[c] = f[c] - predicted
+        for i in range(m):
+            acc = 0.0
+            for j in range(m):
+                acc += P[i, j] * H[c, j]
+            PH[i, c] = acc
+    S = np.empty((channels, channels))
+    for a in range(channels):
+        for b in range(channels):
+            total = s.noise_var if a == b else 0.0
+            for i in range(m):
+                total += H[a, i] * PH[i, b]
+            S[a, b] = total
+    if channels == 1:
+        nis = y[0] * y[0] / S[0, 0]
+    else:
+        nis = 0.0
+        w = np.linalg.solve(S, y)
+        for c in range(channels):
+            nis += y[c] * w[c]
     nis_average, s.nis_index, s.nis_count, s.nis_sum = _window_push(
-        fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis)
-    z = y / math.sqrt(S)
+        fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis / channels)
+    z = y[0] / math.sqrt(S[0, 0])
     s.corr_lag += z * s.z_prev
     s.corr_zero += z * z
     s.z_prev = z
@@ -577,14 +595,15 @@ def _use_block(fr, t, f, h):
     size = fr.history_time.shape[0]
     slot = s.history_index
     fr.history_time[slot] = t
-    fr.history_force[slot] = f
-    for i in range(m):
-        fr.history_regressor[slot, i] = h[i]
+    for c in range(channels):
+        fr.history_force[slot, c] = f[c]
+        for i in range(m):
+            fr.history_regressor[slot, c, i] = H[c, i]
     s.history_index = (slot + 1) % size
     if s.history_count < size:
         s.history_count += 1
     # 2. change detection (only once the estimate has something to compare with)
-    g = s.cusum + nis - p.change_drift
+    g = s.cusum + nis - channels * p.change_drift
     if g <= 0.0 or s.samples < m:
         g = 0.0
         s.cusum_zero_s = t
@@ -603,33 +622,35 @@ def _use_block(fr, t, f, h):
         s.cusum_zero_s = t
     else:
         # 3. the block into the statistics, 4. the noise level, and the estimate
-        _add_block(fr, t, f, h, decay)
+        _add_block(fr, t, f, H, decay)
         _solve(fr)
         _noise(fr)
         _solve(fr)
     s.has_update = True
     s.last_time_s = t
     s.samples += 1
-    _outputs(fr, t, f, h, y, S, nis, nis_average)
+    _outputs(fr, t, f, H, y[0], S[0, 0], nis, nis_average)
     out = fr.output[0]
     out.change = s.pending_change
     out.change_g = s.pending_g
     s.pending_change = 0
 
-
 @kernel
-def filter_update(fr, t, h, f):
-    """Add one row (time t s, regressor h (m,), force f N); when its block is complete, use
+def filter_update(fr, t, H, f):
+    """Add one measurement row (time t s, regressor H (p, m), force f (p,) N: p channels, one
+    for a model along a direction, three for a force vector); when its block is complete, use
     the block's mean (:func:`_use_block`).
 
     Returns ADDED (the row joined its block), UPDATED (a block was used: the figures are in
     ``fr.output`` and ``fr.parameter_output``), or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS
     with the state untouched (the refusal counted in ``state.rejected``)."""
-    p, s, ps = fr.params[0], fr.state[0], fr.parameters
-    m = h.shape[0]
-    total = f + t
-    for i in range(m):
-        total += h[i]
+    p, s = fr.params[0], fr.state[0]
+    channels, m = H.shape[0], H.shape[1]
+    total = t
+    for c in range(channels):
+        total += f[c]
+        for i in range(m):
+            total += H[c, i]
     if not math.isfinite(total):
         s.rejected += 1
         return REJECT_NON_FINITE
@@ -642,22 +663,22 @@ def filter_update(fr, t, h, f):
         s.block_start_s = t
     s.block_count += 1
     s.block_time_sum += t
-    s.block_force_sum += f
-    for i in range(m):
-        ps[i].block_sum += h[i]
+    for c in range(channels):
+        fr.block_force[c] += f[c]
+        for i in range(m):
+            fr.block_regressor[c, i] += H[c, i]
     if t - s.block_start_s < p.block_s:
         return ADDED
     n = float(s.block_count)
-    mean_h = np.empty(m)
-    for i in range(m):
-        mean_h[i] = ps[i].block_sum / n
-        ps[i].block_sum = 0.0
-    mean_t, mean_f = s.block_time_sum / n, s.block_force_sum / n
+    mean_h = fr.block_regressor / n
+    mean_f = fr.block_force / n
+    mean_t = s.block_time_sum / n
+    fr.block_regressor[:, :] = 0.0
+    fr.block_force[:] = 0.0
     s.block_count = 0
-    s.block_time_sum = s.block_force_sum = 0.0
+    s.block_time_sum = 0.0
     _use_block(fr, mean_t, mean_f, mean_h)
     return UPDATED
-
 
 def change_text(bits: int, g: float, threshold: float, text: str = "") -> str:
     """The ``change`` words of an update from its CHANGE_* bits (``text``: restarts asked for
@@ -752,11 +773,12 @@ def new_records(s: Settings, model: ObjectModel,
                 views: FilterRecords | None = None) -> FilterRecords:
     """Records for ``model`` configured from ``s`` and reset to the prior: the filter's own, or
     ``views`` (the Pipeline's storage) with windows sized for ``s``."""
-    m = model.size
+    m, channels = model.size, model.channels
     nis, history = _capacities(s)
-    windows = dict(nis_bounds=nis_bounds_table(nis), nis_ring=np.zeros(nis),
-                   history_time=np.zeros(history), history_force=np.zeros(history),
-                   history_regressor=np.zeros((history, m)))
+    windows = dict(nis_bounds=nis_bounds_table(nis * channels), nis_ring=np.zeros(nis),
+                   history_time=np.zeros(history), history_force=np.zeros((history, channels)),
+                   history_regressor=np.zeros((history, channels, m)),
+                   block_force=np.zeros(channels), block_regressor=np.zeros((channels, m)))
     if views is None:
         fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(),
                            PARAMETERS.many(m), np.zeros((m, m)), np.zeros((m, m)),
@@ -897,8 +919,11 @@ class EnvironmentFilter:
     # ----------------------------------------------------------------------------------------
     # the update
 
-    def refusal(self, code: int, t: float, h: np.ndarray, f: float) -> SampleRejected:
-        """The SampleRejected naming the bad input of a row the compiled code refused."""
+    def refusal(self, code: int, t: float, h: np.ndarray, f) -> SampleRejected:
+        """The SampleRejected naming the bad input of a row the compiled code refused (h:
+        (p, m) or (m,), f: (p,) or a number)."""
+        h = np.atleast_2d(np.asarray(h, dtype=float))
+        forces = np.atleast_1d(np.asarray(f, dtype=float))
         if code == REJECT_TIME_BACKWARDS:
             return SampleRejected(
                 "time_backwards",
@@ -906,34 +931,41 @@ class EnvironmentFilter:
                 f"{float(self.records.state[0]['last_row_s']):.6f} s")
         if not math.isfinite(t):
             return SampleRejected("non_finite_output", f"environment filter: time t is {t!r} s")
-        for i, label in enumerate(self.model.regressor_labels):
-            if not math.isfinite(h[i]):
-                return SampleRejected(
-                    "non_finite_output",
-                    f"environment filter: regressor {label} is {float(h[i])!r}")
-        return SampleRejected("non_finite_output", f"environment filter: force f is {f!r} N")
+        for c in range(h.shape[0]):
+            for i, label in enumerate(self.model.regressor_labels):
+                if not math.isfinite(h[c, i]):
+                    return SampleRejected(
+                        "non_finite_output",
+                        f"environment filter: regressor {label} is {float(h[c, i])!r}")
+        bad = [float(x) for x in forces if not math.isfinite(x)]
+        return SampleRejected("non_finite_output",
+                              f"environment filter: force f is {bad[0] if bad else forces!r} N")
 
-    def update(self, t: float, h, f: float) -> FilterStep | None:
+    def update(self, t: float, h, f) -> FilterStep | None:
         """Add one row: t: time in s (must not decrease); h: (m,) regressor (for the default
-        model [x'' m/s^2, x' m/s, x m, 1]); f: force along the direction, N. Returns the
+        model [x'' m/s^2, x' m/s, x m, 1]), or (p, m) for a model of p channels; f: force
+        along the direction, N (or (p,)). Returns the
         :class:`FilterStep` of the last block used (also kept in :attr:`last`), None before the
         first. Raises SampleRejected('non_finite_output') for a non-finite t, h or f and
         SampleRejected('time_backwards') when t is older than the previous row; the state is
         then untouched and :attr:`rejected` counts it.
         """
-        h = np.array(h, dtype=float)
-        if h.shape != (self.model.size,):
+        channels, m = self.model.channels, self.model.size
+        h = np.array(h, dtype=float).reshape(-1, m) if np.size(h) == channels * m \
+            else np.array(h, dtype=float)
+        if h.shape != (channels, m):
             raise ValueError(f"environment filter: regressor h has shape {h.shape}; expected "
-                             f"({self.model.size},) = {list(self.model.regressor_labels)}")
-        t, f = float(t), float(f)
-        code = filter_update(self.records, t, h, f)
+                             f"({channels}, {m}) = {list(self.model.regressor_labels)}")
+        forces = np.array(f, dtype=float).reshape(channels)
+        t = float(t)
+        code = filter_update(self.records, t, h, forces)
         if code == UPDATED:
             step = self._step(self._text)
             self._text = ""
             self._last, self._last_key = step, (self._resets, self.samples)
             return step
         if code != ADDED:
-            raise self.refusal(code, t, h, f)
+            raise self.refusal(code, t, h, forces)
         return self.last
 
     @staticmethod

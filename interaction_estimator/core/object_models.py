@@ -44,6 +44,7 @@ class ObjectModel:
     parameter_units: tuple[str, ...]
     regressor_labels: tuple[str, ...]
     nonnegative: tuple[bool, ...]
+    channels: int = 1   # rows per sample: 1 for a force along a direction, 3 for a vector
 
     @property
     def size(self) -> int:
@@ -76,7 +77,7 @@ STATE = record(
     ("shared_cov", F8, (3, 3), "", "its covariance in units of the measurement variance"),
 )
 ROW = record(
-    "measurement row entry, per parameter",
+    "measurement row entry, per channel and parameter",
     ("regressor", F8, "(parameter-dependent)", "h_i of the row, after the matching filter"),
     ("raw", F8, "(parameter-dependent)", "h_i before the filter, last row"),
     ("integral", F8, "(parameter-dependent)·s", "integral of h_i (the match's momentum)"),
@@ -85,7 +86,7 @@ ROW = record(
 
 
 @kernel
-def _kalman_match(p, s, row, dt, raw):
+def _kalman_match(p, s, rows, dt, raw):
     """The Kalman-form observer's response to a disturbance, applied to the regressor: each
     column h_i is run through the same filter as an external torque through the observer (its
     integral is the momentum it would add, the trapezoid rule as in the observer; the gains are
@@ -98,17 +99,24 @@ def _kalman_match(p, s, row, dt, raw):
         s.settled = True
     k0, k1, k2 = observer_gain(s, dt, 1.0, 0.0)
     a, b = dt, 0.5 * dt * dt
-    for i in range(row.shape[0]):
-        r = row[i]
-        x = r.state
-        if not s.filtered:
-            r.integral = 0.0
-            x[0], x[1], x[2] = 0.0, raw[i], 0.0
-            r.raw = raw[i]
-            r.regressor = raw[i]
-            continue
-        r.integral += 0.5 * dt * (raw[i] + r.raw)
-        r.raw = raw[i]
+    for c in range(rows.shape[0]):
+        for i in range(rows.shape[1]):
+            r = rows[c, i]
+            _match_one(r, raw[c, i], s.filtered, dt, a, b, k0, k1, k2)
+
+
+@kernel
+def _match_one(r, raw, filtered, dt, a, b, k0, k1, k2):
+    """One column of the Kalman match (see :func:`_kalman_match`)."""
+    x = r.state
+    if not filtered:
+        r.integral = 0.0
+        x[0], x[1], x[2] = 0.0, raw, 0.0
+        r.raw = raw
+        r.regressor = raw
+    else:
+        r.integral += 0.5 * dt * (raw + r.raw)
+        r.raw = raw
         pm = x[0] + a * x[1] + b * x[2]
         dm = x[1] + a * x[2]
         innov = r.integral - pm
@@ -119,30 +127,32 @@ def _kalman_match(p, s, row, dt, raw):
 
 
 @kernel
-def measurement_row(p, s, row, dt, acceleration, velocity, position):
-    """Fill ``row.regressor`` (m,) from the kinematics at the window centre (x'' m/s^2, x' m/s,
-    x m), through the matching filter (dt s since the last row)."""
-    m = row.shape[0]
-    raw = np.empty(m)
+def measurement_row(p, s, rows, dt, acceleration, velocity, position):
+    """Fill ``rows.regressor`` (p, m) from the kinematics at the window centre (x'' m/s^2,
+    x' m/s, x m), through the matching filter (dt s since the last row)."""
+    channels, m = rows.shape[0], rows.shape[1]
+    raw = np.zeros((channels, m))
     if p.kind == MODEL_ALONG_DIRECTION:
-        raw[0], raw[1], raw[2], raw[3] = acceleration, velocity, position, 1.0
+        raw[0, 0], raw[0, 1], raw[0, 2], raw[0, 3] = acceleration, velocity, position, 1.0
     if p.matching == MATCH_KALMAN:
-        _kalman_match(p, s, row, dt, raw)
+        _kalman_match(p, s, rows, dt, raw)
     elif p.matching == MATCH_FIRST_ORDER and s.filtered:
         a = math.exp(-p.matching_gain * dt)
         bb = 1.0 - a
-        for i in range(m):
-            row[i].regressor = a * row[i].regressor + bb * raw[i]
+        for c in range(channels):
+            for i in range(m):
+                rows[c, i].regressor = a * rows[c, i].regressor + bb * raw[c, i]
     else:
-        for i in range(m):
-            row[i].regressor = raw[i]
+        for c in range(channels):
+            for i in range(m):
+                rows[c, i].regressor = raw[c, i]
     s.filtered = True
 
 
 class ModelRecords(NamedTuple):
     params: np.ndarray   # (1,) PARAMS
     state: np.ndarray    # (1,) STATE
-    row: np.ndarray      # (m,) ROW
+    rows: np.ndarray     # (p, m) ROW
 
 
 def new_records(model: ObjectModel, matching: int, matching_gain: float,
@@ -150,8 +160,9 @@ def new_records(model: ObjectModel, matching: int, matching_gain: float,
     """Records of ``model`` (or ``records``, views into the Pipeline's storage, configured);
     ``matching``: MATCH_*, with the observer's gain (1/s, first order) or bandwidth (rad/s,
     Kalman form)."""
-    r = ModelRecords(PARAMS.one(), STATE.one(), ROW.many(model.size)) if records is None \
-        else records
+    r = (ModelRecords(PARAMS.one(), STATE.one(),
+                      ROW.many(model.channels * model.size).reshape(model.channels, model.size))
+         if records is None else records)
     p = r.params[0]
     p["kind"] = model.code
     p["matching"] = matching

@@ -66,7 +66,7 @@ class Pipeline:
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
         nv, m = self.model.nv, object_model.size
-        st = self._storage = storage.new_storage(nv, m)   # every stage's records
+        st = self._storage = storage.new_storage(nv, m, object_model.channels)
         self._pipe_params, self._pipe = st.params["pipeline"], st.state["pipeline"]
         self._out = outputs.SAMPLE.one()               # the last sample's outputs
         self._out_params = outputs.PARAMETER.many(m)
@@ -156,6 +156,7 @@ class Pipeline:
         self._storage = self._storage._replace(
             nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, history_time=fr.history_time,
             history_force=fr.history_force, history_regressor=fr.history_regressor,
+            block_force=fr.block_force, block_regressor=fr.block_regressor,
             ring=ring, coefficients=coefficients)
 
     def apply_settings(self, settings: Settings) -> None:
@@ -427,7 +428,7 @@ class Pipeline:
         o = self._out
         self._reject(t, self.filter.refusal(int(o["filter_code"][0]),
                                             float(o["filter_time_s"][0]),
-                                            self._model_records.row["regressor"].copy(),
+                                            self._model_records.rows["regressor"].copy(),
                                             float(o["filter_force"][0])))
         return None
 

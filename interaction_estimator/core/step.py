@@ -206,15 +206,19 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
     else:
         full, acc, vel, pos, force, time = kinematics.kinematics_centre(kp, ks, ring)
         if full:
-            row = st.parameters["row"]
-            object_models.measurement_row(st.params[0].model, st.state[0].model, row, dt, acc,
+            rows = st.model_rows
+            object_models.measurement_row(st.params[0].model, st.state[0].model, rows, dt, acc,
                                           vel, pos)
-            h = np.empty(row.shape[0])
-            for i in range(row.shape[0]):
-                h[i] = row[i].regressor
+            channels, m = rows.shape[0], rows.shape[1]
+            h = np.empty((channels, m))
+            for c in range(channels):
+                for i in range(m):
+                    h[c, i] = rows[c, i].regressor
+            forces = np.empty(channels)
+            forces[0] = force
             out.filter_time_s = time
             out.filter_force = force
-            code = environment.filter_update(_filter(st), time, h, force)
+            code = environment.filter_update(_filter(st), time, h, forces)
             out.filter_code = code
             if code == environment.ADDED:   # the row joined its block
                 return _kinematics_out(out, kp, ks, event)
@@ -304,8 +308,8 @@ def _filter(st):
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
         st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
-        st.history_time, st.history_force, st.history_regressor, st.state["filter_output"],
-        st.parameters["filter_output"])
+        st.history_time, st.history_force, st.history_regressor, st.block_force,
+        st.block_regressor, st.state["filter_output"], st.parameters["filter_output"])
 
 
 @kernel

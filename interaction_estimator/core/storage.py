@@ -86,7 +86,7 @@ JOINT = np.dtype([
 PARAMETER = np.dtype([
     ("filter_params", environment.PARAMETER_PARAMS.dtype),
     ("filter", environment.PARAMETERS.dtype),
-    ("filter_output", environment.PARAMETER_OUTPUT.dtype), ("row", object_models.ROW.dtype)])
+    ("filter_output", environment.PARAMETER_OUTPUT.dtype)])
 
 
 class Storage(NamedTuple):
@@ -101,20 +101,26 @@ class Storage(NamedTuple):
     nis_bounds: np.ndarray     # (nis capacity + 1,) environment.NIS_BOUNDS
     nis_ring: np.ndarray       # (nis capacity,)
     history_time: np.ndarray   # (history capacity,) the filter's kept blocks: times s
-    history_force: np.ndarray  # forces N
-    history_regressor: np.ndarray  # (history capacity, m) regressors
+    history_force: np.ndarray  # (history capacity, p) forces N
+    history_regressor: np.ndarray  # (history capacity, p, m) regressors
+    block_force: np.ndarray    # (p,) the filter's block being gathered: sum of forces N
+    block_regressor: np.ndarray  # (p, m) sum of regressors
+    model_rows: np.ndarray     # (p, m) object_models.ROW: the measurement row
     ring: np.ndarray           # (2n,) kinematics.RING
     coefficients: np.ndarray   # (n,) kinematics.COEFFICIENTS
 
 
-def new_storage(nv: int, m: int) -> Storage:
+def new_storage(nv: int, m: int, channels: int = 1) -> Storage:
     """Zeroed records for nv joints and m object parameters (windows and the kinematics ring
     are placeholders until the Pipeline sizes them)."""
     ring, coefficients = kinematics.placeholder()
     return Storage(np.zeros(1, PARAMS), np.zeros(1, STATE), np.zeros(nv, JOINT),
                    np.zeros(m, PARAMETER), np.zeros((m, m)), np.zeros((m, m)),
-                   environment.NIS_BOUNDS.many(2), np.zeros(1), np.zeros(2), np.zeros(2),
-                   np.zeros((2, m)), ring, coefficients)
+                   environment.NIS_BOUNDS.many(2), np.zeros(1), np.zeros(2),
+                   np.zeros((2, channels)), np.zeros((2, channels, m)), np.zeros(channels),
+                   np.zeros((channels, m)),
+                   object_models.ROW.many(channels * m).reshape(channels, m), ring,
+                   coefficients)
 
 
 def observer_views(st: Storage) -> observer.ObserverRecords:
@@ -136,13 +142,12 @@ def contact_views(st: Storage) -> contact.ContactRecords:
 
 
 def model_views(st: Storage) -> object_models.ModelRecords:
-    return object_models.ModelRecords(st.params["model"], st.state["model"],
-                                      st.parameters["row"])
+    return object_models.ModelRecords(st.params["model"], st.state["model"], st.model_rows)
 
 
 def filter_views(st: Storage) -> environment.FilterRecords:
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
         st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
-        st.history_time, st.history_force, st.history_regressor, st.state["filter_output"],
-        st.parameters["filter_output"])
+        st.history_time, st.history_force, st.history_regressor, st.block_force,
+        st.block_regressor, st.state["filter_output"], st.parameters["filter_output"])
