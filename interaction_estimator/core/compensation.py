@@ -54,14 +54,16 @@ def friction_torque(out, v, joints, eps):
 
 
 @kernel
-def bias_update(p, s, joints, t, dt, raw):
+def bias_update(p, s, joints, t, dt, raw, limited):
     """Move each joint's bias toward -raw (the residual computed without bias, (nv,) N·m):
-    a first-order low-pass with time constant p.time_constant_s, its change limited to
-    p.max_rate N·m/s and its size to +/- p.limit N·m."""
+    a first-order low-pass with time constant p.time_constant_s, its size limited to
+    +/- p.limit N·m and, when ``limited`` (free motion, as opposed to the start-up phase), its
+    change to p.max_rate N·m/s: a sensor's bias drifts slowly, a contact building up does not,
+    so a force that rises faster than that shows in the residual instead of being learned."""
     if not p.learn or dt <= 0.0:
         return
     alpha = 1.0 - math.exp(-dt / p.time_constant_s)
-    rate = p.max_rate * dt
+    rate = p.max_rate * dt if limited else math.inf
     limit = p.limit
     for i in range(joints.shape[0]):
         value = joints[i].value
@@ -179,7 +181,7 @@ class BiasEstimator:
         """Move b toward -raw_residual (raw_residual (nv,) N·m, computed without bias)."""
         r = self.records
         bias_update(r.params[0], r.state[0], r.joints, float(t), float(dt),
-                    np.ascontiguousarray(raw_residual, dtype=float))
+                    np.ascontiguousarray(raw_residual, dtype=float), True)
 
     def age(self, t: float) -> float:
         """s since the bias was last learned (inf when never)."""

@@ -27,6 +27,7 @@ from .records import B1, F8, I8, record
 EVENT_NONE, EVENT_BEGIN, EVENT_END = 0, 1, 2
 SNAPSHOTS = 64          # bias and noise kept this many times back, one per snapshot interval
 ONSET_DRIFT = 2.0       # level^2 drift of the onset-locating CUSUM (free-motion mean: 1)
+NOISE_RISE_SLOWER = 10.0  # the learned noise rises this many times slower than it falls
 _EVENT_WORDS = ("", "contact_begin", "contact_end")
 
 PARAMS = record(
@@ -119,11 +120,17 @@ def set_noise(p, s, joints):
 
 
 @kernel
-def learn_power(p, s, joints, dt, mean_square):
-    """Learn from the mean square (nv,) N·m^2 of the free-motion residual over dt s."""
+def learn_power(p, s, joints, dt, mean_square, cautious=False):
+    """Learn from the mean square (nv,) N·m^2 of the free-motion residual over dt s;
+    ``cautious`` (free motion after the start-up phase): rises are learned slower."""
     alpha = 1.0 - math.exp(-dt / p.noise_time_constant_s)
+    # upward 10 times slower: a residual creeping up may be a contact building up, and must not
+    # raise the yardstick it is judged by as fast as it grows
+    rise = (1.0 - math.exp(-dt / (NOISE_RISE_SLOWER * p.noise_time_constant_s)) if cautious
+            else alpha)
     for i in range(joints.shape[0]):
-        joints[i].noise_var += alpha * (mean_square[i] - joints[i].noise_var)
+        step = mean_square[i] - joints[i].noise_var
+        joints[i].noise_var += (rise if step > 0.0 else alpha) * step
     set_noise(p, s, joints)
 
 
@@ -152,13 +159,13 @@ def gather_quiet(s, joints, dt, residual):
 
 
 @kernel
-def learn_quiet(p, s, joints, speed, scratch):
+def learn_quiet(p, s, joints, speed, scratch, cautious):
     """The noise level from the quiet samples gathered since the last call (learned ``speed``
     times faster than their duration says); the gathered sums cleared. scratch: (nv,)."""
     count = s.quiet_count
     for i in range(joints.shape[0]):
         scratch[i] = joints[i].quiet_sum / count
-    learn_power(p, s, joints, s.quiet_duration_s * speed, scratch)
+    learn_power(p, s, joints, s.quiet_duration_s * speed, scratch, cautious)
     for i in range(joints.shape[0]):
         joints[i].quiet_sum = 0.0
     s.quiet_duration_s = 0.0

@@ -12,13 +12,14 @@ equals a batch least-squares fit of the same rows with that prior - the filter f
 least squares without forgetting. Nothing here knows m.
 
 Rows are averaged over blocks of ``filter.update_interval`` s before they are used. The model is
-linear, so block means obey it as the rows do (mean f = mean h . theta); the force's error is
-coloured (it passes through the observer, the regressor through the differentiator), and the
-means of blocks longer than that colouring have nearly independent errors, so the batch
-residual variance of the block means is an honest noise level, whatever the sample rate. The
-remaining correlation of neighbouring blocks widens the standard deviations by the AR(1)
-variance inflation factor (1 + rho) / (1 - rho) (effective sample size; Box, Jenkins and
-Reinsel, Time Series Analysis, 4th ed. 2008, sec. 2.1).
+linear, so block means obey it as the rows do (mean f = mean h . theta), whatever the sample
+rate. The force's error is coloured (it passes through the observer, the regressor through the
+differentiator, and what the model does not hold varies slowly), so the standard deviations are
+not taken from P alone: they are the sandwich P (P0^-1 + S / R^2) P with S the Bartlett-weighted
+sum of the blocks' scores and their lagged products over ``filter.correlation_time`` s (Newey
+and West, Econometrica 1987), which is P for white residuals and, for residuals whose error
+varies slowly, larger for a parameter whose regressor varies slowly (the static force) and
+smaller for one whose regressor oscillates faster than the error.
 
 Per block (:func:`filter_update`):
 
@@ -67,6 +68,7 @@ from .object_models import ALONG_DIRECTION, ObjectModel
 from .records import B1, F8, I8, record
 from .samples import SampleRejected
 from .settings import Settings, SettingsError
+from .wrench import symmetric_eigen
 
 # kept for callers that name the default model's parameters
 PARAMETER_NAMES = ALONG_DIRECTION.parameter_names
@@ -92,7 +94,9 @@ PARAMS = record(
     ("change_drift", F8, "", "CUSUM drift"),
     ("excited_fraction", F8, "", "std below this share of the scale: excited"),
     ("converged_fraction", F8, "", "std below this share of the scale: converged"),
-    ("correlation", B1, "", "widen the std for correlated innovations of neighbouring blocks"),
+    ("correlation", B1, "", "standard deviations from the residuals' correlation (HAC)"),
+    ("lags", I8, "blocks", "blocks over which the residuals are taken to be correlated"),
+    ("model_error", F8, "", "systematic error of the force model, as a share of a scale"),
 )
 PARAMETER_PARAMS = record(
     "environment filter, per parameter",
@@ -117,9 +121,8 @@ STATE = record(
     ("noise_carry", F8, "N^2", "noise variance carried over as a prior"),
     ("cusum", F8, "", "CUSUM of the NIS"),
     ("cusum_zero_s", F8, "s", "time of the last block at which the CUSUM was zero"),
-    ("z_prev", F8, "", "previous normalized innovation"),
-    ("corr_lag", F8, "", "sum of z_k z_(k-1)"),
-    ("corr_zero", F8, "", "sum of z_k^2"),
+    ("lag_index", I8, "", "next slot of the lag ring"),
+    ("lag_count", I8, "", "scores held in the lag ring"),
     ("nis_index", I8, "", "NIS window: next slot"),
     ("nis_count", I8, "", "NIS window: values held"),
     ("nis_sum", F8, "", "NIS window: running sum"),
@@ -183,6 +186,8 @@ class FilterRecords(NamedTuple):
     history_time: np.ndarray      # (history capacity,) s, the blocks' times
     history_force: np.ndarray     # (history capacity, p) N, their mean forces
     history_regressor: np.ndarray  # (history capacity, p, m) their mean regressors
+    lag_ring: np.ndarray          # (lags, m) the last blocks' scores h^T w
+    hac: np.ndarray               # (m, m) sum of the scores' products over the lags
     block_force: np.ndarray       # (p,) N, sum of the forces of the block being gathered
     block_regressor: np.ndarray   # (p, m) sum of its regressors
     output: np.ndarray            # (1,) OUTPUT
@@ -404,6 +409,35 @@ def _add_block(fr, t, f, H, decay):
         s.force_sq_sum += f[c] * f[c]
 
 @kernel
+def _add_score(fr, g, decay):
+    """One block's score g = H^T w (m,) into the heteroskedasticity- and autocorrelation-
+    consistent sum: g g^T plus, over the last ``lags`` blocks, Bartlett-weighted products with
+    the earlier scores (Newey and West, Econometrica 1987), after forgetting by ``decay``."""
+    s = fr.state[0]
+    hac, ring = fr.hac, fr.lag_ring
+    m = g.shape[0]
+    lags = ring.shape[0]
+    if decay != 1.0:
+        for i in range(m):
+            for j in range(m):
+                hac[i, j] *= decay
+    for i in range(m):
+        for j in range(m):
+            hac[i, j] += g[i] * g[j]
+    for lag in range(1, min(s.lag_count, lags) + 1):
+        weight = 1.0 - lag / (lags + 1.0)
+        slot = (s.lag_index - lag) % lags
+        for i in range(m):
+            for j in range(m):
+                hac[i, j] += weight * (g[i] * ring[slot, j] + ring[slot, i] * g[j])
+    for i in range(m):
+        ring[s.lag_index, i] = g[i]
+    s.lag_index = (s.lag_index + 1) % lags
+    if s.lag_count < lags:
+        s.lag_count += 1
+
+
+@kernel
 def _clear_statistics(fr):
     s, ps = fr.state[0], fr.parameters
     fr.gram[:, :] = 0.0
@@ -411,9 +445,8 @@ def _clear_statistics(fr):
         ps[i].force_sum = 0.0
     s.count = 0.0
     s.force_sq_sum = 0.0
-    s.z_prev = 0.0
-    s.corr_lag = 0.0
-    s.corr_zero = 0.0
+    s.lag_index = s.lag_count = 0
+    fr.hac[:, :] = 0.0
     s.nis_index = s.nis_count = 0
     s.nis_sum = 0.0
     s.cusum = 0.0
@@ -483,10 +516,29 @@ def _outputs(fr, t, f, H, y, S, nis, nis_average):
     pp, ps, po = fr.parameter_params, fr.parameters, fr.parameter_output
     P, G = fr.covariance, fr.gram
     m = P.shape[0]
-    inflation = 1.0
-    if p.correlation and s.corr_zero > 0.0:
-        rho = min(max(s.corr_lag / s.corr_zero, 0.0), 0.95)
-        inflation = (1.0 + rho) / (1.0 - rho)
+    # covariance consistent with correlated residuals: P (P0^-1 + HAC / R^2) P, the sandwich of
+    # the estimate's sensitivity to the prior and the data (White 1980; Newey and West 1987);
+    # with white residuals it is P. Until the data span a few correlation lengths it is not
+    # trusted below P.
+    blocks = s.count / f.shape[0]
+    sandwich = np.zeros(m)
+    use_hac = p.correlation and blocks > m
+    if use_hac:
+        r2 = s.noise_var * s.noise_var
+        PS = np.empty((m, m))
+        for i in range(m):
+            for j in range(m):
+                acc = 0.0
+                for k in range(m):
+                    acc += P[i, k] * fr.hac[k, j]
+                # the data's share P HAC / R^2 and the prior's P P0^-1
+                PS[i, j] = acc / r2 + P[i, j] / pp[j].prior_var
+        for i in range(m):
+            acc = 0.0
+            for k in range(m):
+                acc += PS[i, k] * P[k, i]
+            sandwich[i] = acc * blocks / (blocks - m)
+    trusted = blocks >= 2.0 * fr.lag_ring.shape[0] + m
     theta = np.empty(m)
     for i in range(m):
         theta[i] = ps[i].theta
@@ -505,11 +557,18 @@ def _outputs(fr, t, f, H, y, S, nis, nis_average):
     all_converged = True
     for i in range(m):
         o = po[i]
-        std = math.sqrt(P[i, i] * inflation) if P[i, i] > 0.0 else 0.0
+        variance = P[i, i]
+        if use_hac:
+            variance = sandwich[i] if trusted else max(sandwich[i], P[i, i])
         h_rms = math.sqrt(G[i, i] / count)
         scale = abs(theta[i])
         if h_rms > 0.0:
             scale = max(scale, FORCE_SHARE * force_rms / h_rms)
+            # what no amount of data removes: the force model's own error (the observer's,
+            # the wrench map's, the kinematics'), a share of the parameter's scale
+            floor = p.model_error * scale
+            variance += floor * floor
+        std = math.sqrt(variance) if variance > 0.0 else 0.0
         o.value = theta[i]
         o.std = std
         o.excitation = h_rms
@@ -548,6 +607,23 @@ def _rebuild_since(fr, start):
             _add_block(fr, fr.history_time[slot], fr.history_force[slot],
                        fr.history_regressor[slot], 1.0)
     _solve(fr)
+    # the residuals' correlation from the new estimate's residuals over the same blocks
+    ps = fr.parameters
+    m = ps.shape[0]
+    g = np.empty(m)
+    for k in range(s.history_count):
+        slot = (first + k) % size
+        if fr.history_time[slot] > start:
+            H, f = fr.history_regressor[slot], fr.history_force[slot]
+            for i in range(m):
+                g[i] = 0.0
+            for c in range(f.shape[0]):
+                e = f[c]
+                for i in range(m):
+                    e -= H[c, i] * ps[i].theta
+                for i in range(m):
+                    g[i] += H[c, i] * e
+            _add_score(fr, g, 1.0)
 
 
 @kernel
@@ -587,10 +663,27 @@ def _use_block(fr, t, f, H):
             nis += y[c] * w[c]
     nis_average, s.nis_index, s.nis_count, s.nis_sum = _window_push(
         fr.nis_ring, s.nis_index, s.nis_count, s.nis_sum, nis / channels)
-    z = y[0] / math.sqrt(S[0, 0])
-    s.corr_lag += z * s.z_prev
-    s.corr_zero += z * z
-    s.z_prev = z
+    # the block's score for the correlation-consistent covariance: H^T w with w the innovations
+    # whitened by S and scaled to R (white noise: the scores sum to R G, as the residuals')
+    w = np.empty(channels)
+    if channels == 1:
+        w[0] = y[0] * math.sqrt(s.noise_var / S[0, 0])
+    else:
+        values = np.empty(channels)
+        vectors = np.empty((channels, channels))
+        symmetric_eigen(S.copy(), values, vectors)
+        for a in range(channels):
+            total = 0.0
+            for b in range(channels):
+                inner = 0.0
+                for c in range(channels):
+                    inner += vectors[c, b] * y[c]
+                total += vectors[a, b] * inner / math.sqrt(values[b])
+            w[a] = total * math.sqrt(s.noise_var)
+    score = np.zeros(m)
+    for c in range(channels):
+        for i in range(m):
+            score[i] += H[c, i] * w[c]
     # the block is kept for a possible re-estimation after a change
     size = fr.history_time.shape[0]
     slot = s.history_index
@@ -623,6 +716,7 @@ def _use_block(fr, t, f, H):
     else:
         # 3. the block into the statistics, 4. the noise level, and the estimate
         _add_block(fr, t, f, H, decay)
+        _add_score(fr, score, decay)
         _solve(fr)
         _noise(fr)
         _solve(fr)
@@ -736,6 +830,12 @@ def _capacities(s: Settings) -> tuple[int, int]:
     return nis, history
 
 
+def _lags(s: Settings) -> int:
+    """Blocks in filter.correlation_time."""
+    block = max(float(s["filter.update_interval"]), 1e-3)
+    return max(1, min(int(math.ceil(float(s["filter.correlation_time"]) / block)), 1000))
+
+
 def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     """Write the filter.* settings into the configuration records (checked for cross-setting
     rules; raises SettingsError naming the bad value)."""
@@ -762,6 +862,8 @@ def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     p["excited_fraction"] = excited
     p["converged_fraction"] = converged
     p["correlation"] = bool(s["filter.correlation_correction"])
+    p["lags"] = _lags(s)
+    p["model_error"] = float(s["filter.model_error"])
     pp = fr.parameter_params
     pp["prior_mean"] = mean
     pp["prior_std"] = _per_parameter(s, "filter.initial_std", model)
@@ -778,7 +880,8 @@ def new_records(s: Settings, model: ObjectModel,
     windows = dict(nis_bounds=nis_bounds_table(nis * channels), nis_ring=np.zeros(nis),
                    history_time=np.zeros(history), history_force=np.zeros((history, channels)),
                    history_regressor=np.zeros((history, channels, m)),
-                   block_force=np.zeros(channels), block_regressor=np.zeros((channels, m)))
+                   block_force=np.zeros(channels), block_regressor=np.zeros((channels, m)),
+                   lag_ring=np.zeros((_lags(s), m)), hac=np.zeros((m, m)))
     if views is None:
         fr = FilterRecords(PARAMS.one(), PARAMETER_PARAMS.many(m), STATE.one(),
                            PARAMETERS.many(m), np.zeros((m, m)), np.zeros((m, m)),
@@ -851,6 +954,9 @@ class EnvironmentFilter:
             s["nis_index"] = s["nis_count"] = 0
             s["nis_sum"] = 0.0
             keep.update(nis_bounds=new.nis_bounds, nis_ring=new.nis_ring)
+        if new.lag_ring.shape != old.lag_ring.shape:
+            s["lag_index"] = s["lag_count"] = 0
+            keep.update(lag_ring=new.lag_ring)
         if new.history_time.shape != old.history_time.shape:
             s["history_index"] = s["history_count"] = 0
             keep.update(history_time=new.history_time, history_force=new.history_force,

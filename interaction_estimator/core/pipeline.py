@@ -157,6 +157,7 @@ class Pipeline:
             nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, history_time=fr.history_time,
             history_force=fr.history_force, history_regressor=fr.history_regressor,
             block_force=fr.block_force, block_regressor=fr.block_regressor,
+            lag_ring=fr.lag_ring, hac=fr.hac,
             ring=ring, coefficients=coefficients)
 
     def apply_settings(self, settings: Settings) -> None:

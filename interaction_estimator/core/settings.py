@@ -149,7 +149,10 @@ SPECS: tuple[ParamSpec, ...] = (
     _b("bias.learn", True, "Learn the bias while the robot moves freely (no contact)."),
     _f("bias.time_constant", 0.2, "s", "Time constant of bias learning in free motion.",
        1e-3, 3600.0),
-    _f("bias.max_rate", 20.0, "N·m/s", "Largest change of the bias estimate per second.",
+    _f("bias.max_rate", 1.0, "N·m/s",
+       "Largest change of the bias estimate per second in free motion (a sensor's drift; the"
+       " start-up phase is not limited): a contact force rising faster shows in the residual"
+       " instead of being learned as bias.",
        0.0, 1e4),
     _f("bias.limit", 10.0, "N·m", "Largest magnitude the bias estimate may take, per joint.",
        0.0, 1e4),
@@ -242,14 +245,20 @@ SPECS: tuple[ParamSpec, ...] = (
        "A parameter is excited when its standard deviation is below this share of its scale"
        " (the larger of its value and the value whose force would be 5 % of the RMS force)"
        " and below half its prior standard deviation.", 1e-6, 10.0),
-    _f("filter.converged_fraction", 0.025, "",
+    _f("filter.converged_fraction", 0.03, "",
        "A parameter has converged when its standard deviation is below this share of its"
        " scale (see filter.excited_fraction): a verdict on what its uncertainty does to the"
        " force, the same for every object.", 1e-6, 10.0),
     _b("filter.nonnegative", True, "Keep mass, damping and stiffness non-negative."),
     _b("filter.correlation_correction", True,
-       "Widen the reported standard deviations by the variance inflation factor of correlated"
-       " innovations of neighbouring blocks."),
+       "Standard deviations consistent with correlated residuals (a Newey-West sandwich over"
+       " filter.correlation_time); false: from the white-noise covariance alone."),
+    _f("filter.model_error", 0.02, "",
+       "Systematic error of the estimated force (the observer's, the wrench map's and the"
+       " kinematics' own), as a share of a parameter's scale: added to its standard deviation,"
+       " since no amount of data removes it.", 0.0, 1.0),
+    _f("filter.correlation_time", 1.0, "s",
+       "Time over which the residuals of the blocks are taken to be correlated.", 0.0, 60.0),
     # --- health ---------------------------------------------------------------------------
     _f("health.max_latency", 0.01, "s",
        "Processing latency above which the status warns.", 0.0, 10.0),

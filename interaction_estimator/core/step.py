@@ -102,14 +102,15 @@ def monitor(st, t, dt):
     startup = s.learning_s
     if elapsed < startup:
         # the noise only in the second half (the bias has settled), 4x faster than when free
-        compensation.bias_update(bp, bs, bj, t, dt, raw)
+        compensation.bias_update(bp, bs, bj, t, dt, raw, False)
         if elapsed > 0.5 * startup:
             tmp = np.empty(nv)
             for j in range(nv):
                 tmp[j] = raw[j] + bj[j].value
             if contact.gather_quiet(cs, cj, dt, tmp) >= cp.learn_interval_s:
                 contact.learn_quiet(cp, cs, cj,
-                                    4.0 * cp.noise_time_constant_s / max(startup, 1e-3), scratch)
+                                    4.0 * cp.noise_time_constant_s / max(startup, 1e-3), scratch,
+                                    False)
         return PHASE_LEARNING, contact.EVENT_NONE, 0.0
     residual = np.empty(nv)
     for j in range(nv):
@@ -126,16 +127,16 @@ def monitor(st, t, dt):
     contact.snapshot(cp, cs, cj, bj, t)
     if (not cs.pending and level < cp.exit_level and cs.evidence_g == 0.0
             and t - s.contact_end_s > st.params[0].pipeline.forget_after_s):
-        compensation.bias_update(bp, bs, bj, t, dt, raw)
+        compensation.bias_update(bp, bs, bj, t, dt, raw, True)
         for j in range(nv):
             joints[j].pipeline.residual = raw[j] + bj[j].value
             residual[j] = joints[j].pipeline.residual
         if contact.gather_quiet(cs, cj, dt, residual) >= cp.learn_interval_s:
-            contact.learn_quiet(cp, cs, cj, 1.0, scratch)
+            contact.learn_quiet(cp, cs, cj, 1.0, scratch, True)
     elif cs.quiet_count > 0:
         # quiet no more (a contact may be building up): learn the samples gathered so far at
         # once, as a per-sample average would have, before judging more
-        contact.learn_quiet(cp, cs, cj, 1.0, scratch)
+        contact.learn_quiet(cp, cs, cj, 1.0, scratch, True)
     return PHASE_FREE, event, level
 
 
@@ -308,8 +309,9 @@ def _filter(st):
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
         st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
-        st.history_time, st.history_force, st.history_regressor, st.block_force,
-        st.block_regressor, st.state["filter_output"], st.parameters["filter_output"])
+        st.history_time, st.history_force, st.history_regressor, st.lag_ring, st.hac,
+        st.block_force, st.block_regressor, st.state["filter_output"],
+        st.parameters["filter_output"])
 
 
 @kernel

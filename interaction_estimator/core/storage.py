@@ -103,6 +103,8 @@ class Storage(NamedTuple):
     history_time: np.ndarray   # (history capacity,) the filter's kept blocks: times s
     history_force: np.ndarray  # (history capacity, p) forces N
     history_regressor: np.ndarray  # (history capacity, p, m) regressors
+    lag_ring: np.ndarray       # (lags, m) the filter's last scores
+    hac: np.ndarray            # (m, m) their correlation-consistent sum
     block_force: np.ndarray    # (p,) the filter's block being gathered: sum of forces N
     block_regressor: np.ndarray  # (p, m) sum of regressors
     model_rows: np.ndarray     # (p, m) object_models.ROW: the measurement row
@@ -117,7 +119,8 @@ def new_storage(nv: int, m: int, channels: int = 1) -> Storage:
     return Storage(np.zeros(1, PARAMS), np.zeros(1, STATE), np.zeros(nv, JOINT),
                    np.zeros(m, PARAMETER), np.zeros((m, m)), np.zeros((m, m)),
                    environment.NIS_BOUNDS.many(2), np.zeros(1), np.zeros(2),
-                   np.zeros((2, channels)), np.zeros((2, channels, m)), np.zeros(channels),
+                   np.zeros((2, channels)), np.zeros((2, channels, m)), np.zeros((1, m)),
+                   np.zeros((m, m)), np.zeros(channels),
                    np.zeros((channels, m)),
                    object_models.ROW.many(channels * m).reshape(channels, m), ring,
                    coefficients)
@@ -149,5 +152,6 @@ def filter_views(st: Storage) -> environment.FilterRecords:
     return environment.FilterRecords(
         st.params["filter"], st.parameters["filter_params"], st.state["filter"],
         st.parameters["filter"], st.gram, st.covariance, st.nis_bounds, st.nis_ring,
-        st.history_time, st.history_force, st.history_regressor, st.block_force,
-        st.block_regressor, st.state["filter_output"], st.parameters["filter_output"])
+        st.history_time, st.history_force, st.history_regressor, st.lag_ring, st.hac,
+        st.block_force, st.block_regressor, st.state["filter_output"],
+        st.parameters["filter_output"])
