@@ -28,6 +28,7 @@ PLAIN = {
     "filter.nonnegative": False,
     "filter.change_threshold": 1e8,
     "filter.correlation_correction": False,
+    "filter.model_error": 0.0,
 }
 DIFFUSE = [1e4, 1e5, 1e6, 1e5]   # prior standard deviations far wider than any object
 
