@@ -110,3 +110,14 @@ def test_jacobi_eigensolver_matches_numpy_eigh(seed):
     w, V = np.empty(3), np.empty((3, 3))
     symmetric_eigen(B.copy(), w, V)
     np.testing.assert_allclose(w, np.linalg.eigh(B)[0], atol=1e-12)
+
+
+@pytest.mark.parametrize("n, order, deriv", [(5, 2, 1), (7, 2, 0), (31, 3, 1), (61, 2, 1)])
+def test_savitzky_golay_weights_equal_scipy(n, order, deriv):
+    # Reference: scipy.signal.savgol_coeffs (use='dot', unit spacing), the weights the
+    # kinematics now compute with numpy least squares.
+    from scipy.signal import savgol_coeffs
+
+    from interaction_estimator.core.kinematics import savgol_weights
+    np.testing.assert_allclose(savgol_weights(n, order, deriv),
+                               savgol_coeffs(n, order, deriv=deriv, use="dot"), atol=1e-14)

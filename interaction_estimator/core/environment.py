@@ -202,14 +202,16 @@ def nis_bounds_table(n_max: int) -> np.ndarray:
     (Bar-Shalom, Li and Kirubarajan 2001, sec. 5.4), so the bounds are chi2.ppf(a/2, n) / n and
     chi2.ppf(1 - a/2, n) / n.
     """
-    from scipy.stats import chi2  # settings time only, never in the update
+    # scipy.special's inverse of the chi-square survival function: the same quantiles as
+    # scipy.stats.chi2.ppf (to rounding), without importing scipy.stats (about 0.5 s here)
+    from scipy.special import chdtri  # settings time only, never in the update
 
     n = np.arange(1, n_max + 1, dtype=float)
     alpha = 1.0 - NIS_CONFIDENCE
     table = NIS_BOUNDS.many(n_max + 1)
     table[0] = (math.nan, math.nan)
-    table["lower"][1:] = chi2.ppf(alpha / 2.0, n) / n
-    table["upper"][1:] = chi2.ppf(1.0 - alpha / 2.0, n) / n
+    table["lower"][1:] = chdtri(n, 1.0 - alpha / 2.0) / n
+    table["upper"][1:] = chdtri(n, alpha / 2.0) / n
     return table
 
 

@@ -13,6 +13,8 @@ the nominal sample interval, which the Pipeline learns from the first intervals.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .compiled import kernel
@@ -108,6 +110,18 @@ def kinematics_reset(s, ring):
         ring[k].force = 0.0
 
 
+def savgol_weights(n: int, polyorder: int, deriv: int) -> np.ndarray:
+    """Savitzky-Golay weights (window n, odd; unit spacing) of the ``deriv``-th derivative at
+    the window's centre, in time order: the least-squares polynomial fit of the window,
+    differentiated (Savitzky and Golay, Anal. Chem. 1964). The same numbers as
+    scipy.signal.savgol_coeffs(n, polyorder, deriv, use='dot') (tested), computed with numpy so
+    that building a Pipeline does not import scipy.signal (about 0.3 s here)."""
+    offsets = np.arange(n, dtype=float) - n // 2
+    vander = offsets[:, None] ** np.arange(polyorder + 1)[None, :]
+    # the fit's coefficients c = pinv(V) y; the derivative at 0 is deriv! c[deriv]
+    return np.linalg.pinv(vander)[deriv] * math.factorial(deriv)
+
+
 def window_samples(window: float, polyorder: int, nominal_dt: float) -> int:
     """The window length in samples (odd) for ``window`` s at ``nominal_dt`` s."""
     return max(int(round(window / nominal_dt)) | 1, polyorder + 2 | 1)
@@ -123,17 +137,13 @@ class AlongKinematics:
 
     def __init__(self, window: float, polyorder: int, nominal_dt: float,
                  params: np.ndarray | None = None, state: np.ndarray | None = None):
-        from scipy.signal import savgol_coeffs  # at construction only
-
         n = window_samples(window, polyorder, nominal_dt)
         self.n, self.half = n, n // 2
         self.params = PARAMS.one() if params is None else params
         self.state = STATE.one() if state is None else state
         self.ring, self.coefficients = RING.many(2 * n), COEFFICIENTS.many(n)
-        # savgol_coeffs with use='dot' gives weights for the window in time order
-        self.coefficients["derivative"] = savgol_coeffs(n, polyorder, deriv=1, delta=1.0,
-                                                        use="dot")
-        self.coefficients["smoothing"] = savgol_coeffs(n, polyorder, deriv=0, use="dot")
+        self.coefficients["derivative"] = savgol_weights(n, polyorder, 1)
+        self.coefficients["smoothing"] = savgol_weights(n, polyorder, 0)
         p = self.params[0]
         p["ready"], p["n"], p["half"], p["nominal_dt_s"] = True, n, self.half, nominal_dt
         self.reset()
