@@ -1,10 +1,9 @@
-"""Tests of the tuning command (issue 6): bias, friction and noise from recorded data.
+"""Tests of the tuning command (issues 6 and 17): the robot's bias, friction and sensor noise
+from recorded data, and nothing about any object.
 
 References outside the package, named beside each check:
 * the simulator's ground truth (interaction_estimator.sim.simulator: known bias, friction
   coefficients, effort and velocity noise, contact time, object parameters, true force);
-* scipy.stats.chi2 for the 95 % interval of a time-averaged NIS (Bar-Shalom, Li and Kirubarajan,
-  Estimation with Applications to Tracking and Navigation, 2001, sec. 5.4);
 * rclpy's own parameter-file reader for the ROS 2 types of the written file.
 
 The training set is what a commissioning engineer records: the simulator's ``commissioning``
@@ -25,7 +24,6 @@ import sys
 
 import numpy as np
 import pytest
-from scipy.stats import chi2
 
 from interaction_estimator.core.environment import PARAMETER_NAMES
 from interaction_estimator.core.pipeline import Pipeline
@@ -51,8 +49,10 @@ def cut(run, t0: float, t1: float):
     return dataclasses.replace(run, **arrays)
 
 
-def heavier_arm_urdf(urdf: str, factor: float = 1.5) -> str:
-    """Marten with the upper arm and forearm (links 2 and 4) heavier: a different robot."""
+def heavier_arm_urdf(urdf: str, factor: float = 2.0) -> str:
+    """Marten with the upper arm and forearm (links 2 and 4) heavier: a different robot. (At
+    1.5 x the toolbox's 1.6 s of free motion left 4.2 x what the noise explains on the
+    shoulder pitch against the refusal's 4 x: too close to call; 2 x leaves 7 x.)"""
     for link in ("marten_link2", "marten_link4"):
         urdf, n = re.subn(rf'(<link name="{link}">\s*<inertial>\s*<origin[^>]*/>\s*'
                           r'<mass value=")([0-9.]+)',
@@ -148,7 +148,7 @@ def test_a_bag_without_contact_serves_bias_friction_and_noise_and_says_so(tuned,
     assert recs[b].truth is None           # the bag says it has no object parameters
     assert result.free_only == [b]
     assert not [g for g in result.segments if g.bag == b and g.kind == "contact"]
-    assert len(result.traces[b].tape) == 0                       # no filter update from it
+    assert not (result.traces[b].phase == T.CONTACT).any()       # no contact found in it
     free = sum(g.duration for g in result.segments if g.bag == b and g.kind == "free")
     assert free > 0.95 * (run.time[-1] - run.time[0] - T.margin(result.base, result.joints))
     text = T.explain(result)
@@ -234,22 +234,26 @@ def test_noise_levels_against_simulator_truth(tuned, runs):
     assert abs(s["observer.velocity_noise"] / truth["velocity_noise"] - 1) < 0.15
 
 
-def test_filter_noise_refuses_what_the_data_cannot_support(tuned):
-    result, _ = tuned
-    noise = result.noise
-    lo, hi = noise.measurement_interval
-    assert lo < noise.measurement_std < hi
-    assert abs(math.log(noise.nis_tuned)) < 0.05     # matched: mean NIS of the fit data ~ 1
-    for i, _name in enumerate(PARAMETER_NAMES):
-        if not noise.tuned[i]:   # kept: the base value, and the reason is written beside it
-            assert noise.process_std[i] == result.base["filter.process_std"][i]
-            assert noise.notes[i]
-    # a parameter never excited keeps its base process noise and says why
-    tapes = [t.tape for t in result.traces]
-    base = result.base.replace({"filter.excitation_min": [0.05, 0.02, 1e6, 0.5]})
-    fit = T.fit_filter_noise(tapes, base)
-    assert not fit.tuned[2] and fit.process_std[2] == base["filter.process_std"][2]
-    assert "excited in only 0 %" in fit.notes[2]
+def written_names(path) -> set[str]:
+    """The dotted names a parameter file sets (the package's reader of the ROS 2 layout)."""
+    return set(parameters_from_yaml(path.read_text()))
+
+
+def test_tuned_file_holds_the_robot_only(written, tuned):
+    # issue 17, item 8: the file describes the robot; nothing of the drawer or the toolbox
+    # (object filter settings, their manipulation directions) is written
+    result, recs = tuned
+    names = written_names(written)
+    assert names, "nothing written"
+    assert not [n for n in names if n.startswith("filter.")], names
+    assert not [n for n in names if n.startswith("direction.")], names
+    assert not [n for n in result.entries if n.startswith(("filter.", "direction."))]
+    assert {"bias.initial", "friction.viscous", "friction.coulomb", "observer.effort_noise",
+            "observer.velocity_noise", "joint_names"} <= names
+    # the bags did recommend their task's direction (the simulator's settings): used for the
+    # passes, not written
+    assert any("direction.vector" in r.recommended for r in recs)
+    assert "tune writes no filter.* entry" in " ".join(T.file_header(result, "test"))
 
 
 # --------------------------------------------------------------------------------------------
@@ -262,51 +266,36 @@ def _run_pipeline(run, settings):
                                 run.effort[k])) for k, t in enumerate(run.time)]
 
 
-def _first_white_lag(x: np.ndarray, level: float = 0.2) -> int:
-    x = x - x.mean()
-    var = float(x @ x)
-    for lag in range(1, len(x) // 20):
-        if float(x[lag:] @ x[:-lag]) / var < level:
-            return lag
-    return len(x) // 20
-
-
 def test_tuned_file_beats_the_default_on_a_held_out_run(written):
     run = simulate("toolbox", duration=DURATION["toolbox"], seed=2, rate=1000.0,
                    effort_side="motor")           # held out: another seed, other noise/bias
     default = Settings(run.settings)
     tuned = Settings(run.settings).replace(parameters_from_yaml(written.read_text()))
+    # the robot as the simulator made it: its true bias and friction (simulator truth)
+    exact = Settings(run.settings).replace({
+        "joint_names": list(run.joint_names),
+        "bias.initial": [float(v) for v in run.truth["bias"]],
+        "friction.viscous": [float(v) for v in run.truth["friction_viscous"]],
+        "friction.coulomb": [float(v) for v in run.truth["friction_coulomb"]]})
     truth = np.array([run.truth[p] for p in PARAMETER_NAMES])      # simulator truth
     after = run.in_contact & (run.time > run.truth["contact_time"] + 0.1)
-    # the NIS counts from the end of the contact onset (impact) as the tuning defines it:
-    # differentiator window plus five observer time constants after contact is detected
-    onset = tuned["kinematics.window"] + 5.0 / min(tuned["observer.gain"])
     out = {}
-    for label, settings in (("default", default), ("tuned", tuned)):
+    for label, settings in (("default", default), ("tuned", tuned), ("exact", exact)):
         est = _run_pipeline(run, settings)
         force = np.array([e.force for e in est])
         rmse = math.sqrt(np.mean(np.sum((force[after] - run.true_force[after]) ** 2, axis=1)))
-        start = next((e.time for e in est if e.in_contact), math.inf)
-        nis = np.array([e.nis for e in est if e.in_contact and e.time >= start + onset])
-        out[label] = (rmse, np.abs(est[-1].parameters - truth), nis)
-    rmse_d, err_d, _ = out["default"]
-    rmse_t, err_t, nis = out["tuned"]
-    print(f"force RMSE default {rmse_d:.3f} N, tuned {rmse_t:.3f} N; parameter errors default "
-          f"{np.round(err_d, 3)}, tuned {np.round(err_t, 3)}")
+        out[label] = (rmse, est[-1].parameters, est[-1].parameter_std)
+    for label, (rmse, p, std) in out.items():
+        print(f"{label}: force RMSE {rmse:.3f} N; parameters {np.round(p, 3)} +/- "
+              f"{np.round(std, 3)}; error {np.round(p - truth, 3)}")
+    rmse_d, rmse_t, rmse_x = out["default"][0], out["tuned"][0], out["exact"][0]
     assert rmse_t < 0.5 * rmse_d                     # against the simulator's true force
-    assert np.all(err_t < err_d)                     # against the simulator's parameters
-    # NIS: the chi-square interval (scipy.stats, Bar-Shalom et al. 2001) holds for independent
-    # terms; the innovations here are correlated over tens of samples, so the average is taken
-    # over every m-th update, m the lag at which the NIS sequence decorrelates
-    m = _first_white_lag(nis)
-    kept = nis[::m]
-    n = len(kept)
-    lo, hi = chi2.ppf(0.025, n) / n, chi2.ppf(0.975, n) / n
-    n_all = len(nis)
-    print(f"mean NIS {nis.mean():.3f} over {n_all} updates (interval "
-          f"{chi2.ppf(0.025, n_all) / n_all:.3f}..{chi2.ppf(0.975, n_all) / n_all:.3f}); every "
-          f"{m}th: {kept.mean():.3f} over {n} (interval {lo:.3f}..{hi:.3f})")
-    assert lo <= kept.mean() <= hi                   # scipy.stats.chi2 interval
+    assert rmse_t < 1.1 * rmse_x                     # as good as the true robot properties
+    # the object's parameters are what the object filter makes of the force: with the tuned
+    # file, those it makes with the robot's true bias and friction (the file holds nothing
+    # else that reaches the filter), within a quarter of their standard deviation
+    p_t, (p_x, std_x) = out["tuned"][1], out["exact"][1:]
+    assert np.all(np.abs(p_t - p_x) < 0.25 * std_x), (p_t, p_x, std_x)
 
 
 # --------------------------------------------------------------------------------------------
@@ -352,7 +341,7 @@ def test_tuned_file_is_in_effect_in_a_namespaced_node(bags, tmp_path):
     in_file = {name: Parameter.from_parameter_msg(msg).value for name, msg in
                parameter_dict_from_yaml_file(str(out),
                                              target_nodes=["/**/interaction_estimator"]).items()}
-    assert {"friction.viscous", "filter.measurement_std", "bias.initial"} <= set(in_file)
+    assert {"friction.viscous", "observer.effort_noise", "bias.initial"} <= set(in_file)
     defaults = Settings()
     assert any(defaults[n] != v for n, v in in_file.items() if not isinstance(v, list))
     domain = next_domain()
@@ -384,9 +373,12 @@ def test_command_line_single_bag_with_base_file_and_report(bags, tmp_path):
     assert code == 0
     settings = load_parameter_file(out)
     assert settings["contact.enter_level"] == 7.0          # the base file's own setting kept
-    assert settings["filter.noise_adaptation"] == "fixed"
+    names = written_names(out)
+    assert not [n for n in names if n.startswith(("filter.", "direction."))], names
     page = (report / T.REPORT_NAME).read_text()
-    assert page.count("<svg") >= 3 and "Held out" in page and "base settings" in page
+    # force and parameter plots on the held-out end of the contact, base against tuned
+    assert page.count("<svg") >= 2 and "Held out" in page and "base settings" in page
+    assert "force RMSE (N)" in page
 
 
 def test_command_line_commissioning_bag_and_one_task_with_report(bags, runs, tmp_path, capsys):
@@ -399,8 +391,8 @@ def test_command_line_commissioning_bag_and_one_task_with_report(bags, runs, tmp
     assert "bag 2  no contact: free motion only" in printed
     text = out.read_text()
     assert "# bags without contact (free motion only, used for bias, friction and sensor " \
-           "noise, not for the environment filter): commissioning_bag" in text
-    assert "each bag alone:" in text and "no contact" in text and "nan" not in text
+           "noise): commissioning_bag" in text
+    assert "# this file describes the robot only" in text and "nan" not in text
     settings = load_parameter_file(out)
     truth = runs["commissioning"].truth                          # simulator truth
     order = [truth_index(runs["commissioning"], n) for n in settings["joint_names"]]
@@ -426,17 +418,70 @@ def test_module_runs_on_its_own():
 # bad input: a clear message, exit 2, nothing written
 
 
+def test_a_commissioning_bag_alone_named_free_motion(bags, runs, tmp_path, capsys):
+    # no contact needed: the commissioning run alone, named free motion (the README's
+    # workflow), is used whole for bias, friction and sensor noise (and the robot's dynamics)
+    run = runs["commissioning"]
+    assert not run.in_contact.any()                              # simulator truth
+    out, report = tmp_path / "tuned.yaml", tmp_path / "report"
+    code = T.main(["--free-motion", str(bags["commissioning"]), "--out", str(out),
+                   "--report", str(report)])
+    cap = capsys.readouterr()
+    assert code == 0, cap.err
+    assert "bag 1  no contact: free motion only" in cap.out
+    names = written_names(out)
+    assert not [n for n in names if n.startswith(("filter.", "direction."))], names
+    settings = load_parameter_file(out)
+    truth = run.truth                                            # simulator truth
+    order = [truth_index(run, n) for n in settings["joint_names"]]
+    np.testing.assert_allclose(settings["bias.initial"], np.asarray(truth["bias"])[order],
+                               atol=0.05)
+    np.testing.assert_allclose(settings["friction.viscous"],
+                               np.asarray(truth["friction_viscous"])[order], rtol=0.1)
+    np.testing.assert_allclose(settings["friction.coulomb"],
+                               np.asarray(truth["friction_coulomb"])[order], rtol=0.1)
+    assert abs(settings["observer.effort_noise"] / truth["effort_noise"] - 1) < 0.15
+    assert abs(settings["observer.velocity_noise"] / truth["velocity_noise"] - 1) < 0.15
+    assert out.with_suffix(".urdf").exists()
+    page = (report / T.REPORT_NAME).read_text()
+    assert "No bag has contact" in page and "<h2>Per joint</h2>" in page
+
+
+def test_the_free_stretch_of_a_task_bag_alone(runs, tmp_path, capsys):
+    # the drawer's first 1.9 s, before the robot reaches the drawer (contact at about 2 s), as
+    # an ordinary bag: tuned from what moved, the joints that turned one way only said so
+    run = runs["drawer"]
+    part = cut(run, 0.0, 1.9)
+    assert not part.in_contact.any()                             # simulator truth
+    bag = tmp_path / "before_contact_bag"
+    write_simulated_bag(bag, part)
+    result = T.tune([T.read_bag(bag)], run.urdf, {})
+    assert result.free_only == [0] and result.contact_time == 0.0
+    assert not [n for n in result.entries if n.startswith(("filter.", "direction."))]
+    true_bias = run.truth["bias"]                                # simulator truth
+    checked = 0
+    for j in result.identification.joints:
+        err = abs(j.bias[0] - true_bias[truth_index(run, j.name)])
+        if j.friction_identified:              # moved both ways: bias apart from friction
+            assert err < max(0.05, j.bias_ci[0]), (j.name, err, j.bias_ci[0])
+            checked += 1
+        elif max(j.moving_time) >= T.common.MIN_MOVING_TIME:     # one way: it says so
+            assert any(j.name in w and "moved one way only" in w for w in result.warnings)
+    assert checked >= 3
+    out = tmp_path / "tuned.yaml"
+    assert T.main([str(bag), "--out", str(out)]) == 0
+    assert "bag 1  no contact: free motion only" in capsys.readouterr().out
+    assert not [n for n in written_names(out) if n.startswith(("filter.", "direction."))]
+
+
 def _bad_case(kind: str, runs, bags, tmp_path) -> tuple[list[str], str]:
-    drawer, toolbox = runs["drawer"], runs["toolbox"]
-    if kind in ("too_short", "no_contact", "no_free_motion", "commissioning_only"):
-        part = {"too_short": (drawer, 0.0, 0.5), "no_contact": (drawer, 0.0, 1.95),
-                "no_free_motion": (toolbox, 2.3, 6.0),
-                "commissioning_only": (runs["commissioning"], 0.0, 4.0)}[kind]
+    toolbox = runs["toolbox"]
+    if kind in ("too_short", "no_free_motion"):
+        part = {"too_short": (runs["drawer"], 0.0, 0.5),
+                "no_free_motion": (toolbox, 2.3, 6.0)}[kind]
         bag = tmp_path / f"{kind}_bag"
         write_simulated_bag(bag, cut(*part))
-        return [str(bag)], {"too_short": "too short", "no_contact": "not enough contact",
-                            "no_free_motion": "no free motion",
-                            "commissioning_only": "not enough contact"}[kind]
+        return [str(bag)], {"too_short": "too short", "no_free_motion": "no free motion"}[kind]
     urdf = tmp_path / "robot.urdf"
     if kind == "other_robot":
         urdf.write_text(OTHER_ROBOT_URDF)
@@ -445,8 +490,8 @@ def _bad_case(kind: str, runs, bags, tmp_path) -> tuple[list[str], str]:
     return [str(bags["toolbox"]), "--urdf", str(urdf)], "URDF does not describe"
 
 
-@pytest.mark.parametrize("kind", ["too_short", "no_contact", "no_free_motion",
-                                  "commissioning_only", "other_robot", "heavier_arm"])
+@pytest.mark.parametrize("kind", ["too_short", "no_free_motion", "other_robot",
+                                  "heavier_arm"])
 def test_bad_input_is_refused_and_nothing_is_written(kind, runs, bags, tmp_path, capsys):
     argv, expected = _bad_case(kind, runs, bags, tmp_path)
     out = tmp_path / "tuned.yaml"

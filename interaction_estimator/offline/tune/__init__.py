@@ -1,10 +1,10 @@
-"""Commissioning from recorded data: torque bias, joint friction and noise levels, into a
-parameter file.
+"""Commissioning from recorded data: the robot's torque bias, joint friction and sensor noise,
+into a parameter file.
 
 ``interaction-estimator tune BAG [BAG ...] --out FILE [--params BASE] [--urdf FILE] [--report DIR]
 [--free-motion BAG ...] [--tool-frame LINK]`` (or ``python -m interaction_estimator.offline.tune
 ...``) runs the recorded joint states through the package's own :class:`~.pipeline.Pipeline`
-and identifies, from the data:
+and identifies, from the robot's free motion, properties of the ROBOT only:
 
 0. **The robot's own dynamics** (when bags are named ``--free-motion`` or a tool is named):
    base inertial parameters, friction and bias from free motion, physically consistent,
@@ -19,10 +19,10 @@ and identifies, from the data:
    Pipeline itself assumes is free motion), then passes with the identified values re-segment
    until the free-motion samples no longer change (at most :data:`MAX_SEGMENTATION_PASSES`).
    Samples within :func:`margin` s of contact, of an observer restart or of the start are left
-   out. A bag in which the monitor finds no contact at all (a commissioning run of free motion,
-   such as the simulator's ``commissioning`` scenario, which moves every joint both ways) serves
-   bias, friction and sensor noise only, and the account of the segments says so; at least one bag
-   must have contact, for step 4.
+   out. Bags named ``--free-motion`` are free motion whole, whatever the monitor says. Bags of
+   free motion alone (a commissioning run, such as the simulator's ``commissioning`` scenario,
+   which moves every joint both ways) and task bags (their free-motion stretches) serve alike;
+   no contact is needed, and contact, where found, is only reported.
 2. **Bias and friction** per joint from free motion. The observer residual computed without
    bias and friction is, in free motion, ``r_raw = O(-(b + f_v v + f_c tanh(v/eps)))`` where ``O``
    is the observer itself, a linear filter. The regressors are therefore made by running a copy of
@@ -41,76 +41,59 @@ and identifies, from the data:
    when passed through the same observer (two unit-noise probes run alongside the regressors): a
    residual far above it means the URDF does not describe the recorded robot, or the "free" motion
    was not free, and the tuning stops.
-4. **Environment-filter noise** from contact. The filter's inputs (regressor rows and forces)
-   are recorded from the last Pipeline pass and the package's own
-   :class:`~.environment.EnvironmentFilter` is re-run on them with noise adaptation fixed (see
-   :func:`fit_filter_noise`). Its innovations are strongly correlated at the sample rate (the
-   force comes through the momentum observer, the acceleration through a smoothing
-   differentiator), so a white-noise likelihood at full rate would let the parameters chase
-   that correlated error. Process noise is therefore the maximum of the innovation likelihood
-   ``-1/2 sum(log S + y^2/S)`` (Bar-Shalom, Li and Kirubarajan 2001, sec. 5.4) of the filter
-   run on every m-th update, m the lag at which the innovations decorrelate, with 95 %
-   likelihood-ratio intervals; measurement noise is matched at full rate so that the mean NIS
-   is 1 (covariance matching, Mehra, IEEE TAC 1972), with an interval from the Newey-West
-   standard error of that mean. The impact at each contact onset (:func:`onset_time`) counts in
-   neither. Values the data cannot support are refused: a parameter never excited keeps the
-   base process noise; one whose likelihood is flat towards zero keeps the base value when the
-   data accept it, otherwise gets the largest value they accept. ``filter.noise_adaptation``
-   is written as ``fixed``, since the measurement noise is now known.
+
+Nothing about an object is identified or written: no ``filter.*`` entry (the object filter
+learns its noise level online from its own residuals, :mod:`~.core.environment`), and a bag's
+recommended settings of its task or object (``direction.*``, ``filter.*``, simulated bags carry
+them) are used for that bag's passes only. A file tuned on one object's bag therefore carries
+nothing of that object into other objects' estimates.
 
 The result is written as a ROS 2 parameter YAML (``interaction_estimator:`` /
-``ros__parameters:``): the base file's own settings, the settings every bag recommends alike, and
-the tuned ones, each tuned entry preceded by a comment saying what data it came from and how
-sure it is (settings not listed keep their defaults; per-joint lists follow ``joint_names``,
-written in the URDF's order). The file is written to a
-temporary file beside the target and renamed: on any error nothing is written.
+``ros__parameters:``): the base file's own settings, the robot settings every bag recommends
+alike, and the tuned ones, each tuned entry preceded by a comment saying what data it came from
+and how sure it is (settings not listed keep their defaults; per-joint lists follow
+``joint_names``, written in the URDF's order). The file is written to a temporary file beside
+the target and renamed: on any error nothing is written.
 
 Layout of this package (each module one responsibility; DEVELOPERS.md has the map):
 ``recordings`` (bags in memory), ``passes`` (one Pipeline pass with its taps), ``segments``
 (free motion and contact), ``friction`` (sensor noise, bias and friction; the model check),
-``filter_noise`` (the environment filter's noise), ``model`` (the robot's dynamics, step 0),
-``entries`` (the written settings and the parameter file), ``procedure`` (the whole tuning),
-``command`` (the command line), ``report`` and ``report_model`` (the HTML report), ``common``
-(constants, the error type).
+``model`` (the robot's dynamics, step 0), ``entries`` (the written settings and the parameter
+file), ``procedure`` (the whole tuning), ``command`` (the command line), ``report`` and
+``report_model`` (the HTML report), ``common`` (constants, the error type).
 """
 from __future__ import annotations
 
 from .command import add_arguments, explain, main, run
 from .common import (
-                     CONTACT,
-                     EXIT_FAILURE,
-                     EXIT_OK,
-                     EXIT_USAGE,
-                     FREE,
-                     FREE_ONLY_USE,
-                     HELD_OUT_FRACTION,
-                     LEARNING,
-                     PHASES,
-                     PROG,
-                     REPORT_NAME,
-                     TuneError,
+    CONTACT,
+    EXIT_FAILURE,
+    EXIT_OK,
+    EXIT_USAGE,
+    FREE,
+    FREE_ONLY_USE,
+    HELD_OUT_FRACTION,
+    LEARNING,
+    PHASES,
+    PROG,
+    REPORT_NAME,
+    ROBOT_ONLY,
+    TASK_SETTINGS,
+    TuneError,
 )
-from .entries import (
-                     TunedEntry,
-                     build_entries,
-                     file_header,
-                     free_only_text,
-                     parameter_yaml,
-                     write_text_atomic,
-)
-from .filter_noise import NoiseFit, fit_filter_noise, replay_filter
+from .entries import TunedEntry, build_entries, file_header, free_only_text
 from .friction import Identification, JointFit, check_model_fit, identify
-from .passes import FilterTape, Trace, run_pass
+from .passes import Trace, run_pass
 from .procedure import TuneResult, bag_settings, tune
 from .recordings import Recording, Reference, read_bag, recording_from_run
-from .segments import Segment, free_mask, margin, onset_time, steady_mask
+from .segments import Segment, contact_time, free_mask, margin
 
 __all__ = [
     "add_arguments", "explain", "main", "run", "CONTACT", "EXIT_FAILURE", "EXIT_OK",
     "EXIT_USAGE", "FREE", "FREE_ONLY_USE", "HELD_OUT_FRACTION", "LEARNING", "PHASES", "PROG",
-    "REPORT_NAME", "TuneError", "TunedEntry", "build_entries", "file_header", "free_only_text",
-    "parameter_yaml", "write_text_atomic", "NoiseFit", "fit_filter_noise", "replay_filter",
-    "Identification", "JointFit", "check_model_fit", "identify", "FilterTape", "Trace",
-    "run_pass", "TuneResult", "bag_settings", "tune", "Recording", "Reference", "read_bag",
-    "recording_from_run", "Segment", "free_mask", "margin", "onset_time", "steady_mask",
+    "REPORT_NAME", "ROBOT_ONLY", "TASK_SETTINGS", "TuneError", "TunedEntry", "build_entries",
+    "file_header", "free_only_text", "Identification",
+    "JointFit", "check_model_fit", "identify", "Trace", "run_pass", "TuneResult",
+    "bag_settings", "tune", "Recording", "Reference", "read_bag", "recording_from_run",
+    "Segment", "contact_time", "free_mask", "margin",
 ]

@@ -10,7 +10,6 @@ from typing import Any
 
 import numpy as np
 
-from ...core.environment import PARAMETER_NAMES
 from ...core.model import ModelError
 from ...core.settings import SettingsError
 from ...io.description_file import resolve as resolve_description
@@ -18,7 +17,7 @@ from ...io.files import write_atomic
 from ..identification import Tool
 from ..identification.signals import DEFAULT_WINDOW
 from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
-from .entries import _interval, file_header, model_summary, point_at_model, urdf_header
+from .entries import file_header, model_summary, point_at_model, urdf_header
 from .model import ModelRequest
 from .procedure import TuneResult, tune
 from .recordings import Recording, read_bag
@@ -29,7 +28,7 @@ from .recordings import Recording, read_bag
 
 def explain(result: TuneResult) -> str:
     """A plain-text account of what was found (printed by the command)."""
-    r, ident, noise = result, result.identification, result.noise
+    r, ident = result, result.identification
     out = [f"bags: {len(r.bags)}; pipeline passes: {r.passes}"]
     out.append("segments used (bag, kind, s):")
     for s in sorted(r.segments, key=lambda s: (s.bag, s.start)):
@@ -37,8 +36,8 @@ def explain(result: TuneResult) -> str:
                    f"  ({s.duration:.2f} s)")
     for b in r.free_only:
         out.append(f"  bag {b + 1}  no contact: {FREE_ONLY_USE}")
-    out.append(f"free motion: {ident.free_time:.2f} s; contact: {noise.contact_time:.2f} s "
-               f"({noise.updates} filter updates)")
+    out.append(f"free motion used: {ident.free_time:.2f} s; contact found: "
+               f"{r.contact_time:.2f} s (not used: tune identifies the robot only)")
     out.append(f"{'joint':<24}{'bias':>10}{'+/-':>8}{'viscous':>10}{'+/-':>8}{'coulomb':>10}"
                f"{'+/-':>8}{'resid':>8}{'noise':>8}{'effort':>8}{'veloc':>9}")
     for j in ident.joints:
@@ -52,22 +51,8 @@ def explain(result: TuneResult) -> str:
                " what the sensor noise explains, both RMS)")
     out.append(f"sensor noise: effort {ident.effort_noise:.4g} N·m, velocity "
                f"{ident.velocity_noise:.4g} rad/s (medians over joints)")
-    lo, hi = noise.measurement_interval
-    if len(noise.per_bag_std) > 1:
-        out.append("measurement std each bag alone: " + ", ".join(
-            f"{v:.3g} N" if b not in r.free_only else "no contact"
-            for b, v in enumerate(noise.per_bag_std)))
-    out.append(f"environment filter: measurement std {noise.measurement_std:.4g} N "
-               f"(95 %: {_interval(lo, hi)}); mean NIS {noise.nis_base:.3g} at the base values ->"
-               f" {noise.nis_tuned:.3g} tuned (fixed noise); innovations decimated by "
-               f"{noise.decimation} for the likelihood (lag-1 autocorrelation "
-               f"{noise.innovation_correlation:.2f}); {noise.evaluations} filter runs")
-    for i, p in enumerate(PARAMETER_NAMES):
-        state = ("tuned" if noise.tuned[i] else "kept")
-        out.append(f"  process std {p:<13} {noise.process_std[i]:10.4g}  {state}"
-                   f"  excited {100 * noise.excited_fraction[i]:.0f} %"
-                   + (f"  ({_interval(*noise.process_interval[i])})" if noise.tuned[i] else "")
-                   + (f"  {noise.notes[i]}" if noise.notes[i] else ""))
+    out.append("object filter: nothing written (it learns its noise level online from its "
+               "own residuals)")
     out += explain_model(r)
     for w in r.warnings:
         out.append(f"warning: {w}")
@@ -109,8 +94,9 @@ def explain_model(r: TuneResult) -> list[str]:
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """The ``tune`` subcommand's arguments."""
     parser.add_argument("bags", nargs="*", metavar="BAG", type=Path,
-                        help="rosbag2 bags (directory, .mcap or .db3) of the robot moving freely "
-                             "and then handling an object")
+                        help="rosbag2 bags (directory, .mcap or .db3) of the robot: free motion "
+                             "alone, or tasks that start with free motion (only their "
+                             "free-motion stretches are used)")
     parser.add_argument("--out", required=True, type=Path, metavar="FILE",
                         help="parameter YAML to write (the base with the tuned values)")
     parser.add_argument("--params", type=Path, metavar="BASE",
@@ -120,8 +106,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="URDF of the robot (default: robot_description_file, else the "
                              "bag's robot_description)")
     parser.add_argument("--report", type=Path, metavar="DIR",
-                        help=f"also write DIR/{REPORT_NAME}: default against tuned settings on "
-                             "held-out data")
+                        help=f"also write DIR/{REPORT_NAME}: what was identified, and base "
+                             "against tuned settings on held-out contact data when a bag has "
+                             "contact")
     parser.add_argument("--topics", nargs="+", default=[], metavar="ROLE=TOPIC",
                         help="topic of a role: joint_states, joint_efforts, robot_description "
                              "(e.g. joint_states=/marten/joint_states)")
@@ -292,7 +279,8 @@ def _model_request(args: argparse.Namespace, n_recs: int) -> ModelRequest | None
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog=PROG, description=(
-        "Identify torque bias, joint friction and noise levels from recorded bags and write "
-        "them into a parameter file."))
+        "Identify the robot's torque bias, joint friction and sensor noise (and, when asked, "
+        "its dynamics) from recorded bags and write them into a parameter file; nothing about "
+        "the objects in the bags is written."))
     add_arguments(parser)
     return run(parser.parse_args(argv))

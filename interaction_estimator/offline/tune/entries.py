@@ -2,21 +2,16 @@
 from __future__ import annotations
 
 import datetime as _dt
-import json
-import math
-import os
-import tempfile
-from collections.abc import Iterable, Mapping, Sequence
+import textwrap
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ...core.environment import PARAMETER_NAMES, PARAMETER_UNITS
-from ...core.settings import NODE_NAME, SPEC_BY_NAME, SPECS, Settings, nest
-from .common import FREE_ONLY_USE, PROG, _clamp
-from .filter_noise import NoiseFit
+from ...core.settings import Settings
+from .common import FREE_ONLY_USE, PROG, ROBOT_ONLY, _clamp
 from .friction import Identification
 from .recordings import Recording
 
@@ -33,7 +28,6 @@ class TunedEntry:
     comment: list[str]
 
 
-
 # ============================================================================================
 # entries and their comments
 
@@ -47,9 +41,10 @@ def _round(x: float) -> float:
     return float(f"{float(x):.6g}")
 
 
-def build_entries(ident: Identification, noise: NoiseFit, base: Settings,
-                  joints: Sequence[str], recs: Sequence[Recording]) -> dict[str, TunedEntry]:
-    """The tuned settings with comment lines (ASCII) stating source and confidence."""
+def build_entries(ident: Identification, base: Settings, joints: Sequence[str],
+                  recs: Sequence[Recording]) -> dict[str, TunedEntry]:
+    """The tuned settings with comment lines (ASCII) stating source and confidence: the
+    robot's bias, friction and sensor noise, never a setting of the object filter."""
     last = len(recs) - 1
     free_desc = (f"{ident.free_time:.2f} s of free motion in {len(recs)} bag(s)")
     entries: dict[str, TunedEntry] = {}
@@ -84,123 +79,11 @@ def build_entries(ident: Identification, noise: NoiseFit, base: Settings,
         entries[key] = TunedEntry(key, _round(_clamp(key, value)), [
             f"tuned: median over joints of the {label} noise (second differences of "
             f"{free_desc}); per joint {min(per):.3g} .. {max(per):.3g}"])
-    lo, hi = noise.measurement_interval
-    entries["filter.measurement_std"] = TunedEntry(
-        "filter.measurement_std",
-        _round(_clamp("filter.measurement_std", noise.measurement_std)),
-        [f"tuned: innovation covariance matching (mean NIS = 1) over {noise.updates} contact "
-         f"updates ({noise.contact_time:.2f} s; the first {noise.onset:.3f} s of each contact,"
-         f" the impact, left out), 95 % interval {_interval(lo, hi)} N"]
-        + (["each bag alone: " + ", ".join(f"{_fmt(v)} N" if math.isfinite(v) else "no contact"
-                                            for v in noise.per_bag_std)]
-           if len(noise.per_bag_std) > 1 else []))
-    entries["filter.noise_adaptation"] = TunedEntry("filter.noise_adaptation", "fixed", [
-        "tuned: the measurement noise above was identified from the data; online adaptation "
-        f"(base: {base['filter.noise_adaptation']!r}) would move it during transients"])
-    verb = "tuned" if noise.tuned.any() else "checked, base values kept"
-    lines = [f"{verb}: maximum likelihood of the filter run on every {noise.decimation}th "
-             f"of {noise.updates} contact updates ({noise.contact_time:.2f} s), 95 % "
-             "likelihood-ratio intervals:"]
-    for i, (p, u) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
-        unit = u.replace("·", ".") + "/sqrt(s)"
-        if noise.tuned[i]:
-            lines.append(f"  {p}: {_fmt(noise.process_std[i])} {unit} "
-                         f"({_interval(*noise.process_interval[i])})"
-                         + (f": {noise.notes[i]}" if noise.notes[i] else ""))
-        else:
-            lines.append(f"  {p}: {_fmt(noise.process_std[i])} {unit}: {noise.notes[i]}")
-    entries["filter.process_std"] = TunedEntry(
-        "filter.process_std",
-        [_round(_clamp_elem("filter.process_std", v)) for v in noise.process_std],
-        lines)
     return entries
 
 
-def _clamp_elem(name: str, v: float) -> float:
-    """One element of a float-array setting, clipped into its allowed range."""
-    return _clamp(name, float(v))
-
-
-def _interval(lo: float, hi: float) -> str:
-    if not (math.isfinite(lo) and math.isfinite(hi)):
-        return "not determined"
-    return f"{_fmt(lo)} .. {_fmt(hi)}"
-
-
 # ============================================================================================
-# the parameter file
-
-
-def _yaml_scalar(value: Any) -> str:
-    """One value as ROS 2 parameter YAML that PyYAML and rcl read with the same type."""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            raise ValueError(f"non-finite value {value!r}")  # Settings never holds one
-        text = repr(value)
-        if "e" in text and "." not in text.split("e")[0]:
-            mant, exp = text.split("e")
-            text = f"{mant}.0e{exp}"
-        return text
-    if isinstance(value, str):
-        return json.dumps(value, ensure_ascii=False)
-    raise TypeError(f"cannot write {value!r} as a parameter")
-
-
-def _yaml_value(name: str, value: Any) -> str:
-    if isinstance(value, list):
-        spec = SPEC_BY_NAME[name]
-        if spec.kind == "float_array":
-            value = [float(v) for v in value]
-        return "[" + ", ".join(_yaml_scalar(v) for v in value) + "]"
-    return _yaml_scalar(value)
-
-
-def parameter_yaml(settings: Settings, names: Iterable[str], entries: Mapping[str, TunedEntry],
-                   header: Sequence[str]) -> str:
-    """The parameter file text: the settings ``names`` (in registry order; empty lists, which
-    ROS 2 cannot type, are left out: they mean the default) with their values from
-    ``settings``, tuned entries preceded by their comments."""
-    wanted = set(names) | set(entries)
-    flat = {s.name: settings[s.name] for s in SPECS if s.name in wanted
-            and not (isinstance(settings[s.name], list) and not settings[s.name])}
-    lines = [f"# {h}" for h in header]
-    lines += [f"{NODE_NAME}:", "  ros__parameters:"]
-
-    def emit(tree: Mapping[str, Any], prefix: str, indent: int) -> None:
-        pad = " " * indent
-        for key, value in tree.items():
-            name = f"{prefix}{key}"
-            if isinstance(value, dict):
-                lines.append(f"{pad}{key}:")
-                emit(value, name + ".", indent + 2)
-                continue
-            entry = entries.get(name)
-            if entry is not None:
-                lines.extend(f"{pad}# {c}" for c in entry.comment)
-            lines.append(f"{pad}{key}: {_yaml_value(name, value)}")
-
-    emit(nest(flat), "", 4)
-    return "\n".join(lines) + "\n"
-
-
-def write_text_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to a temporary file beside ``path``, then rename it into place."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".partial", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+# the parameter file's header (the file itself: io.parameter_file.settings_file_text)
 
 
 def file_header(result: TuneResult, base_source: str) -> list[str]:
@@ -208,12 +91,12 @@ def file_header(result: TuneResult, base_source: str) -> list[str]:
     lines = [f"written by `{PROG}` on {now}",
              f"base: {base_source}",
              "bags: " + ", ".join(result.bags),
-             f"free motion used: {result.identification.free_time:.2f} s; contact used: "
-             f"{result.noise.contact_time:.2f} s; pipeline passes: {result.passes}",
+             f"free motion used: {result.identification.free_time:.2f} s (contact found: "
+             f"{result.contact_time:.2f} s, not used); pipeline passes: {result.passes}",
              *([free_only_text(result)] if result.free_only else []),
-             "entries preceded by 'tuned:' (or 'checked') were identified from (or checked"
-             " against) these bags; the others come from "
-             "the base; settings not listed keep their defaults"]
+             *textwrap.wrap(ROBOT_ONLY, 94),
+             "entries preceded by 'tuned:' were identified from these bags; the others come "
+             "from the base; settings not listed keep their defaults"]
     lines += [f"warning: {w}" for w in result.warnings]
     return lines
 

@@ -1,7 +1,7 @@
-"""One Pipeline pass over a recording, with taps on its observer and environment filter."""
+"""One Pipeline pass over a recording, with taps on its observer."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -62,38 +62,6 @@ class _ObserverTap:
         self.copy.reset()
 
 
-@dataclass
-class FilterTape:
-    """The environment filter's inputs from one pass over one bag, in order.
-
-    time (M,) s, rows (M, 4) [x'' m/s^2, x' m/s, x m, 1], force (M,) N, excited (M, 4) bool
-    (as the filter judged it), inflations: (index of the next update, reason)."""
-
-    time: list[float] = field(default_factory=list)
-    rows: list[np.ndarray] = field(default_factory=list)
-    force: list[float] = field(default_factory=list)
-    excited: list[np.ndarray] = field(default_factory=list)
-    inflations: list[tuple[int, str]] = field(default_factory=list)
-
-    def add_update(self, t: float, h: np.ndarray, f: float, excited: np.ndarray) -> None:
-        self.time.append(float(t))
-        self.rows.append(np.array(h, float))
-        self.force.append(float(f))
-        self.excited.append(np.array(excited, bool))
-
-    def add_inflation(self, reason: str) -> None:
-        self.inflations.append((len(self.time), reason))
-
-    def __len__(self) -> int:
-        return len(self.time)
-
-    def subset(self, keep_until: float) -> FilterTape:
-        """The updates with t < keep_until s (inflations before them kept)."""
-        n = int(np.searchsorted(np.asarray(self.time), keep_until))
-        return FilterTape(self.time[:n], self.rows[:n], self.force[:n], self.excited[:n],
-                          [(i, r) for i, r in self.inflations if i < n])
-
-
 # ============================================================================================
 # one Pipeline pass
 
@@ -103,10 +71,10 @@ class Trace:
     """What one Pipeline pass over one recording produced, per accepted sample (N of them).
 
     time (N,) s; phase (N,) codes LEARNING/FREE/CONTACT; restarted (N,) bool; force (N, 3) N;
-    force_along (N,) N; parameters, parameter_std (N, 4) SI; nis, nis_average (N,);
-    nis_bounds (N, 2); tape: filter inputs. With taps: raw (N, nv) N·m observer output without
-    bias; columns (N, 5, nv) observer responses (see :class:`_ObserverTap`); velocity (N, nv)
-    rad/s and effort (N, nv) N·m in model joint order. rejected: samples the Pipeline refused.
+    force_along (N,) N; parameters, parameter_std (N, 4) SI (the object's, for the report only).
+    With taps: raw (N, nv) N·m observer output without bias; columns (N, 5, nv) observer
+    responses (see :class:`_ObserverTap`); velocity (N, nv) rad/s and effort (N, nv) N·m in
+    model joint order. rejected: samples the Pipeline refused.
     """
 
     time: np.ndarray
@@ -116,10 +84,6 @@ class Trace:
     force_along: np.ndarray
     parameters: np.ndarray
     parameter_std: np.ndarray
-    nis: np.ndarray
-    nis_average: np.ndarray
-    nis_bounds: np.ndarray
-    tape: FilterTape
     rejected: int
     reject_message: str
     raw: np.ndarray | None = None
@@ -129,14 +93,12 @@ class Trace:
 
 
 def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) -> Trace:
-    """Feed a recording through a fresh Pipeline, recording the environment filter's inputs
-    (and, when ``taps``, the observer's responses). Raises TuneError when no sample fits the
-    URDF."""
+    """Feed a recording through a fresh Pipeline, recording its outputs per sample (and, when
+    ``taps``, the observer's responses). Raises TuneError when no sample fits the URDF."""
     pipe = Pipeline(settings, urdf)
     nv = pipe.model.nv
     obs_tap = (_ObserverTap(pipe.observer, nv, settings["friction.smoothing_velocity"])
                if taps else None)
-    tape = FilterTape()
     n = len(rec.samples)
     cols = _TraceColumns(n, nv, taps)
     restarts = pipe.observer.restarts
@@ -154,11 +116,6 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
                     and pipe.rejects.last_reason == "non_finite_output"):
                 obs_tap.reset()   # the Pipeline restarted its observer
             continue
-        if pipe.last_regained():
-            tape.add_inflation("contact regained")
-        update = pipe.filter_input()
-        if update is not None:
-            tape.add_update(*update)
         restarted = pipe.observer.restarts != restarts
         restarts = pipe.observer.restarts
         if obs_tap is not None:
@@ -169,7 +126,7 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
             f"{rec.name}: none of its {n} joint states could be used with this URDF "
             f"({pipe.rejects.last_message}); expected joint states of the robot the URDF "
             f"describes (joints {list(pipe.model.joint_names)})")
-    return cols.trace(tape, pipe.rejects.total, pipe.rejects.last_message)
+    return cols.trace(pipe.rejects.total, pipe.rejects.last_message)
 
 
 class _TraceColumns:
@@ -184,9 +141,6 @@ class _TraceColumns:
         self.force_along = np.zeros(n)
         self.parameters = np.zeros((n, 4))
         self.parameter_std = np.zeros((n, 4))
-        self.nis = np.zeros(n)
-        self.nis_average = np.zeros(n)
-        self.nis_bounds = np.zeros((n, 2))
         self.taps = taps
         if taps:
             self.raw = np.zeros((n, nv))
@@ -204,9 +158,6 @@ class _TraceColumns:
         self.force_along[k] = est.force_along
         self.parameters[k] = est.parameters
         self.parameter_std[k] = est.parameter_std
-        self.nis[k] = est.nis
-        self.nis_average[k] = est.nis_average
-        self.nis_bounds[k] = est.nis_bounds
         if self.taps and tap is not None:
             self.raw[k] = tap.raw
             self.columns[k] = tap.columns
@@ -214,7 +165,7 @@ class _TraceColumns:
             self.effort[k] = effort if effort is not None else np.nan
         self.count = k + 1
 
-    def trace(self, tape: FilterTape, rejected: int, message: str) -> Trace:
+    def trace(self, rejected: int, message: str) -> Trace:
         n = self.count
         extra = {}
         if self.taps:
@@ -222,7 +173,6 @@ class _TraceColumns:
                          velocity=self.velocity[:n], effort=self.effort[:n])
         return Trace(self.time[:n], self.phase[:n], self.restarted[:n], self.force[:n],
                      self.force_along[:n], self.parameters[:n], self.parameter_std[:n],
-                     self.nis[:n], self.nis_average[:n], self.nis_bounds[:n], tape, rejected,
-                     message, **extra)
+                     rejected, message, **extra)
 
 

@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Set as AbstractSet
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -18,40 +18,39 @@ from .common import (
     LEARNING,
     MAX_SEGMENTATION_PASSES,
     MIN_BAG_DURATION,
-    MIN_CONTACT_TIME,
     MIN_FREE_TIME,
     MIN_MOVING_TIME,
+    TASK_SETTINGS,
     TuneError,
     _clamp,
 )
 from .entries import TunedEntry, build_entries
-from .filter_noise import NoiseFit, fit_filter_noise
 from .friction import Identification, check_model_fit, identify
 from .model import ModelRequest, ModelResult, identify_robot
-from .passes import FilterTape, Trace, run_pass
+from .passes import Trace, run_pass
 from .recordings import Recording
-from .segments import Segment, contact_segments, free_mask, margin, onset_time
+from .segments import Segment, contact_segments, contact_time, free_mask, margin
 
 # ============================================================================================
 # the whole tuning
 
 
-
 @dataclass
 class TuneResult:
-    """Everything the tuning found. settings: the base with the tuned values; entries: the tuned
-    settings and their comments; identification, noise: the fits; segments: free and contact
-    stretches used (bag index, times s); warnings: things the user should know; bags: names;
-    joints: model joint order; base: the base settings; traces: last pass per bag;
-    free_only: indices of the bags in which the contact monitor found no contact (free motion
-    only: used for bias, friction and sensor noise, not for the environment filter);
-    model: the robot's identified dynamics, when asked (None: the URDF as given)."""
+    """Everything the tuning found: the robot's properties only, nothing about an object.
+
+    settings: the base with the tuned values; entries: the tuned settings and their comments;
+    identification: bias, friction and sensor noise; segments: free and contact stretches
+    found (bag index, times s; contact is only reported, nothing is fitted to it); warnings:
+    things the user should know; bags: names; joints: model joint order; base: the base
+    settings; traces: last pass per bag; free_only: indices of the bags in which the contact
+    monitor found no contact (free motion only); contact_time: s of contact found over all
+    bags; model: the robot's identified dynamics, when asked (None: the URDF as given)."""
 
     settings: Settings
     base: Settings
     entries: dict[str, TunedEntry]
     identification: Identification
-    noise: NoiseFit
     segments: list[Segment]
     warnings: list[str]
     bags: list[str]
@@ -62,6 +61,7 @@ class TuneResult:
     taps: list[Trace] = field(default_factory=list)
     masks: list[np.ndarray] = field(default_factory=list)
     free_only: list[int] = field(default_factory=list)
+    contact_time: float = 0.0
     model: ModelResult | None = None
 
     def parameter_file(self, header: Sequence[str]) -> str:
@@ -86,14 +86,17 @@ def _check_inputs(recs: Sequence[Recording], base: Settings) -> None:
         if len(rec.samples) < 2 or rec.duration < MIN_BAG_DURATION:
             raise TuneError(
                 f"{rec.name}: too short ({len(rec.samples)} joint states over "
-                f"{rec.duration:.2f} s); expected at least {MIN_BAG_DURATION:g} s with free "
-                f"motion (bias.startup = {base['bias.startup']:g} s at the start) and contact")
+                f"{rec.duration:.2f} s); expected at least {MIN_BAG_DURATION:g} s starting "
+                f"with free motion (bias.startup = {base['bias.startup']:g} s at the start)")
 
 
 def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] | None = None,
          log: Callable[[str], None] | None = None, model: ModelRequest | None = None
          ) -> TuneResult:
-    """Identify bias, friction and noise from the recordings; returns the tuned settings.
+    """Identify the robot's bias, friction and sensor noise (and, when asked, its dynamics)
+    from the free motion of the recordings; returns the tuned settings. Bags of free motion
+    alone serve as well as task bags (whose free-motion stretches are used); nothing is
+    identified from contact, and nothing about an object is written.
 
     urdf: the robot description (text). params: settings from the base parameter file, flat
     dotted names (None: none). log: progress messages. model: what of the robot's own
@@ -115,15 +118,20 @@ def tune(recordings: Sequence[Recording], urdf: str, params: Mapping[str, Any] |
             recordings, urdf, base, params, model,
             lambda r: bag_settings(base, r.recommended, params, {}), say)
         urdf = identified.urdf
-    result = _tune_settings(recordings, urdf, params, say, common, base)
+    named_free = set(model.free_motion) if model is not None else set()
+    result = _tune_settings(recordings, urdf, params, say, common, base, named_free)
     result.model = identified
     return result
 
 
 def _tune_settings(recordings: Sequence[Recording], urdf: str, params: dict[str, Any],
-                   say: Callable[[str], None], common: dict[str, Any], base: Settings
-                   ) -> TuneResult:
-    """Bias, friction and noise (steps 1-4 of the package text) with the URDF ``urdf``."""
+                   say: Callable[[str], None], common: dict[str, Any], base: Settings,
+                   named_free: AbstractSet[int] = frozenset()) -> TuneResult:
+    """Bias, friction and sensor noise (steps 1-3 of the package text) with the URDF
+    ``urdf``. named_free: indices of the recordings the user named free motion from start to
+    end (``--free-motion``): used whole, whatever the contact monitor says of them (it needs
+    the friction this step identifies: on motor-side efforts it may take unmodelled friction
+    for contact and hold it, leaving too little free motion to learn the friction from)."""
     per_bag = [bag_settings(base, r.recommended, params, {}) for r in recordings]
     pipe = Pipeline(per_bag[0], urdf)  # validates URDF, contact frame and per-joint lists
     joints = pipe.model.joint_names
@@ -133,7 +141,8 @@ def _tune_settings(recordings: Sequence[Recording], urdf: str, params: dict[str,
     say(f"pass 1: {len(recordings)} bag(s) through the pipeline with the base settings")
     taps = [run_pass(r, s, urdf, taps=True) for r, s in zip(recordings, per_bag)]
     startup = base["bias.startup"] > 0 and any((t.phase == LEARNING).any() for t in taps)
-    masks = [free_mask(t, clear, startup_only=startup) for t in taps]
+    masks = [free_mask(t, clear, startup_only=startup, whole=b in named_free)
+             for b, t in enumerate(taps)]
     _require_free(recordings, masks, taps, clear)
     ident = identify(taps, masks, base, joints)
     traces = taps
@@ -150,51 +159,56 @@ def _tune_settings(recordings: Sequence[Recording], urdf: str, params: dict[str,
 
     for _ in range(MAX_SEGMENTATION_PASSES):
         traces = segmentation_pass()
-        new_masks = [free_mask(t, clear, startup_only=False) for t in traces]
+        new_masks = [free_mask(t, clear, startup_only=False, whole=b in named_free)
+                     for b, t in enumerate(traces)]
         _require_free(recordings, new_masks, traces, clear)
         if _same_masks(masks, new_masks):
             break
         masks = new_masks
         ident = identify(taps, masks, base, joints)
-    else:  # the values changed after the last pass: the filter inputs must come from them
+    else:  # the values changed after the last pass: the segments reported come from them
         traces = segmentation_pass()
     check_model_fit(ident, any(bool((t.phase == CONTACT).any()) for t in traces))
     warnings += _friction_warnings(ident)
     segments = list(ident.free_segments)
     for b, t in enumerate(traces):
+        if b in named_free:
+            seen = contact_time(t)
+            if seen > 0:
+                first = float(t.time[np.argmax(t.phase == CONTACT)])
+                warnings.append(
+                    f"{recordings[b].name} was named free motion, but the contact monitor, "
+                    f"with the tuned values, saw {seen:.2f} s of contact in it (first at "
+                    f"{first:.2f} s); it was used whole as free motion, as named. If the robot "
+                    "touched something there, leave that bag out of --free-motion")
+            continue
         segments += contact_segments(b, t)
-    free_only = [b for b, t in enumerate(traces) if not (t.phase == CONTACT).any()]
-    tapes = [t.tape for t in traces]
-    _require_contact(recordings, tapes, traces)
+    free_only = [b for b, t in enumerate(traces)
+                 if b in named_free or not (t.phase == CONTACT).any()]
     if free_only:
         say("no contact in " + ", ".join(recordings[b].name for b in free_only)
             + ": " + FREE_ONLY_USE)
-    say(f"fitting the environment filter's noise to {sum(len(t) for t in tapes)} contact "
-        "updates")
-    noise = fit_filter_noise(tapes, base, onset_time(base, joints))
-    warnings += [n for n, t in zip(noise.notes, noise.tuned) if n and t]
-    lo, hi = noise.measurement_interval
-    if len(recordings) > 1 and any(math.isfinite(v) and not lo <= v <= hi
-                                   for v in noise.per_bag_std):
-        warnings.append(
-            "the measurement noise differs between bags beyond its 95 % interval ("
-            + ", ".join(f"{Path(r.name).name}: {v:.3g} N" for r, v in zip(recordings,
-                                                                          noise.per_bag_std))
-            + f"; pooled {noise.measurement_std:.3g} N): tasks that load the robot differently"
-            " may deserve files of their own")
-    entries = build_entries(ident, noise, base, joints, recordings)
+    entries = build_entries(ident, base, joints, recordings)
     values = {**_per_joint_in_model_order(base, joints),
               **{name: e.value for name, e in entries.items()}}
     tuned_settings = base.replace(values)
-    written = list(params) + list(common)
-    differing = sorted({k for r in recordings for k in r.recommended} - set(common)
-                       - set(params))
+    robot_common = [k for k in common if not _is_task_setting(k)]
+    written = list(params) + [k for k in robot_common if k not in params]
+    differing = sorted({k for r in recordings for k in r.recommended if not _is_task_setting(k)}
+                       - set(common) - set(params))
     if differing:
-        warnings.append(f"the bags recommend different values for {differing} (different "
-                        "tasks?): not written; set them per task")
-    return TuneResult(tuned_settings, base, entries, ident, noise, segments, warnings,
+        warnings.append(f"the bags recommend different values for {differing}: not written; "
+                        "set them in the parameter file")
+    return TuneResult(tuned_settings, base, entries, ident, segments, warnings,
                       [r.name for r in recordings], joints, passes, traces, written, taps, masks,
-                      free_only)
+                      free_only, sum(contact_time(t) for b, t in enumerate(traces)
+                                     if b not in named_free))
+
+
+def _is_task_setting(name: str) -> bool:
+    """A setting of the task or the object (direction, object filter), not of the robot: a
+    bag's recommendation of it is used for that bag's passes only, never written."""
+    return name.startswith(TASK_SETTINGS)
 
 
 PER_JOINT_SETTINGS = ("observer.gain", "bias.initial", "friction.viscous", "friction.coulomb")
@@ -253,18 +267,6 @@ def _require_free(recs: Sequence[Recording], masks: Sequence[np.ndarray],
         f"least {MIN_FREE_TIME:g} s of the robot moving without touching anything, more than "
         f"{clear:.2f} s away from contact (record the bag from before the robot reaches the "
         "object)")
-
-
-def _require_contact(recs: Sequence[Recording], tapes: Sequence[FilterTape],
-                     traces: Sequence[Trace]) -> None:
-    times = [float(np.sum(np.diff(t.time))) if len(t) > 1 else 0.0 for t in tapes]
-    if sum(times) >= MIN_CONTACT_TIME:
-        return
-    per = ", ".join(f"{r.name}: {x:.2f} s" for r, x in zip(recs, times))
-    raise TuneError(
-        f"not enough contact: the contact monitor found {sum(times):.2f} s of contact over all "
-        f"bags ({per}); expected at least {MIN_CONTACT_TIME:g} s of the robot moving the object "
-        "(the environment filter's noise is identified from contact)")
 
 
 def _friction_warnings(ident: Identification) -> list[str]:

@@ -1,23 +1,22 @@
-"""The tuning report: default against tuned settings on data the tuning did not see.
+"""The tuning report: base against tuned settings on data the tuning did not see.
 
 ``interaction-estimator tune ... --report DIR`` writes ``DIR/tuning_report.html``, one
 self-contained page (inline SVG from matplotlib, inline CSS, no scripts):
 
-* what was held out: with several bags that have contact, the last of them; with one such bag
-  the last :data:`~.common.HELD_OUT_FRACTION` of its contact time (bags without contact, free
-  motion only, are never held out: they have nothing to check the filter on);
-* the check settings: the same procedure re-fitted without the held-out data (a whole bag held
-  out: bias, friction and noise from the other bags; part of a bag: the environment filter's
-  noise from the contact before the held-out part, bias and friction from the free motion,
-  which precedes it). The segmentation of the main run is reused, so no bag is re-segmented;
-* the held-out figures for the base ("default") and the check ("tuned") settings: force RMSE
-  against the reference, final parameter errors against the ground truth (when the bag has
-  them), and the time-averaged normalized innovation squared with its two-sided 95 % chi-square
-  interval (Bar-Shalom, Li and Kirubarajan 2001), both over every update and over every m-th
-  update (m: the decimation at which the innovations were found white, see
-  :func:`~.filter_noise.fit_filter_noise`), since the chi-square interval assumes independent terms;
-* plots of force, parameter estimates and NIS for both settings, and the tables of what was
-  identified and where it came from.
+* what was identified (the robot only: bias, friction, sensor noise, and its dynamics when
+  asked) and where it came from;
+* when a bag has contact, a held-out check: with several bags that have contact, the last of
+  them is held out whole; with one such bag the last :data:`~.common.HELD_OUT_FRACTION` of its
+  contact time (bags without contact, free motion only, are never held out: there is no
+  contact force to check). The check settings are the same identification made without the
+  held-out data (a whole bag held out: bias, friction and sensor noise from the other bags;
+  part of a bag: from the free motion before the held-out part). The segmentation of the main
+  run is reused, so no bag is re-segmented;
+* the held-out figures for the base ("base settings") and the check ("tuned") settings: force
+  RMSE against the reference and the object's final parameters against the ground truth (when
+  the bag has them), with plots of force and parameters. The object filter's own settings are
+  the same in both (tune writes none: the filter learns its noise level online), so the
+  difference is the robot's.
 """
 from __future__ import annotations
 
@@ -35,13 +34,11 @@ from ...core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 from ...core.settings import Settings
 from .common import CONTACT, FREE_ONLY_USE, HELD_OUT_FRACTION, LEARNING
 from .entries import build_entries
-from .filter_noise import fit_filter_noise, replay_filter
 from .friction import identify
 from .passes import Trace, run_pass
 from .procedure import TuneResult, bag_settings
 from .recordings import Recording
 from .report_model import model_section
-from .segments import steady_mask
 
 # our colours: base settings, tuned settings, reference, truth, page
 BASE_COLOUR = "#a06a1b"
@@ -66,63 +63,53 @@ class Figures:
     """Held-out figures for one set of settings (None where there is no reference/truth).
 
     force_rmse N (vector error, samples after the held-out start, start-up excluded);
-    parameters (4,) final estimate; parameter_error (4,) estimate - truth; nis_mean and
-    nis_interval over the held-out updates; nis_mean_decimated and its interval over every
-    m-th of them; updates: held-out filter updates."""
+    parameters (4,) the object's final estimate; parameter_error (4,) estimate - truth."""
 
     label: str
     force_rmse: float | None
     parameters: np.ndarray
     parameter_error: np.ndarray | None
-    nis_mean: float
-    nis_interval: tuple[float, float]
-    nis_mean_decimated: float
-    nis_interval_decimated: tuple[float, float]
-    updates: int
     trace: Trace
 
 
-def choose_held_out(result: TuneResult, recs: Sequence[Recording]) -> HeldOut:
+def _contact(trace: Trace) -> np.ndarray:
+    return trace.phase == CONTACT
+
+
+def choose_held_out(result: TuneResult, recs: Sequence[Recording]) -> HeldOut | None:
     """The last bag with contact held out whole when several have contact, otherwise the end
-    of the one bag's contact (the tuning refuses data with no contact at all)."""
+    of the one bag's contact; None when no bag has contact (nothing to check the force on)."""
     with_contact = [b for b in range(len(recs)) if b not in result.free_only
-                    and len(result.traces[b].tape) > 1]
+                    and int(_contact(result.traces[b]).sum()) > 1]
+    if not with_contact:
+        return None
     if len(with_contact) > 1:
         b = with_contact[-1]
         return HeldOut(b, -math.inf, f"the last bag with contact, {recs[b].name}, held out "
                                      "whole")
     b = with_contact[0]
-    tape = result.traces[b].tape
-    t0, t1 = tape.time[0], tape.time[-1]
+    times = result.traces[b].time[_contact(result.traces[b])]
+    t0, t1 = float(times[0]), float(times[-1])
     start = t1 - HELD_OUT_FRACTION * (t1 - t0)
     return HeldOut(b, start, f"the last {100 * HELD_OUT_FRACTION:.0f} % of the contact time of "
                              f"{recs[b].name}, from {start:.2f} s")
 
 
 def check_settings(result: TuneResult, recs: Sequence[Recording], held: HeldOut) -> Settings:
-    """The tuned settings re-fitted without the held-out data (see the module text)."""
+    """The tuned settings identified again without the held-out data (see the module text)."""
     base = result.base
     if not math.isfinite(held.start):       # a whole bag held out
         keep = [b for b in range(len(recs)) if b != held.index]
-        ident = identify([result.taps[b] for b in keep], [result.masks[b] for b in keep], base,
-                         result.joints)
-        noise = fit_filter_noise([result.traces[b].tape for b in keep], base,
-                                 result.noise.onset)
-        entries = build_entries(ident, noise, base, result.joints, [recs[b] for b in keep])
-        return base.replace({n: e.value for n, e in entries.items()})
-    noise = fit_filter_noise([t.tape.subset(held.start) if b == held.index else t.tape
-                              for b, t in enumerate(result.traces)], base, result.noise.onset)
-    entries = build_entries(result.identification, noise, base, result.joints, recs)
-    filt = {n: e.value for n, e in entries.items() if n.startswith("filter.")}
-    return result.settings.replace(filt)
-
-
-def _chi2_interval(n: int) -> tuple[float, float]:
-    """Two-sided 95 % interval of the mean of n independent chi-square(1) terms (scipy.stats)."""
-    from scipy.stats import chi2
-    if n < 1:
-        return (math.nan, math.nan)
-    return float(chi2.ppf(0.025, n) / n), float(chi2.ppf(0.975, n) / n)
+        taps = [result.taps[b] for b in keep]
+        masks = [result.masks[b] for b in keep]
+        used = [recs[b] for b in keep]
+    else:                                   # the free motion before the held-out part
+        taps, used = list(result.taps), list(recs)
+        masks = [m & (t.time < held.start) if b == held.index else m
+                 for b, (t, m) in enumerate(zip(result.taps, result.masks))]
+    ident = identify(taps, masks, base, result.joints)
+    entries = build_entries(ident, base, result.joints, used)
+    return base.replace({n: e.value for n, e in entries.items()})
 
 
 def _force_rmse(trace: Trace, rec: Recording, start: float) -> float | None:
@@ -137,23 +124,14 @@ def _force_rmse(trace: Trace, rec: Recording, start: float) -> float | None:
     return float(np.sqrt(np.mean(np.sum(err * err, axis=1))))
 
 
-def evaluate(rec: Recording, settings: Settings, urdf: str, held: HeldOut, decimation: int,
-             onset: float, label: str) -> Figures:
-    """Run one recording with ``settings`` and measure it over the held-out part (NIS: the
-    first ``onset`` s of each contact, the impact, left out as in the fit)."""
+def evaluate(rec: Recording, settings: Settings, urdf: str, held: HeldOut,
+             label: str) -> Figures:
+    """Run one recording with ``settings`` and measure it over the held-out part."""
     trace = run_pass(rec, settings, urdf)
-    run = replay_filter([trace.tape], settings)   # the same filter, deterministic: its NIS
-    times = np.asarray(trace.tape.time)
-    sel = np.flatnonzero((times >= held.start) & steady_mask(trace.tape, onset))
-    nis = run.nis[sel] if len(run.nis) else np.zeros(0)
-    dec = nis[::max(decimation, 1)]
     truth = None if rec.truth is None else np.array([rec.truth[p] for p in PARAMETER_NAMES])
     params = trace.parameters[-1]
     return Figures(label, _force_rmse(trace, rec, held.start), params,
-                   None if truth is None else params - truth,
-                   float(np.mean(nis)) if len(nis) else math.nan, _chi2_interval(len(nis)),
-                   float(np.mean(dec)) if len(dec) else math.nan, _chi2_interval(len(dec)),
-                   int(len(nis)), trace)
+                   None if truth is None else params - truth, trace)
 
 
 # --------------------------------------------------------------------------------------------
@@ -240,24 +218,6 @@ def parameter_plot(rec: Recording, figs: Sequence[Figures], held: HeldOut) -> st
     return _svg(fig)
 
 
-def nis_plot(figs: Sequence[Figures], held: HeldOut) -> str:
-    t0 = figs[0].trace.time[0]
-    fig, (ax,) = _axes(1, 2.6)
-    for f, colour in zip(figs, (BASE_COLOUR, TUNED_COLOUR)):
-        tr = f.trace
-        contact = tr.phase == CONTACT
-        s = _thin(len(tr.time))
-        ax.plot(tr.time[s] - t0, np.where(contact, tr.nis_average, np.nan)[s], color=colour,
-                lw=0.9, label=f"{f.label}: windowed mean NIS")
-    ax.axhline(1.0, color="#555555", lw=0.7)
-    ax.set_yscale("log")
-    _mark(ax, held, t0)
-    ax.set_ylabel("NIS")
-    ax.set_xlabel("time from the start of the bag (s)")
-    ax.legend(loc="upper right", fontsize=7.5)
-    return _svg(fig)
-
-
 # --------------------------------------------------------------------------------------------
 # page
 
@@ -272,14 +232,6 @@ def _num(x: Any, digits: int = 4) -> str:
     return f"{x:.{digits}g}"
 
 
-def _interval(iv: tuple[float, float]) -> str:
-    return f"[{_num(iv[0], 3)}, {_num(iv[1], 3)}]"
-
-
-def _inside(x: float, iv: tuple[float, float]) -> str:
-    return "inside" if iv[0] <= x <= iv[1] else "outside"
-
-
 def figures_table(figs: Sequence[Figures], rec: Recording) -> str:
     rows = ["<tr><th></th>" + "".join(f"<th>{_e(f.label)}</th>" for f in figs) + "</tr>"]
     rows.append("<tr><td>force RMSE (N)</td>" + "".join(
@@ -291,13 +243,6 @@ def figures_table(figs: Sequence[Figures], rec: Recording) -> str:
             cells.append(f"<td>{_num(f.parameters[i])}{err}</td>")
         truth = "" if rec.truth is None else f", truth {_num(rec.truth[p])}"
         rows.append(f"<tr><td>{_e(p)} ({_e(u)}){truth}; (error)</td>{''.join(cells)}</tr>")
-    rows.append("<tr><td>mean NIS, every update [95 % interval]</td>" + "".join(
-        f"<td>{_num(f.nis_mean, 3)} {_interval(f.nis_interval)} "
-        f"{_inside(f.nis_mean, f.nis_interval)}, n = {f.updates}</td>" for f in figs) + "</tr>")
-    rows.append("<tr><td>mean NIS, every m-th update [95 % interval]</td>" + "".join(
-        f"<td>{_num(f.nis_mean_decimated, 3)} {_interval(f.nis_interval_decimated)} "
-        f"{_inside(f.nis_mean_decimated, f.nis_interval_decimated)}</td>" for f in figs)
-        + "</tr>")
     return "<table>" + "".join(rows) + "</table>"
 
 
@@ -356,38 +301,44 @@ pre{margin:0;font-size:.92em;white-space:pre-wrap}
 
 def build_tuning_report(result: TuneResult, recs: Sequence[Recording], urdf: str,
                         params: Mapping[str, Any]) -> str:
-    """The report page (HTML text): held-out check, plots and tables."""
+    """The report page (HTML text): what was identified, the held-out check, plots, tables."""
     held = choose_held_out(result, recs)
-    rec = recs[held.index]
-    check = check_settings(result, recs, held)
-    default = bag_settings(result.base, rec.recommended, params, {})
-    tuned = bag_settings(result.base, rec.recommended, params,
-                         {n: check[n] for n in result.entries})
-    m, onset = result.noise.decimation, result.noise.onset
-    tuned_urdf = result.model.urdf if result.model is not None else urdf
-    tuned_label = ("tuned settings, identified URDF" if result.model is not None
-                   else "tuned settings")
-    figs = [evaluate(rec, default, urdf, held, m, onset, "base settings"),
-            evaluate(rec, tuned, tuned_urdf, held, m, onset, tuned_label)]
-    warn = "".join(f"<li class='warn'>{_e(w)}</li>" for w in result.warnings)
     body = [
-        "<h1>Commissioning report: bias, friction and noise from recorded data</h1>",
+        "<h1>Commissioning report: the robot's bias, friction and noise from recorded data</h1>",
         f"<p>Bags: {_e(', '.join(result.bags))}. Pipeline passes: {result.passes}. Free motion "
-        f"used: {result.identification.free_time:.2f} s; contact used: "
-        f"{result.noise.contact_time:.2f} s.</p>",
-        f"<p class='note'>Held out: {_e(held.description)}. The tuned settings below were "
-        "re-fitted without it (the segmentation of the main run is reused); the written file "
-        "uses all the data.</p>",
-        "<h2>On the held-out data</h2>", figures_table(figs, rec),
-        f"<p>m = {m}: the decimation at which the filter's innovations were found close to "
-        "white; the chi-square interval assumes independent terms. The first "
-        f"{onset:.3f} s of each contact (the impact) are left out of the NIS, as in the "
-        "fit.</p>",
-        force_plot(rec, figs, held), parameter_plot(rec, figs, held), nis_plot(figs, held),
+        f"used: {result.identification.free_time:.2f} s (contact found: "
+        f"{result.contact_time:.2f} s, not used for the tuning).</p>",
+        "<p class='note'>Only the robot is identified; no setting of the object filter is "
+        "written (it learns its noise level online from its own residuals), so nothing about "
+        "the objects in these bags is carried to other objects.</p>",
+    ]
+    if held is None:
+        body += ["<h2>On held-out data</h2>",
+                 "<p>No bag has contact: there is no contact force to check the tuned settings "
+                 "on. Record a task with contact and pass it too for that check.</p>"]
+    else:
+        rec = recs[held.index]
+        check = check_settings(result, recs, held)
+        default = bag_settings(result.base, rec.recommended, params, {})
+        tuned = bag_settings(result.base, rec.recommended, params,
+                             {n: check[n] for n in result.entries})
+        tuned_urdf = result.model.urdf if result.model is not None else urdf
+        tuned_label = ("tuned settings, identified URDF" if result.model is not None
+                       else "tuned settings")
+        figs = [evaluate(rec, default, urdf, held, "base settings"),
+                evaluate(rec, tuned, tuned_urdf, held, tuned_label)]
+        body += [
+            f"<p class='note'>Held out: {_e(held.description)}. The tuned settings below were "
+            "identified again without it (the segmentation of the main run is reused); the "
+            "written file uses all the data.</p>",
+            "<h2>On the held-out data</h2>", figures_table(figs, rec),
+            force_plot(rec, figs, held), parameter_plot(rec, figs, held)]
+    warn = "".join(f"<li class='warn'>{_e(w)}</li>" for w in result.warnings)
+    body += [
         model_section(result),
         "<h2>What was written</h2>", entries_table(result),
         "<h2>Per joint</h2>", joints_table(result),
-        "<h2>Segments used</h2>", segments_table(result),
+        "<h2>Segments found</h2>", segments_table(result),
     ]
     if warn:
         body += ["<h2>Warnings</h2>", f"<ul>{warn}</ul>"]

@@ -8,7 +8,7 @@ import numpy as np
 
 from ...core.settings import Settings, per_joint
 from .common import CONTACT, FREE, LEARNING, MARGIN_EXTRA
-from .passes import FilterTape, Trace
+from .passes import Trace
 
 # ============================================================================================
 # segments
@@ -35,32 +35,18 @@ def margin(settings: Settings, joints: Sequence[str]) -> float:
     return 5.0 / max(gain, 1e-3) + MARGIN_EXTRA
 
 
-def onset_time(settings: Settings, joints: Sequence[str]) -> float:
-    """Time after a contact onset that the noise fit leaves out, s: the differentiator window
-    (``kinematics.window``) plus five observer time constants. It holds the impact, which the
-    object model does not describe (its NIS values are tens), while the window fills."""
-    gain = min(per_joint(settings, "observer.gain", joints))
-    return settings["kinematics.window"] + 5.0 / max(gain, 1e-3)
-
-
-def steady_mask(tape: FilterTape, onset: float) -> np.ndarray:
-    """Updates (M,) bool at least ``onset`` s after the start of their contact (the first
-    update of the bag, and each contact the Pipeline started again)."""
-    t = np.asarray(tape.time)
-    starts = [0] + [i for i, _ in tape.inflations if i < len(t)]
-    keep = np.ones(len(t), bool)
-    for i in starts:
-        if i < len(t):
-            keep &= ~((t >= t[i]) & (t < t[i] + onset))
-    return keep
-
-
-def free_mask(trace: Trace, clear: float, startup_only: bool) -> np.ndarray:
+def free_mask(trace: Trace, clear: float, startup_only: bool, whole: bool = False
+              ) -> np.ndarray:
     """Samples usable as free motion (N,) bool: phase learning_bias (and free, unless
-    ``startup_only``), at least ``clear`` s from any other sample, restart or the start."""
-    ok = trace.phase == LEARNING
-    if not startup_only:
-        ok |= trace.phase == FREE
+    ``startup_only``), at least ``clear`` s from any other sample, restart or the start.
+    whole: the bag is free motion from start to end (the user named it so): every sample is,
+    whatever the contact monitor said, except near the start and observer restarts."""
+    if whole:
+        ok = np.ones(len(trace.time), bool)
+    else:
+        ok = trace.phase == LEARNING
+        if not startup_only:
+            ok |= trace.phase == FREE
     bad = ~ok | trace.restarted
     t = trace.time
     keep = ok & (t - t[0] >= clear)
@@ -87,5 +73,14 @@ def segments_of(bag: int, time: np.ndarray, mask: np.ndarray, kind: str) -> list
 
 def contact_segments(bag: int, trace: Trace) -> list[Segment]:
     return segments_of(bag, trace.time, trace.phase == CONTACT, "contact")
+
+
+def contact_time(trace: Trace) -> float:
+    """s the contact monitor reported contact in a pass (sum of the sample intervals ending in
+    contact)."""
+    if len(trace.time) < 2:
+        return 0.0
+    dt = np.diff(trace.time)
+    return float(np.sum(dt[trace.phase[1:] == CONTACT]))
 
 
