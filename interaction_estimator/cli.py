@@ -7,8 +7,9 @@ Subcommands (each one an entry of :data:`COMMANDS`; a new one is one more entry)
 * ``replay BAG [BAG ...] --out DIR``: offline estimates, summary and report from bags;
 * ``simulate SCENARIO --out BAG``: a built-in invented scenario written as a bag with its
   ground truth;
-* ``tune BAG [BAG ...] --out FILE``: bias, friction and noise levels identified from bags,
-  written as a parameter file (and, from free motion, the robot's own dynamics as a URDF);
+* ``tune BAG [BAG ...] --out FILE``: the robot's bias, friction and sensor noise identified
+  from the free motion in bags, written as a parameter file (and the robot's own dynamics as a
+  URDF); nothing about any object;
 * ``excitation --urdf FILE --out DIR``: the commissioning motion for that identification.
 
 Exit codes: 0 success; 2 a usage error or bad input (the message names the value and what was
@@ -306,7 +307,8 @@ COMMANDS: tuple[Command, ...] = (
             _replay_arguments, _replay),
     Command("simulate", "write a built-in invented scenario as a bag with ground truth",
             _simulate_arguments, _simulate),
-    Command("tune", "identify bias, friction and noise levels from bags; write a parameter file",
+    Command("tune", "identify the robot's bias, friction and sensor noise from bags; write a "
+            "parameter file",
             lambda p: _tune().add_arguments(p), lambda a: _tune().run(a)),
     Command("excitation", "write a commissioning motion (CSV and JointTrajectory YAML) that "
                           "excites the robot's dynamics within its URDF's limits",

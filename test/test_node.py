@@ -155,8 +155,9 @@ def test_outputs_equal_the_pipeline_and_states_progress(ros, tmp_path):
           queue_depth: 20000
         filter:
           # the synthetic efforts are noise-free: what the object model leaves unexplained is
-          # small and steady, so a fixed small measurement noise fits it
-          noise_adaptation: fixed
+          # small and steady, so a fixed small noise level fits it (and a bool and a float of
+          # the filter's group are read from the file)
+          learn_noise: false
           measurement_std: 0.1
         """)
     node, peer = ros(["--params-file", str(DEFAULT_YAML), "--params-file", str(overrides)])
@@ -366,8 +367,8 @@ def test_parameter_file_changes_and_services(ros, tmp_path):
     # refused changes name the value and what is expected; the value stays
     # reference: the registry's own messages (and rclpy's for its range and read-only checks)
     refusals = [
-        ("filter.fading_factor", 1.0,
-         "filter.fading_factor: 1.0 is out of range; expected (0, 1)"),
+        ("filter.change_threshold", 0.0,
+         "filter.change_threshold: 0.0 is out of range; expected (0, 1e+09)"),
         ("filter.measurement_std", -1.0, "filter.measurement_std"),  # rclpy's range check
         ("direction.mode", "sideways", "expected one of 'world', 'contact', 'estimated'"),
         ("observer.gain", "fast", "observer.gain: 'fast' is not a list of numbers"),
@@ -598,7 +599,10 @@ def test_joint_states_in_another_encoding_are_read_by_rclpy(ros, tmp_path):
 
 
 @pytest.mark.parametrize("body,expected", [
-    ("filter:\n  fading_factor: 1.5\n", "filter.fading_factor"),
+    ("filter:\n  change_threshold: -1.5\n", "filter.change_threshold"),
+    ("filter:\n  fading_factor: 0.99\n",        # retired (issue 17): its replacement named
+     "setting 'filter.fading_factor' is no longer used: the noise level is learned from the"
+     " fit's residuals (filter.learn_noise)"),
     ("filter:\n  measurement_stdev: 1.5\n",
      "unknown setting 'filter.measurement_stdev'; did you mean filter.measurement_std"),
     ("contact_frame: 5\n", "parameter contact_frame"),
@@ -614,8 +618,8 @@ def test_bad_parameter_file_stops_with_a_clear_message(tmp_path, body, expected)
         code = node.stop()
     assert code == 2, node.log()
     assert expected in node.log() and "invalid parameters" in node.log()
-    if "fading_factor" in body:
-        assert "1.5" in node.log()
+    if "change_threshold" in body:
+        assert "-1.5" in node.log()
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])

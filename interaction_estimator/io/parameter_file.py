@@ -65,12 +65,14 @@ HEADER = f"""\
 #
 # Units are SI. "read-only" entries are read at start-up (restart the node to change them); the
 # others can be changed while the node runs, e.g. with
-#   ros2 param set /{NODE_NAME} filter.measurement_std 1.5
+#   ros2 param set /{NODE_NAME} contact.enter_level 8.0
 # and a value outside the allowed range is refused with the reason.
 #
 # Tuning order that works on most robots: (1) effort_side and friction for motor-current
-# efforts, (2) observer.gain for the lag/noise trade-off of the force, (3) contact levels,
-# (4) the noise of the object filter: filter.measurement_std, then filter.process_std.
+# efforts (`interaction-estimator tune` identifies bias, friction and sensor noise from bags),
+# (2) observer.gain for the lag/noise trade-off of the force, (3) contact levels. The object
+# filter needs no noise tuning: it learns its noise level from its own residuals; set its
+# prior (filter.initial_std) wide enough for any object the robot may meet.
 """
 
 # How to tune, by setting; the registry's description says what it is.
@@ -101,33 +103,31 @@ TUNING: dict[str, str] = {
     "filter.initial_std": (
         "Prior uncertainty. Make it generous (a few times the largest value you expect): too"
         " small a prior slows convergence and biases the estimate toward initial_mean."),
-    "filter.process_std": (
-        "Process noise: how fast each parameter may drift, per square-root second. Larger"
-        " follows a changing object faster but leaves the estimate noisier and slows"
-        " convergence; zero freezes a parameter once learned. Start at about 1 % of the"
-        " expected value per sqrt(s); the tuning command identifies it from recorded bags."),
+    "filter.update_interval": (
+        "Longer than the colouring of the force's error (the observer's time constant plus the"
+        " differentiator's window) and short against the motion: 0.05-0.2 s suits most robots,"
+        " at any sample rate."),
     "filter.measurement_std": (
-        "Measurement noise: the spread of the force along the direction that the object model"
-        " does not explain (sensor noise plus model error). Read it off the wrench in steady"
-        " contact (its standard deviation), or let filter.noise_adaptation adapt it. Too small"
-        " makes the estimates jumpy and the NIS too high; too large makes them slow and the NIS"
-        " too low."),
-    "filter.measurement_std_floor": (
-        "Keeps the adapted measurement noise from collapsing on very clean data; set near the"
-        " force resolution."),
-    "filter.noise_adaptation": (
-        "'sage_husa' suits most cases; 'fixed' when measurement_std is known (repeatable"
-        " results, e.g. for replay comparisons)."),
-    "filter.fading_factor": "Closer to 1: steadier noise estimate, slower to follow changes.",
-    "filter.process_adaptation": (
-        "'sage_husa' lets the filter raise process noise itself when the object changes; keep"
-        " 'fixed' unless the NIS stays outside its bounds with a tuned process_std."),
-    "filter.nis_window": "About 1-2 s of samples gives a stable consistency verdict.",
+        "Only a starting value when filter.learn_noise is true (it weighs as a few blocks):"
+        " about the force noise you expect along the direction. With learn_noise false it is"
+        " used as it is: too small makes the estimates jumpy and the NIS too high, too large"
+        " makes them slow and the NIS too low."),
+    "filter.learn_noise": (
+        "Keep it true; false only for repeatable comparisons with a known noise level."),
+    "filter.memory": (
+        "Leave 0 for objects that stay the same (changes are detected); a few times the time"
+        " over which your object's properties drift otherwise."),
     "filter.change_threshold": "Lower detects object changes sooner, with more false alarms.",
-    "filter.excitation_min": (
-        "Below these levels a parameter is not excited and keeps its prior. Move the robot along"
-        " the direction with varying speed and acceleration to excite all four."),
-    "filter.converged_std": "Set to the accuracy your controller needs for each parameter.",
+    "filter.history_time": (
+        "Longer than the time the change test needs to fire (a few update intervals), so"
+        " that the new object's first blocks are kept."),
+    "filter.nis_time": "A few seconds gives a stable consistency verdict.",
+    "filter.excited_fraction": (
+        "A parameter that stays not excited needs motion that shows it: vary speed and"
+        " acceleration along the direction, or move farther for stiffness."),
+    "filter.converged_fraction": (
+        "The share of a parameter's effect on the force your controller can tolerate; the"
+        " same value suits every object."),
     "health.max_latency": "Set to the delay your controller tolerates.",
     "health.min_rate": "Set a little below your joint-state rate.",
     "input.separate_efforts": "For drivers that publish efforts on their own topic.",

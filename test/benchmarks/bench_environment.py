@@ -53,18 +53,18 @@ def _time(settings: Settings, t, H, f) -> float:
 def main() -> None:
     rng = np.random.default_rng(0)
     cases = [
-        ("sage_husa (default settings)", {}, "excited"),
-        ("matching", {"filter.noise_adaptation": "matching"}, "excited"),
-        ("fixed", {"filter.noise_adaptation": "fixed"}, "excited"),
-        ("sage_husa + process sage_husa", {"filter.process_adaptation": "sage_husa"}, "excited"),
-        ("sage_husa", {}, "constant velocity (mass not excited)"),
-        ("sage_husa", {}, "negative damping (projection every step)"),
+        ("default (0.1 s blocks, noise learned)", {}, "excited"),
+        ("every row a block", {"filter.update_interval": 0.0}, "excited"),
+        ("noise fixed", {"filter.learn_noise": False}, "excited"),
+        ("memory 10 s", {"filter.memory": 10.0}, "excited"),
+        ("default", {}, "constant velocity (mass not excited)"),
+        ("default", {}, "negative damping (projection every step)"),
     ]
     print(f"environment filter, {N} updates, best of {REPEATS}")
     for label, values, kind in cases:
         t, H, f = _data(kind, rng)
         us = _time(Settings(values), t, H, f)
-        print(f"  {label:32s} {kind:42s} {us:6.1f} µs/update")
+        print(f"  {label:40s} {kind:42s} {us:6.1f} µs/update")
 
 
 if __name__ == "__main__":
