@@ -228,7 +228,7 @@ def test_failed_configure_says_why_and_can_be_fixed(managed, tmp_path):
     missing = tmp_path / "no_such_robot.urdf"
     body = f"""\
         robot_description_file: {missing}
-        filter: {{fading_factor: 1.5}}
+        filter: {{converged_fraction: 20.0}}
         """
     node, m, _ = managed(body)
     assert node.alive()   # a managed node does not exit on bad parameters: configure fails
@@ -241,11 +241,11 @@ def test_failed_configure_says_why_and_can_be_fixed(managed, tmp_path):
                        and "configure failed" in s.message and s, 10, "the reason", node)
     assert level(st) == 2 and values(st)["state"] == "unconfigured"
     # reference: the registry's range for the bad value
-    assert "filter.fading_factor" in st.message and "1.5" in st.message
+    assert "filter.converged_fraction" in st.message and "20.0" in st.message
 
     # the value fixed through the parameter service: configure now fails on the URDF file only
     req = SetParameters.Request(parameters=[
-        Parameter("filter.fading_factor", value=0.98).to_parameter_msg()])
+        Parameter("filter.converged_fraction", value=0.05).to_parameter_msg()])
     assert m.call(m.set_params, req).results[0].successful
     assert not m.transition(Transition.TRANSITION_CONFIGURE)
     st = Peer.wait_for(lambda: (s := m.latest_status()) is not None
@@ -253,7 +253,7 @@ def test_failed_configure_says_why_and_can_be_fixed(managed, tmp_path):
     # reference: the operating system's text for a missing file
     assert f"robot_description_file '{missing}' cannot be read: No such file or directory" \
         in st.message
-    assert "fading_factor" not in st.message
+    assert "converged_fraction" not in st.message
     assert "configure failed" in node.log()
 
     missing.write_text(marten.MOBILE_URDF.read_text())   # the file now exists

@@ -382,10 +382,11 @@ def test_command_line_single_bag_with_base_file_and_report(bags, tmp_path):
 
 
 def test_command_line_commissioning_bag_and_one_task_with_report(bags, runs, tmp_path, capsys):
-    # the README's workflow: a commissioning bag (no contact) and one task bag
+    # the README's workflow: one task bag and a commissioning bag (no contact) named free
+    # motion (used whole; the robot's dynamics identified from it too)
     out, report = tmp_path / "tuned.yaml", tmp_path / "report"
-    code = T.main([str(bags["drawer"]), str(bags["commissioning"]), "--out", str(out),
-                   "--report", str(report)])
+    code = T.main([str(bags["drawer"]), "--free-motion", str(bags["commissioning"]), "--out",
+                   str(out), "--report", str(report)])
     printed = capsys.readouterr().out
     assert code == 0
     assert "bag 2  no contact: free motion only" in printed
