@@ -56,6 +56,17 @@ SAMPLE = record(
     ("level", I1, "", "health level: OK 0, WARN 1, ERROR 2, STALE 3"),
     ("state", I1, "", "health.STATE_* (word: health.STATES)"),
     ("findings", I8, "", "health.FINDING_* bits"),
+    # the mechanism's geometry (revolute, prismatic)
+    ("geometry", I1, "", "mechanism.GEOMETRY_* (word: mechanism.GEOMETRY_WORDS)"),
+    ("axis", F8, (3,), "", "hinge or slider axis, unit, world frame (opening sense positive)"),
+    ("axis_point", F8, (3,), "m", "a point on the hinge axis, world frame"),
+    ("radius", F8, "m", "grasp radius about the hinge axis"),
+    ("angle", F8, "rad", "hinge angle of the contact point now, from the contact onset"),
+    ("swept_arc", F8, "rad", "arc the path has swept about the hinge axis"),
+    ("travel", F8, "m", "farthest distance of the path from the contact onset"),
+    ("path_rms", F8, "m", "RMS distance of the path from the fitted circle or line"),
+    ("radius_std", F8, "m", "standard deviation of the radius"),
+    ("axis_std", F8, "rad", "standard deviation of the axis direction"),
 )
 PARAMETER = record(
     "outputs of one sample, per parameter of the object model",

@@ -32,11 +32,15 @@ from .environment import UPDATED, EnvironmentFilter, change_text
 from .health import Health
 from .kinematics import AlongKinematics
 from .model import RobotModel
+from . import mechanism
+from .kinematics import SPATIAL_RING, spatial_placeholder, spatial_reset
 from .object_models import (
-    ALONG_DIRECTION,
     MATCH_FIRST_ORDER,
     MATCH_KALMAN,
+    MODEL_PRISMATIC,
+    MODEL_REVOLUTE,
     ObjectModel,
+    model_named,
     new_records,
 )
 from .observer import KalmanMomentumObserver, MomentumObserver
@@ -59,14 +63,21 @@ class Pipeline:
     not fit the model) at construction.
     """
 
-    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel = ALONG_DIRECTION):
+    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel | None = None):
         self.settings = settings
         self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"])
+        if object_model is None:
+            object_model = model_named(settings["environment.model"])
         self.object_model = object_model
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
         nv, m = self.model.nv, object_model.size
-        st = self._storage = storage.new_storage(nv, m, object_model.channels)
+        self._mechanism_kind = (mechanism.KIND_REVOLUTE if object_model.code == MODEL_REVOLUTE
+                                else mechanism.KIND_PRISMATIC
+                                if object_model.code == MODEL_PRISMATIC
+                                else mechanism.KIND_NONE)
+        st = self._storage = storage.new_storage(
+            nv, m, object_model.channels, mechanism.path_capacity(self._mechanism_kind))
         self._pipe_params, self._pipe = st.params["pipeline"], st.state["pipeline"]
         self._out = outputs.SAMPLE.one()               # the last sample's outputs
         self._out_params = outputs.PARAMETER.many(m)
@@ -137,7 +148,14 @@ class Pipeline:
         # dynamics (object_models), the first-order law or the Kalman form's steady state
         match = MATCH_KALMAN if kalman else MATCH_FIRST_ORDER
         self._model_records = new_records(self.object_model, match, float(np.mean(gain)),
-                                          storage.model_views(st))
+                                          storage.model_views(st), s["filter.nonnegative"])
+        mp = st.params["mechanism"][0]
+        mp["kind"] = self._mechanism_kind
+        mp["min_travel_m"] = s["mechanism.min_travel"]
+        mp["min_arc_rad"] = math.radians(s["mechanism.min_arc"])
+        mp["converged_travel_m"] = s["mechanism.converged_travel"]
+        mp["tolerance_m"] = s["mechanism.path_tolerance"]
+        mp["max_radius_m"] = s["mechanism.max_radius"]
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"], self.object_model.parameter_names,
                               st.params["health"])
@@ -152,13 +170,14 @@ class Pipeline:
         kin = getattr(self, "kinematics", None)
         fr = self.filter.records
         ring, coefficients = ((kin.ring, kin.coefficients) if kin is not None
-                              else self._storage[-2:])
+                              else (self._storage.ring, self._storage.coefficients))
         self._storage = self._storage._replace(
             nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, history_time=fr.history_time,
             history_force=fr.history_force, history_regressor=fr.history_regressor,
             block_force=fr.block_force, block_regressor=fr.block_regressor,
             lag_ring=fr.lag_ring, hac=fr.hac,
-            ring=ring, coefficients=coefficients)
+            ring=ring, coefficients=coefficients,
+            spatial_ring=getattr(self, "_spatial_ring", self._storage.spatial_ring))
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -192,11 +211,14 @@ class Pipeline:
         s["contact_end_s"] = -math.inf   # time the last contact ended
         s["ever_contact"] = s["point_valid"] = False
         s["quiet_position_m"] = s["dt_average_s"] = 0.0
+        s["quiet_point"] = 0.0
+        mechanism.mechanism_reset(self._storage.state["mechanism"][0])
         self._reject_times: deque[float] = deque(maxlen=1000)
 
     def _drop_kinematics(self) -> None:
         """No kinematics until the nominal interval is learned again."""
         self.kinematics: AlongKinematics | None = None
+        self._spatial_ring = spatial_placeholder()
         self._storage.params[0]["kinematics"]["ready"] = False
         self._model_records.state["filtered"] = False
         self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
@@ -469,4 +491,7 @@ class Pipeline:
         self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
                                           float(np.median(self._intervals)),
                                           st.params["kinematics"], st.state["kinematics"])
+        if self.object_model.code != 0:   # the models in 3-D: the same window, in 3-D
+            self._spatial_ring = SPATIAL_RING.many(2 * self.kinematics.n)
+            spatial_reset(st.state["spatial"][0], self._spatial_ring)
         self._storage_changed()
