@@ -27,7 +27,7 @@ whose curvature the data do not yet determine (radius standard deviation above 1
 radius, or a radius above ``mechanism.max_radius``) is "straight"; for a slider, a path that a
 circle fits and a line does not is "curved". Otherwise the geometry is used, and it has
 converged once the path has swept ``mechanism.min_arc`` degrees about the hinge axis (a hinge)
-or travelled ``mechanism.converged_travel`` m along the axis (a slider).
+or reached ``mechanism.converged_travel`` m from the onset (a slider).
 
 Signs: the axis is oriented so that the first motion away from the onset (the first point
 farther than ``mechanism.min_travel``) is positive: a positive rotation about the hinge axis
@@ -429,7 +429,7 @@ def mechanism_fit(p, s, path):
             for r in range(3):
                 s.axis[r] = sign * ax[r]
                 s.axis_point[r] = s.line_point[r]
-            s.code = GEOMETRY_CONVERGED if s.extent_m >= p.converged_travel_m \
+            s.code = GEOMETRY_CONVERGED if s.travel_m >= p.converged_travel_m \
                 else GEOMETRY_FITTED
         else:
             s.code = GEOMETRY_CURVED if circle_fits else GEOMETRY_NO_FIT

@@ -13,6 +13,7 @@ from collections.abc import Callable, Mapping
 import numpy as np
 
 from .health import PHASE_CONTACT, PHASES, STATES
+from .mechanism import GEOMETRY_CONVERGED
 from .object_models import ObjectModel
 from .records import B1, F8, I1, I8, record
 
@@ -105,13 +106,15 @@ class Estimate:
     """
 
     __slots__ = ("time", "stamp_from_receive", "rejected", "parameter_names", "_row",
-                 "_parameters", "_joints", "_words", "_full_wrench", "_text")
+                 "_parameters", "_joints", "_words", "_full_wrench", "_text", "model_name")
 
     def __init__(self, time: float, row: np.ndarray, parameters: np.ndarray, joints: np.ndarray,
                  stamp_from_receive: bool, rejected: int, parameter_names: tuple[str, ...],
-                 full_wrench: bool, words: Callable[[Estimate], tuple[str, str]]):
+                 full_wrench: bool, words: Callable[[Estimate], tuple[str, str]],
+                 model_name: str = "along_direction"):
         self.time, self.stamp_from_receive, self.rejected = time, stamp_from_receive, rejected
         self.parameter_names = parameter_names
+        self.model_name = model_name   # environment.model
         self._row, self._parameters, self._joints = row, parameters, joints
         self._full_wrench, self._words = full_wrench, words
         self._text: tuple[str, str] | None = None
@@ -149,6 +152,19 @@ class Estimate:
     observer_restarts = property(lambda self: int(self._row["observer_restarts"][0]))
     rate_hz = property(lambda self: self._field("rate_hz"))
     kinematics_lag = property(lambda self: self._field("kinematics_lag_s"))
+    # a mechanism's geometry (zeros for the models without one)
+    geometry = property(lambda self: int(self._row["geometry"][0]))
+    geometry_converged = property(lambda self: int(self._row["geometry"][0])
+                                  == GEOMETRY_CONVERGED)
+    axis = property(lambda self: self._row["axis"][0])
+    axis_point = property(lambda self: self._row["axis_point"][0])
+    radius = property(lambda self: self._field("radius"))
+    angle = property(lambda self: self._field("angle"))
+    swept_arc = property(lambda self: self._field("swept_arc"))
+    travel = property(lambda self: self._field("travel"))
+    path_rms = property(lambda self: self._field("path_rms"))
+    radius_std = property(lambda self: self._field("radius_std"))
+    axis_std = property(lambda self: self._field("axis_std"))
 
     @property
     def record(self) -> np.ndarray:
@@ -210,6 +226,17 @@ class EstimateBlock:
     bias_age = property(lambda self: self.rows["bias_age_s"])
     in_contact = property(lambda self: self.rows["phase"] == PHASE_CONTACT)
     level = property(lambda self: self.rows["level"])
+    geometry = property(lambda self: self.rows["geometry"])
+    geometry_converged = property(lambda self: self.rows["geometry"] == GEOMETRY_CONVERGED)
+    axis = property(lambda self: self.rows["axis"])
+    axis_point = property(lambda self: self.rows["axis_point"])
+    radius = property(lambda self: self.rows["radius"])
+    angle = property(lambda self: self.rows["angle"])
+    swept_arc = property(lambda self: self.rows["swept_arc"])
+    travel = property(lambda self: self.rows["travel"])
+    path_rms = property(lambda self: self.rows["path_rms"])
+    radius_std = property(lambda self: self.rows["radius_std"])
+    axis_std = property(lambda self: self.rows["axis_std"])
 
     @property
     def state(self) -> np.ndarray:

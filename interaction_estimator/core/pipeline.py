@@ -300,7 +300,7 @@ class Pipeline:
                         outputs.frozen_copy(self._out_joints),
                         stamp_from_receive, self.rejects.total,
                         self.object_model.parameter_names, self.wrench_map.full_wrench,
-                        self._words(len(self._reject_times)))
+                        self._words(len(self._reject_times)), self.object_model.name)
 
     def _words(self, recent_rejects: int) -> Callable[[Estimate], tuple[str, str]]:
         """The wording of an Estimate's verdict and event (made when first asked for)."""
@@ -318,9 +318,50 @@ class Pipeline:
                 float(o["since_contact_end_s"]), tuple(e.excited.tolist()),
                 tuple(e.parameter_converged.tolist()), e.nis_average, nis_lo, nis_hi,
                 e.jacobian_condition, recent_rejects, e.rate_hz)
+            if kind != mechanism.KIND_NONE and e.in_contact:
+                message = f"{message}; {mechanism_words(e)}"
             return message, event_word
 
+        kind, mechanism_words = self._mechanism_kind, self._mechanism_words
         return words
+
+    def _mechanism_words(self, e: Estimate) -> str:
+        """The mechanism's geometry in words (in contact, revolute and prismatic models)."""
+        s = self.settings
+        code = e.geometry
+        tolerance_mm = 1e3 * s["mechanism.path_tolerance"]
+        rms_mm = 1e3 * e.path_rms
+        hinge = self._mechanism_kind == mechanism.KIND_REVOLUTE
+        held = "parameters held at their prior"
+        if code == mechanism.GEOMETRY_SHORT or code == mechanism.GEOMETRY_NONE:
+            return (f"path {100 * e.travel:.1f} cm, shorter than mechanism.min_travel "
+                    f"{100 * s['mechanism.min_travel']:.1f} cm: geometry not fitted yet, {held}")
+        if code == mechanism.GEOMETRY_NO_FIT:
+            return (f"path fits neither a {'circle' if hinge else 'line'} nor a "
+                    f"{'line' if hinge else 'circle'} (RMS {rms_mm:.2f} mm, "
+                    f"mechanism.path_tolerance {tolerance_mm:.2f} mm): too noisy or no "
+                    f"{'hinge' if hinge else 'slider'}; {held}")
+        if code == mechanism.GEOMETRY_STRAIGHT:
+            return (f"path straight so far over {100 * e.travel:.1f} cm (no circle of radius "
+                    f"up to mechanism.max_radius {s['mechanism.max_radius']:g} m is determined):"
+                    f" no hinge located (a slider is environment.model prismatic); {held}")
+        if code == mechanism.GEOMETRY_CURVED:
+            return (f"path curved (line RMS {rms_mm:.2f} mm > mechanism.path_tolerance "
+                    f"{tolerance_mm:.2f} mm; a circle fits): not a slider (a hinge is "
+                    f"environment.model revolute); {held}")
+        if hinge:
+            swept, needed = math.degrees(e.swept_arc), s["mechanism.min_arc"]
+            if code == mechanism.GEOMETRY_CONVERGED:
+                return (f"hinge radius {e.radius:.3f} m, swept {swept:.1f} deg >= "
+                        f"mechanism.min_arc {needed:g} deg: axis and radius converged")
+            return (f"hinge radius {e.radius:.3f} m, swept {swept:.1f} deg of mechanism.min_arc "
+                    f"{needed:g} deg: axis and radius not converged yet")
+        travel, needed = 100 * e.travel, 100 * s["mechanism.converged_travel"]
+        if code == mechanism.GEOMETRY_CONVERGED:
+            return (f"slider axis converged after {travel:.1f} cm (mechanism.converged_travel "
+                    f"{needed:.1f} cm)")
+        return (f"slider travel {travel:.1f} cm of mechanism.converged_travel {needed:.1f} cm: "
+                "axis not converged yet")
 
     def process_block(self, block: SampleBlock) -> EstimateBlock:
         """The samples of a block, in order, as :meth:`process` would take them one by one

@@ -317,7 +317,7 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
                  on_estimate: Callable[[Any], None] | None = None,
                  progress: Progress | None = None) -> tuple[EstimateTable, int]:
     """Feed every joint state of the bag through the pipeline; (table, samples read)."""
-    table = EstimateTable(bag.info.joint_state_count)
+    table = EstimateTable(bag.info.joint_state_count, pipeline.object_model.name)
     append = table.append
     process = pipeline.process
     read = 0
@@ -409,7 +409,8 @@ def replay(req: ReplayRequest) -> ReplayResult:
         }
         summary = summarize(cols, truth=truth.parameters if truth else None,
                             reference=reference, rejects=pipeline.rejects.counts,
-                            samples_read=read, wall_time=wall, source=source)
+                            samples_read=read, wall_time=wall, source=source,
+                            truth_extra=truth.extra if truth else None)
         write_outputs(stage.path, summary, table, reference, file_format=req.file_format,
                       report=req.report)
         stage.commit()
