@@ -166,11 +166,12 @@ class NodeSession:
                 Float64MultiArray, f"/{NODE_NAME}/environment_cartesian"
                 if self.model_name == "cartesian" else f"/{NODE_NAME}/environment",
                 self._on_environment, outputs),
-            self._node.create_subscription(Float64MultiArray, f"/{NODE_NAME}/mechanism",
-                                           self._on_mechanism, outputs),
             self._node.create_subscription(DiagnosticStatus, f"/{NODE_NAME}/status",
                                            self._on_status, outputs),
         ]
+        if self.model_name in ("revolute", "prismatic"):
+            self._subs.append(self._node.create_subscription(
+                Float64MultiArray, f"/{NODE_NAME}/mechanism", self._on_mechanism, outputs))
         from rclpy.executors import SingleThreadedExecutor
         self._executor = SingleThreadedExecutor(context=self._context)
         self._executor.add_node(self._node)
