@@ -80,10 +80,10 @@ class ObjectModel:
         settings: ``filter.initial_mean`` and ``filter.initial_std`` for the models of four
         parameters, the ``cartesian.*`` settings for ``cartesian``."""
         if self.code != MODEL_CARTESIAN:
-            mean, std = list(s["filter.initial_mean"]), list(s["filter.initial_std"])
-            if len(mean) != self.size or len(std) != self.size:  # a defect, not user input
-                raise AssertionError(f"{self.name}: prior of {len(mean)} parameters")
-            return mean, std
+            along_mean, along_std = list(s["filter.initial_mean"]), list(s["filter.initial_std"])
+            if len(along_mean) != self.size:  # a defect, not user input
+                raise AssertionError(f"{self.name}: prior of {len(along_mean)} parameters")
+            return along_mean, along_std
         diagonal = s["cartesian.initial_diagonal"]
         spread = s["cartesian.initial_std"]
         mean: list[float] = []
