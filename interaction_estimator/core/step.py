@@ -332,8 +332,9 @@ def estimate_spatial(st, out, t, dt, phase, event):
                     out.change_g = fo.change_g
                     if fo.change != 0:
                         event = EV_CHANGE
-    if is_mechanism and mechanism.mechanism_usable(ms):
-        # u and x from the mechanism's geometry at the contact point now
+    if is_mechanism and phase == PHASE_CONTACT and mechanism.mechanism_usable(ms):
+        # u and x from the mechanism's geometry at the contact point now (in contact only:
+        # out of it the point is no longer on the mechanism)
         u0, u1, u2, x_now = mechanism.mechanism_along(mp, ms, s.point, False)
         out.direction[0], out.direction[1], out.direction[2] = u0, u1, u2
         out.force_along = u0 * force[0] + u1 * force[1] + u2 * force[2]
@@ -437,9 +438,12 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
         st.params[0].health, phase, out.since_contact_end_s, all_converged, out.nis_average,
         out.nis_lower, out.nis_upper, samples, condition, s.recent_rejects, rate,
         s.stamp_from_receive)
-    if phase == PHASE_CONTACT and (geometry == mechanism.GEOMETRY_NO_FIT
-                                   or geometry == mechanism.GEOMETRY_STRAIGHT
-                                   or geometry == mechanism.GEOMETRY_CURVED):
+    # a path that fits nothing warns at once; "straight" or "curved" (the other mechanism's
+    # shape) once the path is twice mechanism.min_travel: a hinge's first centimetres are
+    # straight within their noise, and that is not yet a finding
+    if phase == PHASE_CONTACT and (geometry == mechanism.GEOMETRY_NO_FIT or (
+            (geometry == mechanism.GEOMETRY_STRAIGHT or geometry == mechanism.GEOMETRY_CURVED)
+            and st.state[0].mechanism.travel_m >= 2.0 * mp.min_travel_m)):
         out.findings |= health.FINDING_PATH
         if out.level == health.OK:
             out.level = health.WARN

@@ -131,7 +131,7 @@ def estimate_outputs(est) -> list[float]:
 def outputs_finite(est) -> bool:
     """True when every number the wrench and environment messages would carry is finite
     (see :func:`output_numbers`)."""
-    return output_numbers(estimate_outputs(est), len(est.parameter_names)) is not None
+    return output_numbers(estimate_outputs(est), len(est.parameters)) is not None
 
 
 def number_text(x: float) -> str:
