@@ -30,12 +30,12 @@ def scenario_bags(tmp_path_factory):
     return out
 
 
-def _node_session(bag, settings, model_name, tmp_path):
+def _node_session(bag, settings, model_name, tmp_path, status_rate=None):
     from interaction_estimator.demo import NodeSession, bag_joint_state_messages
     from interaction_estimator.io.parameter_file import write_parameter_file
     params = tmp_path / "params.yaml"
-    write_parameter_file(params, {**settings, "input.reliability": "reliable",
-                                  "output.status_rate": 0.0})
+    extra = {} if status_rate is None else {"output.status_rate": status_rate}
+    write_parameter_file(params, {**settings, "input.reliability": "reliable", **extra})
     messages, urdf = bag_joint_state_messages(bag)
     session = NodeSession(params, log_path=tmp_path / "node.log", model_name=model_name)
     try:
@@ -97,7 +97,8 @@ def test_cartesian_node_publishes_its_21_parameters_as_the_replay(scenario_bags,
 def test_revolute_node_publishes_the_mechanism_and_the_hinge_in_its_status(scenario_bags,
                                                                            tmp_path, capsys):
     bag, run = scenario_bags["cabinet_door"]
-    params, messages, rec, log = _node_session(bag, run.settings, "revolute", tmp_path)
+    params, messages, rec, log = _node_session(bag, run.settings, "revolute", tmp_path,
+                                               status_rate=0.0)
     cols = _replay(bag, params, tmp_path / "r", capsys)
     assert len(rec.wrench) == len(messages), log[-2000:]
     # ~/mechanism with every status of an estimate (status_rate 0: every sample; the idle
