@@ -92,6 +92,13 @@ def test_cartesian_node_publishes_its_21_parameters_as_the_replay(scenario_bags,
     assert [d[1:] for d in dims] == [(2, 42), (21, 21)]
     assert dims[1][0].startswith("column: mass_xx [kg], mass_xy [kg]")
     assert "stiffness_zz [N/m]" in dims[1][0] and "static_force_z [N]" in dims[1][0]
+    # the report: principal values against the truth, and the ellipses
+    page = (tmp_path / "r" / "report.html").read_text(encoding="utf-8")
+    assert 'id="principal"' in page and 'id="fig-ellipses"' in page and "<svg" in page
+    import json
+    summary = json.loads((tmp_path / "r" / "summary.json").read_text(encoding="utf-8"))
+    stiffness = summary["principal"]["stiffness"]
+    np.testing.assert_allclose(stiffness["values"], stiffness["truth_values"], rtol=0.10)
 
 
 def test_revolute_node_publishes_the_mechanism_and_the_hinge_in_its_status(scenario_bags,
@@ -124,3 +131,7 @@ def test_revolute_node_publishes_the_mechanism_and_the_hinge_in_its_status(scena
     assert dims[0][1] == len(MECHANISM_FIELDS) and dims[0][0].startswith(
         "field: axis_x [1], axis_y [1], axis_z [1], axis_point_x [m]")
     assert "inertia [kg·m²]" in dims[0][0] and "swept_arc [rad]" in dims[0][0]
+    # the report: the hinge's geometry and its own parameters beside the truth
+    page = (tmp_path / "r" / "report.html").read_text(encoding="utf-8")
+    assert 'id="geometry"' in page and 'id="rotary"' in page and 'id="fig-geometry"' in page
+    assert 'data-key="mechanism.truth.inertia"' in page
