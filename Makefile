@@ -27,8 +27,11 @@ $(STAMP): requirements.txt requirements-ros.txt requirements-test.txt setup.py
 test: $(STAMP)
 	$(PY) -m pytest -q -ra test
 
+# make demo SCENARIO=cabinet_door (revolute), tool_cart_drawer (prismatic), soft_fixture
+# (cartesian); default: the storeroom door along an estimated direction
+SCENARIO ?= door
 demo: $(STAMP)
-	$(PY) -m interaction_estimator.demo --out demo_out
+	$(PY) -m interaction_estimator.demo --out demo_out --scenario $(SCENARIO)
 
 bench: $(STAMP)
 	$(PY) test/benchmarks/run_all.py

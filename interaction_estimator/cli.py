@@ -229,20 +229,43 @@ def _replay(args: argparse.Namespace) -> int:
 
 def format_summary(summary: dict) -> str:
     """A short plain-text table of a summary (parameters, force RMSE, convergence)."""
-    from .core.environment import PARAMETER_NAMES
     from .offline.report import display
-    lines = [f"{'parameter':<13}{'estimate':>12}{'std':>11}{'truth':>11}{'converged':>11}"
-             f"{'after (s)':>11}"]
-    for p in PARAMETER_NAMES:
-        e = summary["parameters"][p]
-        lines.append(f"{p:<13}{display(e['final']):>12}{display(e['std']):>11}"
+    width = max(13, *(len(p) + 1 for p in summary["parameters"]))
+    lines = [f"{'parameter':<{width}}{'estimate':>12}{'std':>11}{'truth':>11}"
+             f"{'converged':>11}{'after (s)':>11}"]
+    for p, e in summary["parameters"].items():
+        lines.append(f"{p:<{width}}{display(e['final']):>12}{display(e['std']):>11}"
                      f"{display(e['truth']):>11}{display(e['converged']):>11}"
                      f"{display(e['time_to_convergence_s']):>11}")
+    mech = summary.get("mechanism")
+    if mech:
+        axis = " ".join(f"{x:.4f}" for x in mech["axis"])
+        text = f"{mech['kind']} geometry: {mech['geometry']}, axis ({axis})"
+        if mech["kind"] == "revolute":
+            point = " ".join(f"{x:.4f}" for x in mech["axis_point"])
+            text += (f" through ({point}) m, radius {display(mech['radius_m'])} m, swept "
+                     f"{display(mech['swept_arc_deg'])} deg")
+            rot = mech["rotary"]
+            text += "\nhinge: " + ", ".join(
+                f"{name} {display(rot[name]['final'])} {rot[name]['unit']}" for name in rot)
+        else:
+            text += f", travel {display(mech['travel_m'])} m"
+        if "axis_error_deg" in mech:
+            text += f"\naxis error {display(mech['axis_error_deg'])} deg"
+            if "radius_error" in mech:
+                text += f", radius error {display(100 * mech['radius_error'])} %"
+        lines.append(text)
+    for prefix, entry in (summary.get("principal") or {}).items():
+        lines.append(f"principal {prefix}: " + ", ".join(display(v) for v in entry["values"])
+                     + (" (truth " + ", ".join(display(v) for v in entry["truth_values"]) + ")"
+                        if "truth_values" in entry else ""))
     f = summary["force"]
     if f.get("reference"):
         lines.append(f"force RMSE {display(f['rmse_N'])} N after bias learning, "
                      f"{display(f['rmse_contact_N'])} N in contact ({f['reference']})")
-    lines.append(f"all four converged: {display(summary['converged'])}"
+    count = len(summary["parameters"])
+    lines.append(f"all {'four' if count == 4 else count} converged: "
+                 f"{display(summary['converged'])}"
                  + (f" (after {display(summary['time_to_convergence_s'])} s of contact)"
                     if summary["time_to_convergence_s"] is not None else ""))
     return "\n".join(lines)

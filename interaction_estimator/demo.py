@@ -1,8 +1,11 @@
 """The demo: Marten opens our storeroom door; the real node estimates it over DDS.
 
-``python -m interaction_estimator.demo --out demo_out`` (``make demo``):
+``python -m interaction_estimator.demo --out demo_out [--scenario NAME]`` (``make demo``, or
+``make demo SCENARIO=cabinet_door``):
 
-1. simulates the ``door`` scenario and writes it as a bag (``OUT/door_bag``);
+1. simulates the ``door`` scenario (or another built-in scenario with an object: the
+   ``cabinet_door`` with the revolute model, the ``tool_cart_drawer`` with the prismatic model,
+   the ``soft_fixture`` with the cartesian model) and writes it as a bag (``OUT/<name>_bag``);
 2. starts the node (``python -m interaction_estimator.ros.node``) as a child process with
    ``OUT/params.yaml``: ``config/marten_demo.yaml`` when that file exists (else the defaults),
    with the scenario's recommended settings on top (its manipulation direction: the door's is
@@ -41,8 +44,6 @@ from typing import Any
 
 import numpy as np
 
-from .core.environment import PARAMETER_NAMES, PARAMETER_UNITS
-
 DEMO_SCENARIO = "door"
 DEMO_PARAMS = Path(__file__).resolve().parent.parent / "config" / "marten_demo.yaml"
 NODE_NAME = "interaction_estimator"
@@ -80,12 +81,16 @@ class NodeRecording:
     """What the node published, in arrival order.
 
     wrench: one row per message [sec, nanosec, fx, fy, fz, tx, ty, tz] (N, N·m).
-    environment: one row per message, 8 values (the 4 parameters, then their std).
+    environment: one row per message, 2 m values (the m parameters, then their std: 8 for the
+    models of four parameters on ~/environment, 42 for the cartesian model on
+    ~/environment_cartesian).
+    mechanism: one row per ~/mechanism message (revolute, prismatic models).
     status: (index of the next wrench row at arrival, level, message, key-values).
     """
 
     wrench: list[tuple[float, ...]] = field(default_factory=list)
     environment: list[tuple[float, ...]] = field(default_factory=list)
+    mechanism: list[tuple[float, ...]] = field(default_factory=list)
     status: list[tuple[int, int, str, dict[str, str]]] = field(default_factory=list)
     frame_ids: set[str] = field(default_factory=set)
 
@@ -103,8 +108,9 @@ class NodeSession:
     """
 
     def __init__(self, params_file: Path | None, log_path: Path | None = None,
-                 reliable: bool = True):
+                 reliable: bool = True, model_name: str = "along_direction"):
         self.params_file = params_file
+        self.model_name = model_name   # the node's environment.model (which topics to record)
         self.log_path = log_path
         self.reliable = reliable
         self.recording = NodeRecording()
@@ -156,11 +162,16 @@ class NodeSession:
         self._subs = [
             self._node.create_subscription(WrenchStamped, f"/{NODE_NAME}/wrench",
                                            self._on_wrench, outputs),
-            self._node.create_subscription(Float64MultiArray, f"/{NODE_NAME}/environment",
-                                           self._on_environment, outputs),
+            self._node.create_subscription(
+                Float64MultiArray, f"/{NODE_NAME}/environment_cartesian"
+                if self.model_name == "cartesian" else f"/{NODE_NAME}/environment",
+                self._on_environment, outputs),
             self._node.create_subscription(DiagnosticStatus, f"/{NODE_NAME}/status",
                                            self._on_status, outputs),
         ]
+        if self.model_name in ("revolute", "prismatic"):
+            self._subs.append(self._node.create_subscription(
+                Float64MultiArray, f"/{NODE_NAME}/mechanism", self._on_mechanism, outputs))
         from rclpy.executors import SingleThreadedExecutor
         self._executor = SingleThreadedExecutor(context=self._context)
         self._executor.add_node(self._node)
@@ -233,6 +244,10 @@ class NodeSession:
     def _on_environment(self, msg) -> None:
         with self._lock:
             self.recording.environment.append(tuple(msg.data))
+
+    def _on_mechanism(self, msg) -> None:
+        with self._lock:
+            self.recording.mechanism.append(tuple(msg.data))
 
     def _on_status(self, msg) -> None:
         values = {kv.key: kv.value for kv in msg.values}
@@ -328,21 +343,26 @@ def bag_joint_state_messages(bag_path: Path) -> tuple[list[tuple[int, bytes]], s
     return msgs, urdf
 
 
-def recording_columns(rec: NodeRecording) -> dict[str, np.ndarray]:
+def recording_columns(rec: NodeRecording, model_name: str = "along_direction"
+                      ) -> dict[str, np.ndarray]:
     """Estimate columns from the node's messages: force and parameters per wrench/environment
-    pair (in arrival order), the rest from the latest status before each pair."""
+    pair (in arrival order), the rest from the latest status before each pair (a mechanism's
+    geometry too)."""
+    from .core.object_models import model_named
     from .io.cdr import stamp_seconds
     from .io.estimates import EstimateTable
+    names = model_named(model_name).parameter_names
+    m = len(names)
     n = min(len(rec.wrench), len(rec.environment))
     w = np.array(rec.wrench[:n], dtype=float).reshape(-1, 8)
-    env = np.array(rec.environment[:n], dtype=float).reshape(-1, 8)
+    env = np.array(rec.environment[:n], dtype=float).reshape(-1, 2 * m)
     cols: dict[str, Any] = {
         "time": np.array([stamp_seconds(int(a), int(b)) for a, b in w[:, :2]]),
         "force_x": w[:, 2], "force_y": w[:, 3], "force_z": w[:, 4],
     }
-    for i, p in enumerate(PARAMETER_NAMES):
+    for i, p in enumerate(names):
         cols[p] = env[:, i]
-        cols[f"{p}_std"] = env[:, 4 + i]
+        cols[f"{p}_std"] = env[:, m + i]
     keys = {"force_along": "force_along[N]", "position_along": "position_along[m]",
             "velocity_along": "velocity_along[m/s]",
             "acceleration_along": "acceleration_along[m/s^2]", "nis": "nis",
@@ -351,10 +371,21 @@ def recording_columns(rec: NodeRecording) -> dict[str, np.ndarray]:
             "kinematics_lag": "kinematics_lag[s]", "contact_level": "contact_level",
             "jacobian_condition": "jacobian_condition"}
     flags = {"converged": "converged", "in_contact": "in_contact",
-             **{f"{p}_converged": f"{p}_converged" for p in PARAMETER_NAMES},
-             **{f"{p}_excited": f"{p}_excited" for p in PARAMETER_NAMES}}
-    filled = {c: np.full(n, np.nan) for c in [*keys, *flags, "level"]}
+             **{f"{p}_converged": f"{p}_converged" for p in names},
+             **{f"{p}_excited": f"{p}_excited" for p in names}}
+    vectors: dict[str, str] = {}
+    scaled: dict[str, tuple[str, float]] = {}
+    if model_name in ("revolute", "prismatic"):
+        keys.update({"travel": "travel[m]", "path_rms": "path_rms[m]", "radius": "radius[m]",
+                     "angle": "angle[rad]", "radius_std": "radius_std[m]"})
+        scaled = {"swept_arc": ("swept_arc[deg]", math.pi / 180.0),
+                  "axis_std": ("axis_std[deg]", math.pi / 180.0)}
+        flags["geometry_converged"] = "geometry_converged"
+        vectors = {"axis": "axis", "axis_point": "axis_point[m]"}
+    vector_cols = [f"{v}_{c}" for v in vectors for c in "xyz"]
+    filled = {c: np.full(n, np.nan) for c in [*keys, *flags, *scaled, *vector_cols, "level"]}
     states = [""] * n
+    geometry = [""] * n
     row_of = {t: i for i, t in enumerate(cols["time"])}
     # a status reports on the estimate stamped time[s]; it holds until the next status
     marks = sorted((row_of[float(v["time[s]"])], level, v) for _, level, _, v in rec.status
@@ -368,11 +399,22 @@ def recording_columns(rec: NodeRecording) -> dict[str, np.ndarray]:
             filled[c][a:b] = float(text) if text not in ("n/a", "") else np.nan
         for c, key in flags.items():
             filled[c][a:b] = 1.0 if values.get(key) == "true" else 0.0
+        for c, (key, factor) in scaled.items():
+            text = values.get(key, "n/a")
+            filled[c][a:b] = factor * float(text) if text not in ("n/a", "") else np.nan
+        for c, key in vectors.items():
+            parts = values.get(key, "").split()
+            for k, axis in enumerate("xyz"):
+                filled[f"{c}_{axis}"][a:b] = (float(parts[k]) if len(parts) == 3
+                                              and parts[k] != "n/a" else np.nan)
         filled["level"][a:b] = level
         states[a:b] = [values.get("state", "")] * (b - a)
+        geometry[a:b] = [values.get("geometry", "")] * (b - a)
     cols.update(filled)
     cols["state"] = states
-    return EstimateTable.from_columns(cols).columns()
+    if vectors:
+        cols["geometry"] = geometry
+    return EstimateTable.from_columns(cols, model_name).columns()
 
 
 # --------------------------------------------------------------------------------------------
@@ -393,23 +435,40 @@ def demo_settings(scenario_settings: dict[str, Any]) -> dict[str, Any]:
 
 
 def _print_table(truth: dict[str, float], node: dict, replay_summary: dict,
-                 differences: dict[str, float], sent: int, answered: int) -> str:
+                 differences: dict[str, float], sent: int, answered: int,
+                 description: str = "Marten opens the storeroom door") -> str:
     from .offline.report import display
-    lines = ["", "Marten opens the storeroom door (simulated); the node ran over DDS, the replay "
+    lines = ["", f"{description} (simulated); the node ran over DDS, the replay "
              "offline, on the same bag.", "",
-             f"{'parameter':<22}{'truth':>9}{'node':>10}{'± std':>9}{'replay':>10}"
+             f"{'parameter':<26}{'truth':>9}{'node':>10}{'± std':>9}{'replay':>10}"
              f"{'converged after (s)':>21}"]
-    for p, unit in zip(PARAMETER_NAMES, PARAMETER_UNITS):
-        n, r = node["parameters"][p], replay_summary["parameters"][p]
-        lines.append(f"{p + ' (' + unit + ')':<22}{display(truth[p]):>9}{display(n['final']):>10}"
-                     f"{display(n['std']):>9}{display(r['final']):>10}"
+    for p, n in node["parameters"].items():
+        r = replay_summary["parameters"][p]
+        lines.append(f"{p + ' (' + n['unit'] + ')':<26}{display(truth.get(p)):>9}"
+                     f"{display(n['final']):>10}{display(n['std']):>9}{display(r['final']):>10}"
                      f"{display(n['time_to_convergence_s']):>21}")
+    mech = replay_summary.get("mechanism")
+    if mech:
+        lines.append("")
+        lines.append(f"{mech['kind']} geometry (replay): {mech['geometry']}, axis error "
+                     f"{display(mech.get('axis_error_deg'))} deg"
+                     + (f", radius {display(mech['radius_m'])} m (truth "
+                        f"{display(mech.get('truth', {}).get('radius'))} m), swept "
+                        f"{display(mech['swept_arc_deg'])} deg" if "radius_m" in mech else ""))
+        for name, entry in (mech.get("rotary") or {}).items():
+            lines.append(f"  {name} ({entry['unit']}): {display(entry['final'])} "
+                         f"(truth {display(mech.get('truth', {}).get(name))})")
+    for prefix, entry in (replay_summary.get("principal") or {}).items():
+        lines.append(f"principal {prefix} (replay): "
+                     + ", ".join(display(v) for v in entry["values"])
+                     + (" (truth " + ", ".join(display(v) for v in entry["truth_values"]) + ")"
+                        if "truth_values" in entry else ""))
     fn, fr = node["force"], replay_summary["force"]
     lines += ["",
               f"force RMSE in contact (N):  node {display(fn['rmse_contact_N'])}, "
               f"replay {display(fr['rmse_contact_N'])} (the same forces; the node's contact "
               "flag is the one its last ~/status gave, the replay's is per sample)",
-              f"all four converged after (s): node {display(node['time_to_convergence_s'])}, "
+              f"all converged after (s): node {display(node['time_to_convergence_s'])}, "
               f"replay {display(replay_summary['time_to_convergence_s'])}",
               f"joint states sent {sent}, estimates received {answered}; largest node - replay "
               f"difference: force {differences['force_N']:.3g} N, parameters "
@@ -427,12 +486,15 @@ def compare_with_replay(node_cols: dict[str, np.ndarray], replay_cols: dict[str,
     a, b = (np.array(x) for x in zip(*rows))
     force = max(float(np.max(np.abs(node_cols[c][a] - replay_cols[c][b])))
                 for c in ("force_x", "force_y", "force_z"))
+    names = [c[:-10] for c in node_cols if c.endswith("_converged")
+             and c not in ("geometry_converged",) and c[:-10] in node_cols]
     params = max(float(np.max(np.abs(node_cols[c][a] - replay_cols[c][b])))
-                 for p in PARAMETER_NAMES for c in (p, f"{p}_std"))
+                 for p in names for c in (p, f"{p}_std"))
     return {"matched": len(rows), "force_N": force, "parameters": params}
 
 
-def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
+def run_demo(out: Path, duration: float | None = None, seed: int = 0,
+             scenario: str = DEMO_SCENARIO) -> int:
     env = isolate_ros()
     from .io.bag import RecordedBag
     from .io.estimates import ForceReference, summarize
@@ -463,10 +525,11 @@ def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
           f"{env['ROS_AUTOMATIC_DISCOVERY_RANGE']}, ROS_DOMAIN_ID={env['ROS_DOMAIN_ID']})")
     with StagedDir(out) as stage:
         d = stage.path
-        spec = SCENARIOS[DEMO_SCENARIO]
-        print(f"demo: simulating '{DEMO_SCENARIO}': {spec.description}")
-        run = simulate(DEMO_SCENARIO, duration=duration, seed=seed)
-        bag_path = d / "door_bag"
+        spec = SCENARIOS[scenario]
+        print(f"demo: simulating '{scenario}': {spec.description}")
+        run = simulate(scenario, duration=duration, seed=seed)
+        bag_name = f"{scenario}_bag"
+        bag_path = d / bag_name
         write_simulated_bag(bag_path, run, "mcap", description=spec.description)
         params = d / "params.yaml"
         settings = demo_settings(run.settings)
@@ -474,13 +537,14 @@ def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
         print("demo: node parameters: "
               + (f"{DEMO_PARAMS.relative_to(DEMO_PARAMS.parent.parent)}" if DEMO_PARAMS.exists()
                  else "the defaults")
-              + f" with the {DEMO_SCENARIO} scenario's settings on top ({params.name}: "
+              + f" with the {scenario} scenario's settings on top ({params.name}: "
               + ", ".join(f"{k} = {v}" for k, v in sorted(settings.items())) + ")")
         bag_settings = False  # the replay takes exactly the node's file
         messages, urdf = bag_joint_state_messages(bag_path)
         print(f"demo: starting the node and playing {len(messages)} joint states "
               f"({(messages[-1][0] - messages[0][0]) * 1e-9:.1f} s) into it over DDS")
-        session = NodeSession(params, log_path=d / "node.log")
+        model_name = run.settings.get("environment.model", "along_direction")
+        session = NodeSession(params, log_path=d / "node.log", model_name=model_name)
         try:
             session.start()
             session.publish_description(urdf)
@@ -496,8 +560,8 @@ def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
             return 1
         replay_result = replay(ReplayRequest(bag_path, d / "replay", params=params,
                                              progress=False, bag_settings=bag_settings,
-                                             bag_label=str(out / "door_bag")))
-        node_cols = recording_columns(rec)
+                                             bag_label=str(out / bag_name)))
+        node_cols = recording_columns(rec, model_name)
         with RecordedBag(bag_path) as bag:
             ref = bag.reference()
             truth = bag.truth()
@@ -505,18 +569,20 @@ def run_demo(out: Path, duration: float | None = None, seed: int = 0) -> int:
         node_summary = summarize(
             node_cols, truth=truth.parameters, reference=reference,
             rejects=_status_rejects(rec), samples_read=session.sent, wall_time=None,
-            source={"bag": str(out / "door_bag"), "storage": "mcap", "tool": "node over DDS",
-                    "scenario": DEMO_SCENARIO, "urdf": "robot_description topic",
+            truth_extra=truth.extra,
+            source={"bag": str(out / bag_name), "storage": "mcap", "tool": "node over DDS",
+                    "scenario": scenario, "urdf": "robot_description topic",
                     "efforts": "joint_states", "settings": [f"parameter file {params.name}"],
                     "settings_changed": replay_result.summary["source"]["settings_changed"]})
         (d / "node").mkdir()
         write_outputs(d / "node", node_summary, node_cols, reference,
-                      title="Interaction estimate \u2014 the node over DDS (door demo)")
+                      title=f"Interaction estimate \u2014 the node over DDS ({scenario} demo)")
         differences = compare_with_replay(node_cols, replay_result.columns)
         table = _print_table(truth.parameters, node_summary, replay_result.summary,
-                             differences, session.sent, len(rec.wrench))
+                             differences, session.sent, len(rec.wrench),
+                             spec.description.rstrip("."))
         (d / "demo.json").write_text(json.dumps({
-            "scenario": DEMO_SCENARIO, "sent": session.sent, "answered": len(rec.wrench),
+            "scenario": scenario, "sent": session.sent, "answered": len(rec.wrench),
             "node_vs_replay": differences, "ros": env,
             "wall_time_s": time.perf_counter() - started}, indent=2) + "\n", encoding="utf-8")
         (d / "table.txt").write_text(table + "\n", encoding="utf-8")
@@ -546,8 +612,18 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--duration", type=float, default=None, metavar="S",
                         help="scenario length in s (default: the scenario's own)")
     parser.add_argument("--seed", type=int, default=0, help="noise seed (default 0)")
+    parser.add_argument("--scenario", default=DEMO_SCENARIO, choices=_demo_scenarios(),
+                        metavar="NAME",
+                        help=f"built-in scenario (default {DEMO_SCENARIO}); one of: "
+                        + ", ".join(_demo_scenarios()))
     args = parser.parse_args(argv)
-    return run_demo(args.out, args.duration, args.seed)
+    return run_demo(args.out, args.duration, args.seed, args.scenario)
+
+
+def _demo_scenarios() -> list[str]:
+    """The built-in scenarios with an object (the demo needs something to estimate)."""
+    from .sim.scenarios import SCENARIOS
+    return sorted(name for name, spec in SCENARIOS.items() if spec.has_object)
 
 
 if __name__ == "__main__":

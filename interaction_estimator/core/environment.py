@@ -841,7 +841,7 @@ def _lags(s: Settings) -> int:
 def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     """Write the filter.* settings into the configuration records (checked for cross-setting
     rules; raises SettingsError naming the bad value)."""
-    mean = _per_parameter(s, "filter.initial_mean", model)
+    mean, std = model.prior(s)   # filter.initial_mean/std, or the cartesian.* settings
     nonnegative = bool(s["filter.nonnegative"])
     if nonnegative:
         for i, (x, nonneg) in enumerate(zip(mean, model.nonnegative, strict=True)):
@@ -868,7 +868,7 @@ def configure(fr: FilterRecords, s: Settings, model: ObjectModel) -> None:
     p["model_error"] = float(s["filter.model_error"])
     pp = fr.parameter_params
     pp["prior_mean"] = mean
-    pp["prior_std"] = _per_parameter(s, "filter.initial_std", model)
+    pp["prior_std"] = std
     pp["prior_var"] = np.square(pp["prior_std"])
     pp["nonnegative"] = [nonnegative and x for x in model.nonnegative]
 

@@ -33,6 +33,7 @@ FINDING_REJECTS = 2      # samples were rejected over the last second
 FINDING_LOW_RATE = 4     # the input rate is below health.min_rate
 FINDING_NO_STAMPS = 8    # stamps are zero: the receive time is used
 FINDING_NIS = 16         # the innovations are inconsistent (in contact only)
+FINDING_PATH = 32        # the contact path does not fit the mechanism asked for
 
 PARAMS = record(
     "health parameters",

@@ -10,6 +10,12 @@ Records: :data:`PARAMS`, :data:`STATE`, the ring buffer (2n,) :data:`RING` (ever
 written twice, so the window is always the contiguous slice [index, index + n)) and the (n,)
 :data:`COEFFICIENTS`. The window length n (samples, odd) comes from the window in seconds and
 the nominal sample interval, which the Pipeline learns from the first intervals.
+
+The models that are not along one direction (cartesian, revolute, prismatic) need the contact
+point's motion in 3-D: :data:`SPATIAL_STATE` and the ring :data:`SPATIAL_RING` hold the point
+(m), its velocity (m/s) and the force (N), world frame, with the same window, coefficients and
+alignment: :func:`spatial_push` and :func:`spatial_centre` give x, x' (smoothed) and x''
+(Savitzky-Golay derivative of the velocity) as 3-vectors at the window centre.
 """
 from __future__ import annotations
 
@@ -122,6 +128,78 @@ def savgol_weights(n: int, polyorder: int, deriv: int) -> np.ndarray:
     return np.linalg.pinv(vander)[deriv] * math.factorial(deriv)
 
 
+SPATIAL_STATE = record(
+    "kinematics state, 3-D",
+    ("index", I8, "", "ring index of the oldest sample in the window"),
+    ("count", I8, "", "samples pushed since the last reset"),
+    ("onset", F8, (3,), "m", "contact point where the contact began, world frame"),
+    ("acceleration", F8, (3,), "m/s^2", "Savitzky-Golay x'' at the window centre"),
+    ("velocity", F8, (3,), "m/s", "Savitzky-Golay smoothed x' at the window centre"),
+)
+SPATIAL_RING = record(
+    "kinematics ring buffer entry, 3-D",
+    ("time_s", F8, "s", "stamp"),
+    ("point", F8, (3,), "m", "contact point, world frame"),
+    ("velocity", F8, (3,), "m/s", "its velocity"),
+    ("force", F8, (3,), "N", "force the robot applies, world frame"),
+)
+
+
+@kernel
+def spatial_push(p, s, ring, coef, t, point, velocity, force):
+    """Add a sample: contact point (3,) m, its velocity (3,) m/s and the force (3,) N, world
+    frame."""
+    i, n = s.index, p.n
+    for k in (i, i + n):
+        entry = ring[k]
+        entry.time_s = t
+        for r in range(3):
+            entry.point[r] = point[r]
+            entry.velocity[r] = velocity[r]
+            entry.force[r] = force[r]
+    i += 1
+    if i >= n:
+        i = 0
+    s.index = i
+    s.count += 1
+    if s.count >= n:
+        spacing = (ring[i + n - 1].time_s - ring[i].time_s) / (n - 1)
+        for r in range(3):
+            d = 0.0
+            v = 0.0
+            for k in range(n):
+                d += coef[k].derivative * ring[i + k].velocity[r]
+                v += coef[k].smoothing * ring[i + k].velocity[r]
+            s.acceleration[r] = d / spacing
+            s.velocity[r] = v
+
+
+@kernel
+def spatial_centre(p, s):
+    """(full, index): the ring index of the window centre (its time, point m and force N),
+    where s.velocity (m/s) and s.acceleration (m/s^2) hold; full is False until the window is
+    full."""
+    if s.count < p.n:
+        return False, 0
+    return True, s.index + p.half
+
+
+@kernel
+def spatial_reset(s, ring):
+    s.index = 0
+    s.count = 0
+    for r in range(3):
+        s.acceleration[r] = 0.0
+        s.velocity[r] = 0.0
+    for k in range(ring.shape[0]):
+        e = ring[k]
+        e.time_s = 0.0
+        for r in range(3):
+            e.point[r] = 0.0
+            e.velocity[r] = 0.0
+            e.force[r] = 0.0
+
+
 def window_samples(window: float, polyorder: int, nominal_dt: float) -> int:
     """The window length in samples (odd) for ``window`` s at ``nominal_dt`` s."""
     return max(int(round(window / nominal_dt)) | 1, polyorder + 2 | 1)
@@ -191,3 +269,8 @@ class AlongKinematics:
 def placeholder() -> tuple[np.ndarray, np.ndarray]:
     """The ring and coefficients before the nominal interval is known (not ready)."""
     return RING.many(2), COEFFICIENTS.many(1)
+
+
+def spatial_placeholder() -> np.ndarray:
+    """The 3-D ring where it is not used (the along-direction model) or not yet sized."""
+    return SPATIAL_RING.many(2)

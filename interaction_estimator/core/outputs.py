@@ -13,6 +13,7 @@ from collections.abc import Callable, Mapping
 import numpy as np
 
 from .health import PHASE_CONTACT, PHASES, STATES
+from .mechanism import GEOMETRY_CONVERGED
 from .object_models import ObjectModel
 from .records import B1, F8, I1, I8, record
 
@@ -56,6 +57,17 @@ SAMPLE = record(
     ("level", I1, "", "health level: OK 0, WARN 1, ERROR 2, STALE 3"),
     ("state", I1, "", "health.STATE_* (word: health.STATES)"),
     ("findings", I8, "", "health.FINDING_* bits"),
+    # the mechanism's geometry (revolute, prismatic)
+    ("geometry", I1, "", "mechanism.GEOMETRY_* (word: mechanism.GEOMETRY_WORDS)"),
+    ("axis", F8, (3,), "", "hinge or slider axis, unit, world frame (opening sense positive)"),
+    ("axis_point", F8, (3,), "m", "a point on the hinge axis, world frame"),
+    ("radius", F8, "m", "grasp radius about the hinge axis"),
+    ("angle", F8, "rad", "hinge angle of the contact point now, from the contact onset"),
+    ("swept_arc", F8, "rad", "arc the path has swept about the hinge axis"),
+    ("travel", F8, "m", "farthest distance of the path from the contact onset"),
+    ("path_rms", F8, "m", "RMS distance of the path from the fitted circle or line"),
+    ("radius_std", F8, "m", "standard deviation of the radius"),
+    ("axis_std", F8, "rad", "standard deviation of the axis direction"),
 )
 PARAMETER = record(
     "outputs of one sample, per parameter of the object model",
@@ -94,13 +106,15 @@ class Estimate:
     """
 
     __slots__ = ("time", "stamp_from_receive", "rejected", "parameter_names", "_row",
-                 "_parameters", "_joints", "_words", "_full_wrench", "_text")
+                 "_parameters", "_joints", "_words", "_full_wrench", "_text", "model_name")
 
     def __init__(self, time: float, row: np.ndarray, parameters: np.ndarray, joints: np.ndarray,
                  stamp_from_receive: bool, rejected: int, parameter_names: tuple[str, ...],
-                 full_wrench: bool, words: Callable[[Estimate], tuple[str, str]]):
+                 full_wrench: bool, words: Callable[[Estimate], tuple[str, str]],
+                 model_name: str = "along_direction"):
         self.time, self.stamp_from_receive, self.rejected = time, stamp_from_receive, rejected
         self.parameter_names = parameter_names
+        self.model_name = model_name   # environment.model
         self._row, self._parameters, self._joints = row, parameters, joints
         self._full_wrench, self._words = full_wrench, words
         self._text: tuple[str, str] | None = None
@@ -138,6 +152,19 @@ class Estimate:
     observer_restarts = property(lambda self: int(self._row["observer_restarts"][0]))
     rate_hz = property(lambda self: self._field("rate_hz"))
     kinematics_lag = property(lambda self: self._field("kinematics_lag_s"))
+    # a mechanism's geometry (zeros for the models without one)
+    geometry = property(lambda self: int(self._row["geometry"][0]))
+    geometry_converged = property(lambda self: int(self._row["geometry"][0])
+                                  == GEOMETRY_CONVERGED)
+    axis = property(lambda self: self._row["axis"][0])
+    axis_point = property(lambda self: self._row["axis_point"][0])
+    radius = property(lambda self: self._field("radius"))
+    angle = property(lambda self: self._field("angle"))
+    swept_arc = property(lambda self: self._field("swept_arc"))
+    travel = property(lambda self: self._field("travel"))
+    path_rms = property(lambda self: self._field("path_rms"))
+    radius_std = property(lambda self: self._field("radius_std"))
+    axis_std = property(lambda self: self._field("axis_std"))
 
     @property
     def record(self) -> np.ndarray:
@@ -199,6 +226,17 @@ class EstimateBlock:
     bias_age = property(lambda self: self.rows["bias_age_s"])
     in_contact = property(lambda self: self.rows["phase"] == PHASE_CONTACT)
     level = property(lambda self: self.rows["level"])
+    geometry = property(lambda self: self.rows["geometry"])
+    geometry_converged = property(lambda self: self.rows["geometry"] == GEOMETRY_CONVERGED)
+    axis = property(lambda self: self.rows["axis"])
+    axis_point = property(lambda self: self.rows["axis_point"])
+    radius = property(lambda self: self.rows["radius"])
+    angle = property(lambda self: self.rows["angle"])
+    swept_arc = property(lambda self: self.rows["swept_arc"])
+    travel = property(lambda self: self.rows["travel"])
+    path_rms = property(lambda self: self.rows["path_rms"])
+    radius_std = property(lambda self: self.rows["radius_std"])
+    axis_std = property(lambda self: self.rows["axis_std"])
 
     @property
     def state(self) -> np.ndarray:

@@ -32,11 +32,15 @@ from .environment import UPDATED, EnvironmentFilter, change_text
 from .health import Health
 from .kinematics import AlongKinematics
 from .model import RobotModel
+from . import mechanism
+from .kinematics import SPATIAL_RING, spatial_placeholder, spatial_reset
 from .object_models import (
-    ALONG_DIRECTION,
     MATCH_FIRST_ORDER,
     MATCH_KALMAN,
+    MODEL_PRISMATIC,
+    MODEL_REVOLUTE,
     ObjectModel,
+    model_named,
     new_records,
 )
 from .observer import KalmanMomentumObserver, MomentumObserver
@@ -59,14 +63,21 @@ class Pipeline:
     not fit the model) at construction.
     """
 
-    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel = ALONG_DIRECTION):
+    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel | None = None):
         self.settings = settings
         self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"])
+        if object_model is None:
+            object_model = model_named(settings["environment.model"])
         self.object_model = object_model
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
         nv, m = self.model.nv, object_model.size
-        st = self._storage = storage.new_storage(nv, m, object_model.channels)
+        self._mechanism_kind = (mechanism.KIND_REVOLUTE if object_model.code == MODEL_REVOLUTE
+                                else mechanism.KIND_PRISMATIC
+                                if object_model.code == MODEL_PRISMATIC
+                                else mechanism.KIND_NONE)
+        st = self._storage = storage.new_storage(
+            nv, m, object_model.channels, mechanism.path_capacity(self._mechanism_kind))
         self._pipe_params, self._pipe = st.params["pipeline"], st.state["pipeline"]
         self._out = outputs.SAMPLE.one()               # the last sample's outputs
         self._out_params = outputs.PARAMETER.many(m)
@@ -137,7 +148,14 @@ class Pipeline:
         # dynamics (object_models), the first-order law or the Kalman form's steady state
         match = MATCH_KALMAN if kalman else MATCH_FIRST_ORDER
         self._model_records = new_records(self.object_model, match, float(np.mean(gain)),
-                                          storage.model_views(st))
+                                          storage.model_views(st), s["filter.nonnegative"])
+        mp = st.params["mechanism"][0]
+        mp["kind"] = self._mechanism_kind
+        mp["min_travel_m"] = s["mechanism.min_travel"]
+        mp["min_arc_rad"] = math.radians(s["mechanism.min_arc"])
+        mp["converged_travel_m"] = s["mechanism.converged_travel"]
+        mp["tolerance_m"] = s["mechanism.path_tolerance"]
+        mp["max_radius_m"] = s["mechanism.max_radius"]
         self._health = Health(s["wrench.condition_limit"], s["health.min_rate"],
                               s["health.stale_after"], self.object_model.parameter_names,
                               st.params["health"])
@@ -152,13 +170,14 @@ class Pipeline:
         kin = getattr(self, "kinematics", None)
         fr = self.filter.records
         ring, coefficients = ((kin.ring, kin.coefficients) if kin is not None
-                              else self._storage[-2:])
+                              else (self._storage.ring, self._storage.coefficients))
         self._storage = self._storage._replace(
             nis_bounds=fr.nis_bounds, nis_ring=fr.nis_ring, history_time=fr.history_time,
             history_force=fr.history_force, history_regressor=fr.history_regressor,
             block_force=fr.block_force, block_regressor=fr.block_regressor,
             lag_ring=fr.lag_ring, hac=fr.hac,
-            ring=ring, coefficients=coefficients)
+            ring=ring, coefficients=coefficients,
+            spatial_ring=getattr(self, "_spatial_ring", self._storage.spatial_ring))
 
     def apply_settings(self, settings: Settings) -> None:
         """Apply changed settings while running; learned state (bias, noise, estimates) is kept.
@@ -192,11 +211,14 @@ class Pipeline:
         s["contact_end_s"] = -math.inf   # time the last contact ended
         s["ever_contact"] = s["point_valid"] = False
         s["quiet_position_m"] = s["dt_average_s"] = 0.0
+        s["quiet_point"] = 0.0
+        mechanism.mechanism_reset(self._storage.state["mechanism"][0])
         self._reject_times: deque[float] = deque(maxlen=1000)
 
     def _drop_kinematics(self) -> None:
         """No kinematics until the nominal interval is learned again."""
         self.kinematics: AlongKinematics | None = None
+        self._spatial_ring = spatial_placeholder()
         self._storage.params[0]["kinematics"]["ready"] = False
         self._model_records.state["filtered"] = False
         self._intervals: deque[float] = deque(maxlen=_KINEMATICS_WARMUP)
@@ -278,7 +300,7 @@ class Pipeline:
                         outputs.frozen_copy(self._out_joints),
                         stamp_from_receive, self.rejects.total,
                         self.object_model.parameter_names, self.wrench_map.full_wrench,
-                        self._words(len(self._reject_times)))
+                        self._words(len(self._reject_times)), self.object_model.name)
 
     def _words(self, recent_rejects: int) -> Callable[[Estimate], tuple[str, str]]:
         """The wording of an Estimate's verdict and event (made when first asked for)."""
@@ -296,9 +318,50 @@ class Pipeline:
                 float(o["since_contact_end_s"]), tuple(e.excited.tolist()),
                 tuple(e.parameter_converged.tolist()), e.nis_average, nis_lo, nis_hi,
                 e.jacobian_condition, recent_rejects, e.rate_hz)
+            if kind != mechanism.KIND_NONE and e.in_contact:
+                message = f"{message}; {mechanism_words(e)}"
             return message, event_word
 
+        kind, mechanism_words = self._mechanism_kind, self._mechanism_words
         return words
+
+    def _mechanism_words(self, e: Estimate) -> str:
+        """The mechanism's geometry in words (in contact, revolute and prismatic models)."""
+        s = self.settings
+        code = e.geometry
+        tolerance_mm = 1e3 * s["mechanism.path_tolerance"]
+        rms_mm = 1e3 * e.path_rms
+        hinge = self._mechanism_kind == mechanism.KIND_REVOLUTE
+        held = "parameters held at their prior"
+        if code == mechanism.GEOMETRY_SHORT or code == mechanism.GEOMETRY_NONE:
+            return (f"path {100 * e.travel:.1f} cm, shorter than mechanism.min_travel "
+                    f"{100 * s['mechanism.min_travel']:.1f} cm: geometry not fitted yet, {held}")
+        if code == mechanism.GEOMETRY_NO_FIT:
+            return (f"path fits neither a {'circle' if hinge else 'line'} nor a "
+                    f"{'line' if hinge else 'circle'} (RMS {rms_mm:.2f} mm, "
+                    f"mechanism.path_tolerance {tolerance_mm:.2f} mm): too noisy or no "
+                    f"{'hinge' if hinge else 'slider'}; {held}")
+        if code == mechanism.GEOMETRY_STRAIGHT:
+            return (f"path straight so far over {100 * e.travel:.1f} cm (no circle of radius "
+                    f"up to mechanism.max_radius {s['mechanism.max_radius']:g} m is determined):"
+                    f" no hinge located (a slider is environment.model prismatic); {held}")
+        if code == mechanism.GEOMETRY_CURVED:
+            return (f"path curved (line RMS {rms_mm:.2f} mm > mechanism.path_tolerance "
+                    f"{tolerance_mm:.2f} mm; a circle fits): not a slider (a hinge is "
+                    f"environment.model revolute); {held}")
+        if hinge:
+            swept, needed = math.degrees(e.swept_arc), s["mechanism.min_arc"]
+            if code == mechanism.GEOMETRY_CONVERGED:
+                return (f"hinge radius {e.radius:.3f} m, swept {swept:.1f} deg >= "
+                        f"mechanism.min_arc {needed:g} deg: axis and radius converged")
+            return (f"hinge radius {e.radius:.3f} m, swept {swept:.1f} deg of mechanism.min_arc "
+                    f"{needed:g} deg: axis and radius not converged yet")
+        travel, needed = 100 * e.travel, 100 * s["mechanism.converged_travel"]
+        if code == mechanism.GEOMETRY_CONVERGED:
+            return (f"slider axis converged after {travel:.1f} cm (mechanism.converged_travel "
+                    f"{needed:.1f} cm)")
+        return (f"slider travel {travel:.1f} cm of mechanism.converged_travel {needed:.1f} cm: "
+                "axis not converged yet")
 
     def process_block(self, block: SampleBlock) -> EstimateBlock:
         """The samples of a block, in order, as :meth:`process` would take them one by one
@@ -469,4 +532,7 @@ class Pipeline:
         self.kinematics = AlongKinematics(s["kinematics.window"], s["kinematics.polyorder"],
                                           float(np.median(self._intervals)),
                                           st.params["kinematics"], st.state["kinematics"])
+        if self.object_model.code != 0:   # the models in 3-D: the same window, in 3-D
+            self._spatial_ring = SPATIAL_RING.many(2 * self.kinematics.n)
+            spatial_reset(st.state["spatial"][0], self._spatial_ring)
         self._storage_changed()

@@ -259,6 +259,44 @@ SPECS: tuple[ParamSpec, ...] = (
        " since no amount of data removes it.", 0.0, 1.0),
     _f("filter.correlation_time", 1.0, "s",
        "Time over which the residuals of the blocks are taken to be correlated.", 0.0, 60.0),
+    # --- object model ----------------------------------------------------------------------
+    _s("environment.model", "along_direction",
+       "What the object is: 'along_direction' (mass, damping, stiffness and static force along"
+       " the direction u of direction.*), 'cartesian' (3x3 symmetric positive semidefinite mass,"
+       " damping and stiffness matrices and a static force vector, world frame; needs"
+       " wrench.mode force and direction.mode world), 'revolute' (a hinge: door, lid, crank;"
+       " axis, a point on it and the grasp radius from the contact point's path, the four"
+       " parameters along the arc as felt at the grasp) or 'prismatic' (a slider: drawer; the"
+       " axis from the path, the four parameters along it).",
+       choices=("along_direction", "cartesian", "revolute", "prismatic"), read_only=True),
+    _fa("cartesian.initial_diagonal", [0.0, 0.0, 0.0], "kg, N·s/m, N/m",
+        "Prior mean of the diagonal entries of the mass, damping and stiffness matrices"
+        " (environment.model cartesian); off-diagonal entries have prior mean 0.", 0.0, 1e6,
+        length=3),
+    _fa("cartesian.initial_static_force", [0.0, 0.0, 0.0], "N",
+        "Prior mean of the static force vector, world x, y, z (environment.model cartesian).",
+        -1e6, 1e6, length=3),
+    _fa("cartesian.initial_std", [50.0, 500.0, 5000.0, 200.0], "kg, N·s/m, N/m, N",
+        "Prior standard deviation of every entry of the mass, damping and stiffness matrices"
+        " and of each static force component (environment.model cartesian).", 1e-9, 1e9,
+        length=4),
+    _f("mechanism.min_travel", 0.02, "m",
+       "Path of the contact point (farthest distance from where the contact began) below which"
+       " a mechanism's geometry is not fitted and its parameters stay at their prior"
+       " (environment.model revolute or prismatic).", 1e-4, 10.0),
+    _f("mechanism.min_arc", 20.0, "deg",
+       "Arc the contact point must have swept about the fitted hinge axis before the axis and"
+       " radius count as converged (environment.model revolute).", 0.5, 360.0),
+    _f("mechanism.converged_travel", 0.05, "m",
+       "Travel along the fitted axis before it counts as converged (environment.model"
+       " prismatic).", 1e-4, 10.0),
+    _f("mechanism.path_tolerance", 0.005, "m",
+       "RMS distance of the contact point's path from the fitted circle (revolute) or line"
+       " (prismatic) above which the path is reported as not fitting the mechanism and its"
+       " parameters are held at their prior.", 1e-6, 1.0),
+    _f("mechanism.max_radius", 5.0, "m",
+       "Largest grasp radius taken for a hinge: a path straighter than this circle is reported"
+       " as straight (a slider, or a hinge not located yet), not as a hinge.", 0.01, 1000.0),
     # --- health ---------------------------------------------------------------------------
     _f("health.max_latency", 0.01, "s",
        "Processing latency above which the status warns.", 0.0, 10.0),
@@ -408,6 +446,19 @@ class Settings(Mapping[str, Any]):
             raise SettingsError(
                 f"contact.exit_level: {merged['contact.exit_level']!r} must be below "
                 f"contact.enter_level ({merged['contact.enter_level']!r})")
+        if merged["environment.model"] == "cartesian":
+            if merged["wrench.mode"] != "force":
+                raise SettingsError(
+                    f"wrench.mode: {merged['wrench.mode']!r} contradicts environment.model "
+                    "'cartesian': that model explains the 3-D force at a point contact and has"
+                    " no place for a torque; expected wrench.mode 'force'")
+            if merged["direction.mode"] != "world":
+                raise SettingsError(
+                    f"direction.mode: {merged['direction.mode']!r} contradicts "
+                    "environment.model 'cartesian': that model has no single direction (it"
+                    " covers every direction of the world frame); expected direction.mode"
+                    " 'world' (its vector then only sets the direction of the *_along"
+                    " columns)")
         self._values = merged
 
     def __getitem__(self, name: str) -> Any:

@@ -23,6 +23,7 @@ from . import (
     environment,
     health,
     kinematics,
+    mechanism,
     object_models,
     observer,
     outputs,
@@ -166,6 +167,8 @@ def project(st, out, dt, J, v, H):
         dx = u0 * (p0 - s.point[0]) + u1 * (p1 - s.point[1]) + u2 * (p2 - s.point[2])
     s.point[0], s.point[1], s.point[2] = p0, p1, p2
     s.point_valid = True
+    pvs = s.point_velocity
+    pvs[0], pvs[1], pvs[2] = pv0, pv1, pv2
     for r in range(3):
         out.direction[r] = ds.u[r]
     return force_along, u0 * pv0 + u1 * pv1 + u2 * pv2, dx
@@ -177,6 +180,8 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
     environment filter. Returns (event, code): the event possibly changed (a resumed contact, a
     change the filter declared), code STEP_DONE or STEP_FILTER_REFUSED (its reason in
     out.filter_code)."""
+    if st.params[0].model.kind != object_models.MODEL_ALONG_DIRECTION:
+        return estimate_spatial(st, out, t, dt, phase, event)
     s = st.state[0].pipeline
     kp, ks = st.params[0].kinematics, st.state[0].kinematics
     ring = st.ring
@@ -234,6 +239,117 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
 
 
 @kernel
+def estimate_spatial(st, out, t, dt, phase, event):
+    """:func:`estimate_object` for the models that need the contact point's motion in 3-D
+    (cartesian, revolute, prismatic): the 3-D kinematics, the mechanism's path and geometry,
+    and in contact the model's measurement rows through the environment filter (a mechanism's
+    only once its geometry is fitted: until then its parameters stay at their prior)."""
+    s = st.state[0].pipeline
+    kp, ss = st.params[0].kinematics, st.state[0].spatial
+    mp, ms = st.params[0].mechanism, st.state[0].mechanism
+    model_p, model_s = st.params[0].model, st.state[0].model
+    out.filter_code = outputs.FILTER_NOT_UPDATED
+    out.regained = False
+    out.change = 0
+    out.change_g = 0.0
+    out.position_along = out.acceleration_along = out.kinematics_lag_s = 0.0
+    if not kp.ready:
+        return event, STEP_DONE
+    if event == EV_BEGIN:
+        if not s.ever_contact or t - s.contact_end_s > st.params[0].pipeline.forget_after_s:
+            # a new contact: x from where the residual last was quiet (see estimate_object)
+            for r in range(3):
+                ss.onset[r] = s.quiet_point[r]
+            model_s.filtered = False
+            mechanism.mechanism_start(mp, ms, st.path, s.quiet_point)
+            if s.ever_contact:
+                environment.filter_restart(_filter(st), environment.CHANGE_REGAINED)
+                out.regained = True
+        else:
+            event = EV_RESUMED
+        s.ever_contact = True
+    force = out.force
+    kinematics.spatial_push(kp, ss, st.spatial_ring, st.coefficients, t, s.point,
+                            s.point_velocity, force)
+    is_mechanism = mp.kind != mechanism.KIND_NONE
+    if phase != PHASE_CONTACT:
+        if st.state[0].contact.onset_g == 0.0:   # no contact under way: x starts here
+            for r in range(3):
+                s.quiet_point[r] = s.point[r]
+    else:
+        if is_mechanism:
+            mechanism.mechanism_add(mp, ms, st.path, s.point)
+        full, c = kinematics.spatial_centre(kp, ss)
+        if full:
+            entry = st.spatial_ring[c]
+            rows = st.model_rows
+            channels, m = rows.shape[0], rows.shape[1]
+            forces = np.empty(channels)
+            use = True
+            if model_p.kind == object_models.MODEL_CARTESIAN:
+                x = np.empty(3)
+                for r in range(3):
+                    x[r] = entry.point[r] - ss.onset[r]
+                    forces[r] = entry.force[r]
+                object_models.cartesian_row(model_p, model_s, rows, dt, ss.acceleration,
+                                            ss.velocity, x)
+                u = out.direction
+                out.acceleration_along = (u[0] * ss.acceleration[0] + u[1] * ss.acceleration[1]
+                                          + u[2] * ss.acceleration[2])
+            elif mechanism.mechanism_usable(ms):
+                u0, u1, u2, x_along = mechanism.mechanism_along(mp, ms, entry.point, True)
+                acc = u0 * ss.acceleration[0] + u1 * ss.acceleration[1] + u2 * ss.acceleration[2]
+                vel = u0 * ss.velocity[0] + u1 * ss.velocity[1] + u2 * ss.velocity[2]
+                forces[0] = u0 * entry.force[0] + u1 * entry.force[1] + u2 * entry.force[2]
+                object_models.measurement_row(model_p, model_s, rows, dt, acc, vel, x_along)
+                out.acceleration_along = acc
+            else:
+                use = False
+                model_s.filtered = False   # the matching filter starts again when it is used
+            if use:
+                h = np.empty((channels, m))
+                for cc in range(channels):
+                    for i in range(m):
+                        h[cc, i] = rows[cc, i].regressor
+                out.filter_time_s = entry.time_s
+                out.filter_force = forces[0]
+                code = environment.filter_update(_filter(st), entry.time_s, h, forces)
+                out.filter_code = code
+                if code != environment.ADDED:
+                    if code != environment.UPDATED:
+                        return event, STEP_FILTER_REFUSED
+                    if model_p.kind == object_models.MODEL_CARTESIAN and model_p.semidefinite:
+                        values = np.empty(m)
+                        po = st.parameters
+                        for i in range(m):
+                            values[i] = po[i].filter_output.value
+                        for first in (0, 6, 12):   # mass, damping, stiffness
+                            object_models.project_semidefinite(values, first)
+                        for i in range(m):
+                            po[i].filter_output.value = values[i]
+                    fo = st.state[0].filter_output
+                    out.change = fo.change
+                    out.change_g = fo.change_g
+                    if fo.change != 0:
+                        event = EV_CHANGE
+    if is_mechanism and phase == PHASE_CONTACT and mechanism.mechanism_usable(ms):
+        # u and x from the mechanism's geometry at the contact point now (in contact only:
+        # out of it the point is no longer on the mechanism)
+        u0, u1, u2, x_now = mechanism.mechanism_along(mp, ms, s.point, False)
+        out.direction[0], out.direction[1], out.direction[2] = u0, u1, u2
+        out.force_along = u0 * force[0] + u1 * force[1] + u2 * force[2]
+        pv = s.point_velocity
+        out.velocity_along = u0 * pv[0] + u1 * pv[1] + u2 * pv[2]
+        out.position_along = x_now
+    elif phase == PHASE_CONTACT and model_p.kind == object_models.MODEL_CARTESIAN:
+        u = out.direction
+        out.position_along = (u[0] * (s.point[0] - ss.onset[0]) + u[1] * (s.point[1]
+                              - ss.onset[1]) + u[2] * (s.point[2] - ss.onset[2]))
+    out.kinematics_lag_s = kp.half * kp.nominal_dt_s
+    return event, STEP_DONE
+
+
+@kernel
 def _kinematics_out(out, kp, ks, event):
     out.position_along = ks.position_m
     out.acceleration_along = ks.acceleration
@@ -273,6 +389,27 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
         out.measurement_std = math.sqrt(fo.r)
         all_converged = fo.all_converged
         samples = fo.samples
+    mp = st.params[0].mechanism
+    geometry = mechanism.GEOMETRY_NONE
+    if mp.kind != mechanism.KIND_NONE:
+        ms = st.state[0].mechanism
+        geometry = ms.code
+        out.geometry = geometry
+        for r in range(3):
+            out.axis[r] = ms.axis[r]
+            out.axis_point[r] = ms.axis_point[r]
+        revolute = mp.kind == mechanism.KIND_REVOLUTE
+        out.radius = ms.radius_m if revolute else 0.0
+        out.angle = ms.angle_now_rad if revolute else 0.0
+        out.swept_arc = ms.swept_rad if revolute else 0.0
+        out.travel = ms.travel_m
+        out.path_rms = ms.circle_rms_m if revolute else ms.line_rms_m
+        out.radius_std = ms.radius_std_m if revolute else 0.0
+        out.axis_std = ms.axis_std_rad if revolute else 0.0
+        if geometry != mechanism.GEOMETRY_CONVERGED:   # the geometry converges first
+            all_converged = False
+            for i in range(m):
+                out_params[i].converged = False
     if phase != PHASE_CONTACT:
         all_converged = False
         for i in range(m):
@@ -301,6 +438,15 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
         st.params[0].health, phase, out.since_contact_end_s, all_converged, out.nis_average,
         out.nis_lower, out.nis_upper, samples, condition, s.recent_rejects, rate,
         s.stamp_from_receive)
+    # a path that fits nothing warns at once; "straight" or "curved" (the other mechanism's
+    # shape) once the path is twice mechanism.min_travel: a hinge's first centimetres are
+    # straight within their noise, and that is not yet a finding
+    if phase == PHASE_CONTACT and (geometry == mechanism.GEOMETRY_NO_FIT or (
+            (geometry == mechanism.GEOMETRY_STRAIGHT or geometry == mechanism.GEOMETRY_CURVED)
+            and st.state[0].mechanism.travel_m >= 2.0 * mp.min_travel_m)):
+        out.findings |= health.FINDING_PATH
+        if out.level == health.OK:
+            out.level = health.WARN
 
 
 @kernel

@@ -32,6 +32,7 @@ from . import (
     environment,
     health,
     kinematics,
+    mechanism,
     object_models,
     observer,
     wrench,
@@ -60,6 +61,8 @@ PIPELINE_STATE = record(
     ("point", F8, (3,), "m", "previous contact point, world frame"),
     ("recent_rejects", I8, "", "samples rejected over the second before this one (caller)"),
     ("stamp_from_receive", B1, "", "this sample's stamp is its receive time (caller)"),
+    ("point_velocity", F8, (3,), "m/s", "velocity of the contact point, world frame"),
+    ("quiet_point", F8, (3,), "m", "contact point where the residual was last quiet"),
 )
 PIPELINE_JOINT = record(
     "pipeline, per joint",
@@ -72,13 +75,14 @@ PARAMS = np.dtype([
     ("contact", contact.PARAMS.dtype), ("wrench", wrench.PARAMS.dtype),
     ("direction", direction.PARAMS.dtype), ("kinematics", kinematics.PARAMS.dtype),
     ("model", object_models.PARAMS.dtype), ("filter", environment.PARAMS.dtype),
-    ("health", health.PARAMS.dtype)])
+    ("health", health.PARAMS.dtype), ("mechanism", mechanism.PARAMS.dtype)])
 STATE = np.dtype([
     ("pipeline", PIPELINE_STATE.dtype), ("observer", observer.STATE.dtype),
     ("bias", compensation.BIAS_STATE.dtype), ("contact", contact.STATE.dtype),
     ("direction", direction.STATE.dtype), ("kinematics", kinematics.STATE.dtype),
     ("model", object_models.STATE.dtype), ("filter", environment.STATE.dtype),
-    ("filter_output", environment.OUTPUT.dtype)])
+    ("filter_output", environment.OUTPUT.dtype),
+    ("spatial", kinematics.SPATIAL_STATE.dtype), ("mechanism", mechanism.STATE.dtype)])
 JOINT = np.dtype([
     ("pipeline", PIPELINE_JOINT.dtype), ("observer_params", observer.JOINT_PARAMS.dtype),
     ("observer", observer.JOINTS.dtype), ("friction", compensation.FRICTION_JOINTS.dtype),
@@ -110,11 +114,14 @@ class Storage(NamedTuple):
     model_rows: np.ndarray     # (p, m) object_models.ROW: the measurement row
     ring: np.ndarray           # (2n,) kinematics.RING
     coefficients: np.ndarray   # (n,) kinematics.COEFFICIENTS
+    spatial_ring: np.ndarray   # (2n,) kinematics.SPATIAL_RING (2 where not used)
+    path: np.ndarray           # (capacity,) mechanism.PATH: the kept contact path
 
 
-def new_storage(nv: int, m: int, channels: int = 1) -> Storage:
-    """Zeroed records for nv joints and m object parameters (windows and the kinematics ring
-    are placeholders until the Pipeline sizes them)."""
+def new_storage(nv: int, m: int, channels: int = 1, path: int = 2) -> Storage:
+    """Zeroed records for nv joints and m object parameters with ``channels`` rows per sample
+    and a path of ``path`` points (windows and the kinematics rings are placeholders until the
+    Pipeline sizes them)."""
     ring, coefficients = kinematics.placeholder()
     return Storage(np.zeros(1, PARAMS), np.zeros(1, STATE), np.zeros(nv, JOINT),
                    np.zeros(m, PARAMETER), np.zeros((m, m)), np.zeros((m, m)),
@@ -123,7 +130,7 @@ def new_storage(nv: int, m: int, channels: int = 1) -> Storage:
                    np.zeros((m, m)), np.zeros(channels),
                    np.zeros((channels, m)),
                    object_models.ROW.many(channels * m).reshape(channels, m), ring,
-                   coefficients)
+                   coefficients, kinematics.spatial_placeholder(), mechanism.PATH.many(path))
 
 
 def observer_views(st: Storage) -> observer.ObserverRecords:

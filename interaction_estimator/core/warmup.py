@@ -37,11 +37,20 @@ def warm_up() -> float:
     package uses: a Pipeline in both observer forms and both wrench modes, through contact,
     one sample at a time and in blocks, and each stage on its own. Returns the seconds it
     took."""
+    from . import mechanism
     from .compensation import BiasEstimator, FrictionModel
     from .contact import ContactMonitor
     from .direction import Direction
     from .environment import EnvironmentFilter
     from .kinematics import AlongKinematics
+    from .mechanism import fit_circle, fit_line
+    from .object_models import (
+        CARTESIAN,
+        MATCH_NONE,
+        cartesian_row,
+        new_records,
+        project_semidefinite,
+    )
     from .observer import KalmanMomentumObserver, MomentumObserver
     from .pipeline import Pipeline
     from .samples import Sample, SampleBlock
@@ -51,7 +60,9 @@ def warm_up() -> float:
     start = time.perf_counter()
     for extra in ({}, {"observer.form": "first_order", "wrench.mode": "wrench",
                        "direction.mode": "estimated", "effort_side": "motor",
-                       "friction.viscous": [0.1], "filter.memory": 5.0}):
+                       "friction.viscous": [0.1], "filter.memory": 5.0},
+                  {"environment.model": "cartesian"}, {"environment.model": "revolute"},
+                  {"environment.model": "prismatic", "observer.form": "first_order"}):
         settings = Settings({"contact.hold_time": 0.0, "bias.startup": 0.01, **extra})
         pipe = Pipeline(settings, WARMUP_URDF)
         names = pipe.model.joint_names
@@ -88,6 +99,20 @@ def warm_up() -> float:
         flt.update(k * 0.01, np.array([0.1 * k, 0.2, 0.01, 1.0]), 3.0 + k)
     flt.restart("warm-up")
     EnvironmentFilter._project([1.0, -1.0, -1.0, 0.0], np.eye(4), (True,) * 4)
+    # the models beyond one direction, called on their own (tests, tools)
+    arc = np.column_stack([np.cos(np.linspace(0, 1, 12)), np.sin(np.linspace(0, 1, 12)),
+                           np.zeros(12)])
+    fit_circle(arc)
+    fit_line(arc)
+    cartesian = new_records(CARTESIAN, MATCH_NONE, 0.0)
+    cartesian_row(cartesian.params[0], cartesian.state[0], cartesian.rows, 1e-3, np.ones(3),
+                  np.ones(3), np.ones(3))
+    project_semidefinite(np.array([1.0, 2.0, 0.0, 1.0, 0.0, 1.0]), 0)
+    p, s, path = mechanism.PARAMS.one()[0], mechanism.STATE.one()[0], mechanism.PATH.many(8)
+    p["kind"] = mechanism.KIND_REVOLUTE
+    mechanism.mechanism_start(p, s, path, np.zeros(3))
+    mechanism.mechanism_add(p, s, path, np.ones(3))
+    mechanism.mechanism_along(p, s, np.ones(3), True)
     return time.perf_counter() - start
 
 

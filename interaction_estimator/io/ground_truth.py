@@ -18,6 +18,8 @@ from typing import Any
 
 import numpy as np
 
+from ..core.object_models import ALONG_DIRECTION, CARTESIAN
+
 TRUTH_FORMAT = "interaction_estimator.ground_truth/1"
 TRUTH_METADATA_KEY = "interaction_estimator.ground_truth"
 
@@ -60,15 +62,19 @@ class GroundTruth:
             raise BagError(f"{where}: ground truth has format {found!r}; expected "
                            f"{TRUTH_FORMAT!r}")
         params = doc.get("parameters")
-        names = ("mass", "damping", "stiffness", "static_force")
         extra = {k: v for k, v in doc.items() if k not in ("format", "parameters", "units")}
         if params is None and "parameters" in doc:   # null: a recording without an object
             return cls(None, extra)
+        # the four parameters along a direction, or the 21 of the cartesian model
+        cartesian = isinstance(params, dict) and "mass_xx" in params
+        names = CARTESIAN.parameter_names if cartesian else ALONG_DIRECTION.parameter_names
         if not isinstance(params, dict) or not all(
                 isinstance(params.get(n), (int, float)) and not isinstance(params.get(n), bool)
                 for n in names):
             raise BagError(f"{where}: ground truth 'parameters' is {params!r}; expected numbers "
-                           f"for {', '.join(names)}, or null for a recording without an object")
+                           f"for {', '.join(ALONG_DIRECTION.parameter_names)} (or the "
+                           "cartesian model's mass_xx ... static_force_z), or null for a "
+                           "recording without an object")
         return cls({n: float(params[n]) for n in names}, extra)
 
 

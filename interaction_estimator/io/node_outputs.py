@@ -17,6 +17,8 @@ from typing import NamedTuple
 
 from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
 from ..core.health import ERROR, OK, STALE, WARN
+from ..core.mechanism import GEOMETRY_WORDS
+from ..core.object_models import CARTESIAN, MODELS
 from .cdr import Float64MultiArrayEncoder
 
 # Layout of ~/environment: data[row * 4 + column]; row 0 the values, row 1 their standard
@@ -43,16 +45,79 @@ def environment_encoder() -> Float64MultiArrayEncoder:
     return Float64MultiArrayEncoder(ENVIRONMENT_DIMS, 2 * len(PARAMETER_NAMES))
 
 
-def output_numbers(numbers: Sequence[float]
+# Layout of ~/environment_cartesian (environment.model cartesian, in place of ~/environment):
+# data[row * 21 + column]; row 0 the values, row 1 their standard deviations; column i the
+# parameter CARTESIAN.parameter_names[i] (mass_xx ... stiffness_zz, static_force_x/y/z).
+CARTESIAN_COLUMN_LABEL = "column: " + ", ".join(
+    f"{n} [{u}]" for n, u in zip(CARTESIAN.parameter_names, CARTESIAN.parameter_units,
+                                 strict=True))
+CARTESIAN_DIMS = ((ENVIRONMENT_ROW_LABEL, 2, 2 * CARTESIAN.size),
+                  (CARTESIAN_COLUMN_LABEL, CARTESIAN.size, CARTESIAN.size))
+
+
+def cartesian_encoder() -> Float64MultiArrayEncoder:
+    """``~/environment_cartesian`` as CDR bytes: ``encode(*values, *stds)`` (21 each)."""
+    return Float64MultiArrayEncoder(CARTESIAN_DIMS, 2 * CARTESIAN.size)
+
+
+# Layout of ~/mechanism (environment.model revolute or prismatic): one dimension, the fields
+# below in order (name, unit); zeros where the mechanism has no such field (a slider's radius).
+# geometry: the code of mechanism.GEOMETRY_WORDS (0 no_path ... 6 converged).
+MECHANISM_FIELDS: tuple[tuple[str, str], ...] = (
+    ("axis_x", "1"), ("axis_y", "1"), ("axis_z", "1"),
+    ("axis_point_x", "m"), ("axis_point_y", "m"), ("axis_point_z", "m"),
+    ("radius", "m"), ("radius_std", "m"), ("axis_std", "rad"), ("angle", "rad"),
+    ("swept_arc", "rad"), ("travel", "m"), ("path_rms", "m"),
+    ("converged", "0/1"), ("geometry", "code: " + ", ".join(
+        f"{k} {w}" for k, w in enumerate(GEOMETRY_WORDS))),
+    ("inertia", "kg·m²"), ("inertia_std", "kg·m²"),
+    ("rotary_damping", "N·m·s/rad"), ("rotary_damping_std", "N·m·s/rad"),
+    ("rotary_stiffness", "N·m/rad"), ("rotary_stiffness_std", "N·m/rad"),
+    ("torque", "N·m"), ("torque_std", "N·m"),
+)
+MECHANISM_LABEL = "field: " + ", ".join(f"{n} [{u}]" for n, u in MECHANISM_FIELDS)
+MECHANISM_DIMS = ((MECHANISM_LABEL, len(MECHANISM_FIELDS), len(MECHANISM_FIELDS)),)
+
+
+def mechanism_encoder() -> Float64MultiArrayEncoder:
+    """``~/mechanism`` as CDR bytes: ``encode(*mechanism_numbers(est))``."""
+    return Float64MultiArrayEncoder(MECHANISM_DIMS, len(MECHANISM_FIELDS))
+
+
+def rotary(est) -> list[tuple[str, str, float, float]]:
+    """A hinge's own parameters from those at the grasp (name, unit, value, std): inertia
+    mass r^2, damping r^2, stiffness r^2, static torque static_force r (std scaled alike, the
+    radius taken as exact)."""
+    r = est.radius
+    values, stds = est.parameters.tolist(), est.parameter_std.tolist()
+    return [(name, unit, values[i] * r ** power, stds[i] * r ** power)
+            for i, (name, unit, power) in enumerate((
+                ("inertia", "kg·m²", 2), ("rotary_damping", "N·m·s/rad", 2),
+                ("rotary_stiffness", "N·m/rad", 2), ("torque", "N·m", 1)))]
+
+
+def mechanism_numbers(est) -> list[float]:
+    """The numbers of ``~/mechanism`` for an Estimate of a revolute or prismatic model, in
+    :data:`MECHANISM_FIELDS` order."""
+    hinge = est.model_name == "revolute"
+    out = (est.axis.tolist() + est.axis_point.tolist()
+           + [est.radius, est.radius_std, est.axis_std, est.angle, est.swept_arc, est.travel,
+              est.path_rms, 1.0 if est.geometry_converged else 0.0, float(est.geometry)])
+    for _, _, value, std in rotary(est):
+        out += [value, std] if hinge else [0.0, 0.0]
+    return out
+
+
+def output_numbers(numbers: Sequence[float], m: int = 4
                    ) -> tuple[list[float], list[float], list[float], list[float]] | None:
-    """The 14 numbers the wrench and environment messages carry (force (3) N, torque (3) N·m,
-    parameters (4), their standard deviations (4): :meth:`.Pipeline.last_outputs`, or
+    """The numbers the wrench and environment messages carry (force (3) N, torque (3) N·m,
+    the m parameters, their m standard deviations: :meth:`.Pipeline.last_outputs`, or
     :func:`estimate_outputs`) split into those four lists; None when any of them is not finite.
 
     One sum: NaN or infinity anywhere makes it non-finite (a sum of huge finite values that
     overflows counts as non-finite too, which errs on the safe side)."""
     if math.isfinite(sum(numbers)):
-        return numbers[0:3], numbers[3:6], numbers[6:10], numbers[10:14]
+        return numbers[0:3], numbers[3:6], numbers[6:6 + m], numbers[6 + m:6 + 2 * m]
     return None
 
 
@@ -66,7 +131,7 @@ def estimate_outputs(est) -> list[float]:
 def outputs_finite(est) -> bool:
     """True when every number the wrench and environment messages would carry is finite
     (see :func:`output_numbers`)."""
-    return output_numbers(estimate_outputs(est)) is not None
+    return output_numbers(estimate_outputs(est), len(est.parameters)) is not None
 
 
 def number_text(x: float) -> str:
@@ -140,9 +205,32 @@ def _combine(level: int, message: str, findings: Sequence[tuple[int, str]]) -> t
     return level, message
 
 
-# per parameter, in PARAMETER_NAMES order: value, std, excited and converged keys
-_PARAMETER_KEYS = tuple((f"{n}[{u}]", f"{n}_std[{u}]", f"{n}_excited", f"{n}_converged")
-                        for n, u in zip(PARAMETER_NAMES, PARAMETER_UNITS))
+# per parameter, in the model's order: value, std, excited and converged keys
+_PARAMETER_KEYS = {name: tuple((f"{n}[{u}]", f"{n}_std[{u}]", f"{n}_excited", f"{n}_converged")
+                               for n, u in zip(m.parameter_names, m.parameter_units,
+                                               strict=True))
+                   for name, m in MODELS.items()}
+
+
+def _mechanism_pairs(est) -> list[tuple[str, str]]:
+    """The geometry (and a hinge's own parameters) as status key-values; the swept arc in
+    degrees."""
+    hinge = est.model_name == "revolute"
+    kv = [("mechanism", est.model_name), ("geometry", GEOMETRY_WORDS[est.geometry]),
+          ("geometry_converged", _flag(est.geometry_converged)),
+          ("axis", " ".join(number_text(c) for c in est.axis.tolist())),
+          ("travel[m]", number_text(est.travel)), ("path_rms[m]", number_text(est.path_rms))]
+    if hinge:
+        kv += [("axis_point[m]", " ".join(number_text(c) for c in est.axis_point.tolist())),
+               ("radius[m]", number_text(est.radius)),
+               ("radius_std[m]", number_text(est.radius_std)),
+               ("axis_std[deg]", number_text(math.degrees(est.axis_std))),
+               ("angle[rad]", number_text(est.angle)),
+               ("swept_arc[deg]", number_text(math.degrees(est.swept_arc)))]
+        for name, unit, value, std in rotary(est):
+            kv += [(f"{name}[{unit}]", number_text(value)),
+                   (f"{name}_std[{unit}]", number_text(std))]
+    return kv
 
 
 def status_fields(est, fig: NodeFigures, hardware_id: str) -> StatusFields:
@@ -156,11 +244,14 @@ def status_fields(est, fig: NodeFigures, hardware_id: str) -> StatusFields:
         ("phase", est.phase),
         ("event", est.event),
     ]
+    model_name = getattr(est, "model_name", "along_direction")
     for keys, value, std, excited, converged in zip(
-            _PARAMETER_KEYS, est.parameters.tolist(), est.parameter_std.tolist(),
+            _PARAMETER_KEYS[model_name], est.parameters.tolist(), est.parameter_std.tolist(),
             est.excited.tolist(), est.parameter_converged.tolist()):
         kv += [(keys[0], number_text(value)), (keys[1], number_text(std)),
                (keys[2], _flag(excited)), (keys[3], _flag(converged))]
+    if model_name in ("revolute", "prismatic"):
+        kv += _mechanism_pairs(est)
     kv += [
         ("force_along[N]", number_text(est.force_along)),
         ("position_along[m]", number_text(est.position_along)),

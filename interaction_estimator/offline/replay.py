@@ -60,8 +60,11 @@ from ..io.files import Staged, write_atomic
 from ..io.ground_truth import BagError, GroundTruth
 from ..io.node_outputs import (
     NodeFigures,
+    cartesian_encoder,
     environment_encoder,
     estimate_outputs,
+    mechanism_encoder,
+    mechanism_numbers,
     output_numbers,
     status_fields,
 )
@@ -70,7 +73,9 @@ from ..io.parameter_file import load_parameter_file
 OUTPUT_FILES = ("estimates.csv", "summary.json", "report.html")
 OUTPUT_BAG_DIR = "estimates_bag"
 NODE_TOPICS = {"wrench": f"/{NODE_NAME}/wrench", "environment": f"/{NODE_NAME}/environment",
-               "status": f"/{NODE_NAME}/status"}
+               "status": f"/{NODE_NAME}/status",
+               "environment_cartesian": f"/{NODE_NAME}/environment_cartesian",
+               "mechanism": f"/{NODE_NAME}/mechanism"}
 
 
 class ReplayError(ValueError):
@@ -275,13 +280,20 @@ class NodeOutputBag:
         self._last_status = -math.inf
         self._pipeline = pipeline
         self._wrench = WrenchEncoder(self.frame).encode
-        self._environment = environment_encoder().encode
+        model = pipeline.object_model.name
+        self._m = pipeline.object_model.size
+        cartesian = model == "cartesian"
+        self._environment_topic = NODE_TOPICS["environment_cartesian" if cartesian
+                                              else "environment"]
+        self._environment = (cartesian_encoder() if cartesian else environment_encoder()).encode
+        self._mechanism = (mechanism_encoder().encode if model in ("revolute", "prismatic")
+                           else None)
         self._status = StatusEncoder().encode
         self._writer = BagWriter(path, "mcap")
         self._writer.__enter__()
 
     def add(self, est: Any) -> None:
-        numbers = output_numbers(estimate_outputs(est))
+        numbers = output_numbers(estimate_outputs(est), self._m)
         if numbers is None:   # not finite: the node does not publish it either
             return
         force, torque, values, stds = numbers
@@ -290,10 +302,13 @@ class NodeOutputBag:
         ns = sec * 1_000_000_000 + nanosec
         w.write(NODE_TOPICS["wrench"], WRENCH_STAMPED, ns,
                 self._wrench(sec, nanosec, force, torque))
-        w.write(NODE_TOPICS["environment"], FLOAT64_MULTI_ARRAY, ns,
+        w.write(self._environment_topic, FLOAT64_MULTI_ARRAY, ns,
                 self._environment(*values, *stds))
         if est.time - self._last_status >= self._status_period:
             self._last_status = est.time
+            if self._mechanism is not None:
+                w.write(NODE_TOPICS["mechanism"], FLOAT64_MULTI_ARRAY, ns,
+                        self._mechanism(*mechanism_numbers(est)))
             p = self._pipeline
             fig = NodeFigures(node_name=NODE_NAME, rejects=dict(p.rejects.counts),
                               last_reject=p.rejects.last_message, frame_id=self.frame,
@@ -317,7 +332,7 @@ def run_pipeline(bag: RecordedBag, pipeline: Pipeline, settings: Settings,
                  on_estimate: Callable[[Any], None] | None = None,
                  progress: Progress | None = None) -> tuple[EstimateTable, int]:
     """Feed every joint state of the bag through the pipeline; (table, samples read)."""
-    table = EstimateTable(bag.info.joint_state_count)
+    table = EstimateTable(bag.info.joint_state_count, pipeline.object_model.name)
     append = table.append
     process = pipeline.process
     read = 0
@@ -409,7 +424,8 @@ def replay(req: ReplayRequest) -> ReplayResult:
         }
         summary = summarize(cols, truth=truth.parameters if truth else None,
                             reference=reference, rejects=pipeline.rejects.counts,
-                            samples_read=read, wall_time=wall, source=source)
+                            samples_read=read, wall_time=wall, source=source,
+                            truth_extra=truth.extra if truth else None)
         write_outputs(stage.path, summary, table, reference, file_format=req.file_format,
                       report=req.report)
         stage.commit()

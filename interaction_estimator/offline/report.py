@@ -17,69 +17,37 @@ from __future__ import annotations
 
 import datetime as _dt
 import html
-import json
-import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from ..core.environment import PARAMETER_NAMES, PARAMETER_UNITS
+from ..core.environment import PARAMETER_NAMES
 from ..core.health import LEVEL_NAMES, STATES
 from ..io.estimates import ForceReference, match_reference
-from .svgplot import Chart
+from .report_models import model_note, model_sections
+from .report_style import (  # noqa: F401  (display: the report's number format, re-exported)
+    _MAX_POINTS,
+    BOUNDS,
+    ESTIMATE,
+    INK,
+    LEVEL_COLOURS,
+    PANEL,
+    PAPER,
+    PARAMETER_LABELS,
+    REFERENCE,
+    STATE_COLOURS,
+    STATE_LABELS,
+    TRUTH,
+    _cell,
+    _figure,
+    display,
+    parameter_label,
+)
 
-# Our palette (hex): ink and paper, estimate, its band, the reference, the truth.
-INK = "#1d2731"
-PAPER = "#f6f4ef"
-PANEL = "#ffffff"
-ESTIMATE = "#0f6e7a"
-REFERENCE = "#d9822b"
-TRUTH = "#a4243b"
-BOUNDS = "#7b6aa8"
-STATE_COLOURS = {"learning_bias": "#8e7cc3", "free_motion": "#9aa5b1",
-                 "in_contact": "#4f86c6", "converged": "#2e7d4f", "contact_lost": "#c2543c"}
-LEVEL_COLOURS = {"OK": "#7cc16a", "WARN": "#e8b931", "ERROR": "#b5302a", "STALE": "#5d6873"}
-STATE_LABELS = {"learning_bias": "learning bias", "free_motion": "free motion",
-                "in_contact": "in contact", "converged": "converged",
-                "contact_lost": "contact lost"}
-PARAMETER_LABELS = {"mass": "Mass", "damping": "Damping", "stiffness": "Stiffness",
-                    "static_force": "Static force"}
-_MAX_POINTS = 1500  # per line, after thinning
 _DOT = " \u00b7 "
 SMOOTHING_WINDOW = 0.05  # s, trailing mean drawn over the per-sample force (display only)
-
-
-# --------------------------------------------------------------------------------------------
-# number formatting (display only; data-value keeps the exact number)
-
-
-def display(value: Any) -> str:
-    """How a summary value is shown: 4 significant digits, yes/no, or a dash for None."""
-    if value is None:
-        return "\u2014"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return "\u2014"
-        if value != 0 and (abs(value) >= 1e5 or abs(value) < 1e-3):
-            return f"{value:.3e}"
-        return f"{value:.4g}"
-    return str(value)
-
-
-def _cell(summary: Mapping[str, Any], key: str, css: str = "num") -> str:
-    value: Any = summary
-    for part in key.split("."):
-        value = value[part]
-    raw = json.dumps(value)
-    return (f'<td class="{css}" data-key="{html.escape(key)}" '
-            f'data-value="{html.escape(raw)}">{html.escape(display(value))}</td>')
-
 
 # --------------------------------------------------------------------------------------------
 # tables
@@ -90,10 +58,10 @@ def parameter_table(summary: Mapping[str, Any]) -> str:
             "<th>Truth</th><th>Error</th><th>Relative error</th><th>Converged</th>"
             "<th>Time to convergence (s)</th></tr>")
     rows = []
-    for p in PARAMETER_NAMES:
+    for p in summary["parameters"]:
         k = f"parameters.{p}"
         rows.append(
-            f"<tr><th scope=\"row\">{PARAMETER_LABELS[p]}</th>"
+            f"<tr><th scope=\"row\">{parameter_label(p)}</th>"
             + _cell(summary, f"{k}.unit", "unit")
             + "".join(_cell(summary, f"{k}.{f}") for f in
                       ("final", "std", "truth", "error", "relative_error", "converged",
@@ -127,7 +95,7 @@ def run_table(summary: Mapping[str, Any]) -> str:
              ("Samples rejected", "run.samples_rejected"),
              ("Duration of the stamps (s)", "run.duration_s"),
              ("First contact at (s)", "first_contact_s"),
-             ("All four converged after (s)", "time_to_convergence_s"),
+             ("All parameters converged after (s)", "time_to_convergence_s"),
              ("Wall time (s)", "run.wall_time_s"),
              ("Throughput (samples/s)", "run.throughput_samples_per_s"),
              ("Times real time", "run.real_time_factor")]
@@ -173,15 +141,6 @@ def thinning_note(n: int, tables: bool = True, points: int = _MAX_POINTS) -> str
             f"{points:,} points per line)." + (" The tables use every sample." if tables else ""))
 
 
-def _figure(rows: int, cols: int, height: float, bottom: float = 0.5, hspace: float = 0.45
-            ) -> Chart:
-    """A chart of rows x cols panels, 9.6 in wide and ``height`` in high (fixed margins in
-    inches), in the report's colours."""
-    return Chart(rows, cols, 9.6, height, left_in=0.75, right_in=0.2, bottom_in=bottom,
-                 top_in=0.35, hspace=hspace, wspace=0.18, ink=INK, grid="#e3e0d8",
-                 spine="#8a949e", background=PANEL)
-
-
 def force_figure(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
@@ -212,9 +171,15 @@ def force_figure(cols: Mapping[str, np.ndarray], ref: ForceReference | None) -> 
 def parameter_figure(cols: Mapping[str, np.ndarray], summary: Mapping[str, Any]) -> str:
     t = cols["time"]
     t0 = float(t[0]) if len(t) else 0.0
-    chart = _figure(2, 2, 5.6)
-    for k, (p, unit) in enumerate(zip(PARAMETER_NAMES, PARAMETER_UNITS)):
-        ax = chart.panels[k // 2][k % 2]
+    shown = [(p, summary["parameters"][p]["unit"]) for p in summary["parameters"]]
+    if len(shown) > len(PARAMETER_NAMES):   # the cartesian model: the diagonals and f_s
+        shown = [(p, u) for p, u in shown if p.rpartition("_")[2] in ("xx", "yy", "zz")
+                 or p.startswith("static_force")]
+    ncols = 2 if len(shown) <= 4 else 3
+    nrows = (len(shown) + ncols - 1) // ncols
+    chart = _figure(nrows, ncols, 2.8 * nrows)
+    for k, (p, unit) in enumerate(shown):
+        ax = chart.panels[k // ncols][k % ncols]
         value, std = cols[p], cols[f"{p}_std"]
         tt, v, s = _thin(t - t0, value, std)
         ax.band(tt, v - 2 * s, v + 2 * s, ESTIMATE, 0.18, label="\u00b12 std")
@@ -228,10 +193,10 @@ def parameter_figure(cols: Mapping[str, np.ndarray], summary: Mapping[str, Any])
             hi = max(float(np.max(finite)), truth if truth is not None else -np.inf)
             pad = 0.25 * (hi - lo) + 0.05 * max(abs(hi), abs(lo), 1e-3)
             ax.ylim = (lo - pad, hi + pad)
-        ax.title = f"{PARAMETER_LABELS[p]} ({unit})"
+        ax.title = f"{parameter_label(p)} ({unit})"
         if k == 0:
             ax.legend = {"where": "upper left", "columns": 3}
-        if k >= 2:
+        if k >= len(shown) - ncols:
             ax.xlabel = "time since first sample (s)"
     return chart.svg()
 
@@ -366,7 +331,9 @@ def build_report(summary: Mapping[str, Any], cols: Mapping[str, np.ndarray],
         sub.append(f"scenario {src['scenario']}")
     sub.append(f"{src.get('tool', 'replay')}, {_dt.date.today().isoformat()}")
     conv = summary.get("time_to_convergence_s")
-    verdict = _chip("all four parameters converged" + (f" after {conv:.2f} s of contact"
+    count = len(summary["parameters"])
+    every = "all four parameters" if count == 4 else f"all {count} parameters"
+    verdict = _chip(f"{every} converged" + (f" after {conv:.2f} s of contact"
                                                        if conv is not None else "")
                     if summary.get("converged") else "not all parameters converged at the end",
                     STATE_COLOURS["converged"] if summary.get("converged")
@@ -385,10 +352,11 @@ def build_report(summary: Mapping[str, Any], cols: Mapping[str, np.ndarray],
         f'<header class="masthead"><h1>{html.escape(heading)}</h1>'
         f"<p>{html.escape(_DOT.join(sub))}</p></header><main>",
         f'<div class="verdict">{verdict}</div>',
-        '<section><h2>Object parameters</h2>', parameter_table(summary),
+        '<section><h2>Object parameters</h2>', model_note(summary), parameter_table(summary),
         '<p class="note">Estimate and standard deviation at the last sample; time to '
         "convergence counts from the first contact. Error = estimate \u2212 truth.</p>"
         "</section>",
+        model_sections(summary, cols),
         '<section class="two"><div><h2>Force</h2>', force_table(summary),
         "</div><div><h2>Run</h2>", run_table(summary), "</div></section>",
         '<section><h2>Force, estimate and reference</h2><figure id="fig-force">',

@@ -33,18 +33,23 @@ from ..io import cdr
 from ..io.cdr import JointStateReader, seconds_to_stamp, stamp_seconds
 from ..io.effort_matching import efforts_in_order
 from ..io.node_outputs import (
+    CARTESIAN_DIMS,
     ENVIRONMENT_DIMS,
+    MECHANISM_DIMS,
+    MECHANISM_FIELDS,
     NodeFigures,
     StatusFields,
     environment_encoder,
     estimate_outputs,
     idle_fields,
+    mechanism_numbers,
     output_numbers,
     outputs_finite,
     status_fields,
 )
 
 __all__ = [
+    "ArrayEncoder", "CARTESIAN_DIMS", "MECHANISM_DIMS", "MECHANISM_FIELDS", "mechanism_numbers",
     "MODEL_ERROR", "WAITING_FOR_INPUT", "WAITING_FOR_MODEL", "EnvironmentEncoder",
     "JointStateReader", "NodeFigures", "StatusEncoder", "StatusFields", "WrenchEncoder",
     "efforts_for_state", "environment_message", "environment_message_template",
@@ -238,6 +243,36 @@ class EnvironmentEncoder:
             return self._bytes(*values, *stds)
         msg = environment_message_template()
         msg.data = array("d", [*values, *stds])
+        return msg
+
+
+class ArrayEncoder:
+    """A Float64MultiArray of a fixed labelled layout (dims: (label, size, stride) each) and
+    ``count`` numbers: ``~/environment_cartesian`` and ``~/mechanism``; CDR bytes when they pass
+    the check against rclpy, message objects otherwise."""
+
+    def __init__(self, dims: Sequence[tuple[str, int, int]], count: int):
+        self._dims, self.count = tuple(dims), count
+        self._bytes = cdr.Float64MultiArrayEncoder(dims, count).encode
+        probe = self._template()
+        values = [1.5, -2.25, 3e-300, -4e300, 0.1, -0.0, 7.0, 1e-3] * (count // 8 + 1)
+        probe.data = array("d", values[:count])
+        self.raw = _agrees(self._bytes(*values[:count]), probe)
+
+    def _template(self) -> Float64MultiArray:
+        msg = Float64MultiArray()
+        msg.layout.dim = [MultiArrayDimension(label=label, size=size, stride=stride)
+                          for label, size, stride in self._dims]
+        msg.layout.data_offset = 0
+        return msg
+
+    def encode(self, *parts: Sequence[float]) -> bytes | Float64MultiArray:
+        """The numbers of ``parts`` in order (e.g. the values, then their stds)."""
+        numbers = [x for part in parts for x in part]
+        if self.raw:
+            return self._bytes(*numbers)
+        msg = self._template()
+        msg.data = array("d", [float(x) for x in numbers])
         return msg
 
 

@@ -85,9 +85,13 @@ from . import parameters as node_params
 from .inputs import LatencyMeter, WarningThrottle
 from .markers import ContactPoint, MarkerBuilder, MarkerScene
 from .messages import (
+    CARTESIAN_DIMS,
+    MECHANISM_DIMS,
+    MECHANISM_FIELDS,
     MODEL_ERROR,
     WAITING_FOR_INPUT,
     WAITING_FOR_MODEL,
+    ArrayEncoder,
     EnvironmentEncoder,
     JointStateReader,
     NodeFigures,
@@ -96,6 +100,7 @@ from .messages import (
     WrenchEncoder,
     efforts_for_state,
     idle_fields,
+    mechanism_numbers,
     output_numbers,
     sample_from_joint_state,
     sample_from_parts,
@@ -112,6 +117,8 @@ JOINT_EFFORTS_TOPIC = "joint_efforts"
 ROBOT_DESCRIPTION_TOPIC = "robot_description"
 WRENCH_TOPIC = "~/wrench"
 ENVIRONMENT_TOPIC = "~/environment"
+CARTESIAN_TOPIC = "~/environment_cartesian"
+MECHANISM_TOPIC = "~/mechanism"
 STATUS_TOPIC = "~/status"
 MARKERS_TOPIC = "~/markers"
 DIAGNOSTICS_TOPIC = "/diagnostics"
@@ -121,6 +128,9 @@ CALIBRATE_SERVICE = "~/calibrate_bias"
 UNCONFIGURED, INACTIVE, ACTIVE, FINALIZED = "unconfigured", "inactive", "active", "finalized"
 INPUT_TOPICS = (JOINT_STATES_TOPIC, JOINT_EFFORTS_TOPIC, ROBOT_DESCRIPTION_TOPIC)
 OUTPUT_TOPICS = (WRENCH_TOPIC, ENVIRONMENT_TOPIC, STATUS_TOPIC, DIAGNOSTICS_TOPIC, MARKERS_TOPIC)
+# with environment.model cartesian, ~/environment_cartesian in place of ~/environment; with
+# revolute or prismatic, ~/mechanism beside it (at the status rate)
+MODEL_TOPICS = (CARTESIAN_TOPIC, MECHANISM_TOPIC)
 
 MARKERS_DEPTH = 5           # marker arrays kept (reliable): a viewer wants the latest
 OUTPUT_DEPTH = 100          # messages kept per output publisher (reliable): 0.1 s at 1 kHz
@@ -169,6 +179,8 @@ class _Estimator:
         self._matcher: EffortMatcher[JointState, JointState] = EffortMatcher(
             settings["input.stamp_tolerance"], EFFORT_BUFFER)
         self._wrench_pub = self._environment_pub = self._markers_pub = None
+        self._mechanism_pub = None   # revolute and prismatic models
+        self._parameter_count = 4    # the object model's (21 for cartesian)
         self._states_sub = self._efforts_sub = self._description_sub = None
         self._node_services: list = []
         self._watch_timer = None
@@ -202,7 +214,17 @@ class _Estimator:
         make = self.create_lifecycle_publisher if self.managed else self.create_publisher
         qos = self._output_qos()
         self._wrench_pub = make(WrenchStamped, WRENCH_TOPIC, qos)
-        self._environment_pub = make(Float64MultiArray, ENVIRONMENT_TOPIC, qos)
+        model = self.settings["environment.model"]
+        self._parameter_count = 21 if model == "cartesian" else 4
+        if model == "cartesian":   # the 21 parameters, in place of ~/environment's four
+            self._environment_pub = make(Float64MultiArray, CARTESIAN_TOPIC, qos)
+            self._environment_encoder = ArrayEncoder(CARTESIAN_DIMS, 42)  # type: ignore[assignment]
+        else:
+            self._environment_pub = make(Float64MultiArray, ENVIRONMENT_TOPIC, qos)
+            self._environment_encoder = EnvironmentEncoder()
+        if model in ("revolute", "prismatic"):
+            self._mechanism_pub = make(Float64MultiArray, MECHANISM_TOPIC, qos)
+            self._mechanism_encoder = ArrayEncoder(MECHANISM_DIMS, len(MECHANISM_FIELDS))
         self._markers_pub = make(MarkerArray, MARKERS_TOPIC, MARKERS_DEPTH)
 
     def _create_inputs(self) -> None:
@@ -537,7 +559,7 @@ class _Estimator:
                                 "receive time is used instead (less accurate)")
         # the messages from the numbers alone; the Estimate (health words, figures) is built
         # only when a status is published
-        numbers = output_numbers(pipeline.last_outputs())
+        numbers = output_numbers(pipeline.last_outputs(), self._parameter_count)
         if numbers is not None:
             force, torque, values, stds = numbers
             if sample.stamp_from_receive:
@@ -558,6 +580,9 @@ class _Estimator:
         self._last_sample = sample
         if self._status_due() if due is None else due:
             est = pipeline.estimate()
+            if self._mechanism_pub is not None:
+                self._mechanism_pub.publish(self._mechanism_encoder.encode(
+                    mechanism_numbers(est)))
             self._publish(status_fields(est, self._figures(est), self._hardware_id()), now)
             if self._markers_wanted and numbers is not None:
                 self._publish_markers(est, sample, sec, nanosec)
@@ -926,10 +951,12 @@ class ManagedEstimatorNode(_Estimator, LifecycleNode):
         """Destroy what configure and activate made; free the model."""
         self._destroy_inputs()
         self._clear_markers()   # from active (shutdown): its publisher is still enabled
-        for pub in (self._wrench_pub, self._environment_pub, self._markers_pub):
+        for pub in (self._wrench_pub, self._environment_pub, self._markers_pub,
+                    self._mechanism_pub):
             if pub is not None:
                 self.destroy_lifecycle_publisher(pub)
         self._wrench_pub = self._environment_pub = self._markers_pub = None
+        self._mechanism_pub = None
         self._markers_wanted = False
         if self._description_sub is not None:
             self.destroy_subscription(self._description_sub)

@@ -144,6 +144,40 @@ class _LinearObject:
                 self.u * lam[0], self.u)
 
 
+class _CartesianObject:
+    """An object with 3x3 mass, damping and stiffness matrices and a constant force vector,
+    moving with the tool: the robot's force on it is F = M a + D x' + K x + f_s, x the tool's
+    displacement from the contact point (world frame); three KKT rows."""
+
+    n_rows = 3
+
+    def __init__(self, spec: ScenarioSpec, p0: np.ndarray):
+        ph = spec.physical
+        self.M = np.asarray(ph["mass_matrix_kg"], float)
+        self.D = np.asarray(ph["damping_matrix_N_s_per_m"], float)
+        self.K = np.asarray(ph["stiffness_matrix_N_per_m"], float)
+        self.f0 = np.asarray(ph["static_force_N"], float)
+        self.u = np.asarray(spec.direction, float)
+        self.p0 = p0.copy()
+
+    def rows(self, t: _Terms, v: np.ndarray):
+        x = t.p - self.p0
+        xd = t.J @ v
+        rhs = -(self.M @ t.gamma + self.D @ xd + self.K @ x + self.f0)
+        return np.eye(3), self.M @ t.J, -np.eye(3), rhs
+
+    def impact_rows(self, t: _Terms):
+        return np.eye(3), self.M @ t.J, -np.eye(3)
+
+    def state(self, t: _Terms, v: np.ndarray, a: np.ndarray, lam: np.ndarray):
+        """Along the display direction u: (x m, x' m/s, x'' m/s^2, u.F N, F (3,) N, u)."""
+        x = t.p - self.p0
+        xd = t.J @ v
+        xdd = t.J @ a + t.gamma
+        return (float(self.u @ x), float(self.u @ xd), float(self.u @ xdd),
+                float(self.u @ lam), lam.copy(), self.u)
+
+
 class _Door:
     """Door on a vertical hinge; the handle (the tool) is held on its circle of radius R.
 

@@ -5,6 +5,7 @@ controller gains they are followed with (see :mod:`.simulator`)."""
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pinocchio as pin
@@ -142,7 +143,24 @@ class _Plan:
         # contact phase
         sc = t_ctrl[~free] - t_contact
         x, xd, xdd, slow = _contact_path(spec, sc, duration - t_contact)
-        if spec.direction_kind == "arc":
+        if spec.direction_kind == "cartesian":
+            # every world axis wiggles on its own (travel 0: the fixture stays near its rest)
+            x3 = np.zeros((len(sc), 3))
+            xd3 = np.zeros((len(sc), 3))
+            xdd3 = np.zeros((len(sc), 3))
+            for ax, wiggles in enumerate(spec.axis_wiggles):
+                sub = replace(spec, wiggles=wiggles, travel=0.0, direction_kind="world",
+                              axis_wiggles=(), mass=0.0, damping=0.0, stiffness=0.0,
+                              static_force=0.0, physical={})
+                x3[:, ax], xd3[:, ax], xdd3[:, ax], _ = _contact_path(sub, sc,
+                                                                       duration - t_contact)
+            self.p[~free] = pc + x3
+            self.v[~free] = xd3
+            self.acc[~free] = xdd3
+
+            def slow_point(xs: float) -> np.ndarray:
+                return pc
+        elif spec.direction_kind == "arc":
             R = spec.physical["handle_radius_m"]
             n0 = np.cross(u, [0.0, 0.0, 1.0])
             hinge = pc - R * n0

@@ -36,7 +36,9 @@ def write_simulated_bag(path: str | Path, run: Any, storage: str = "mcap",
     scenario has no object)."""
     root = RobotModel(run.urdf, run.contact_frame).root_frame
     truth_params = None
-    if run.truth.get("has_object", True):
+    if run.truth.get("parameters") is not None:   # a model's own names (cartesian)
+        truth_params = {k: float(v) for k, v in run.truth["parameters"].items()}
+    elif run.truth.get("has_object", True):
         truth_params = {k: float(run.truth[k]) for k in ("mass", "damping", "stiffness",
                                                           "static_force")}
     t0 = SIMULATED_TIME_OFFSET
@@ -50,6 +52,9 @@ def write_simulated_bag(path: str | Path, run: Any, storage: str = "mcap",
              "effort_noise": _jsonable(run.truth.get("effort_noise")),
              "velocity_noise": _jsonable(run.truth.get("velocity_noise")),
              "joint_names": list(run.joint_names), "world_frame": root}
+    for key in ("mechanism", "mass_matrix", "damping_matrix", "stiffness_matrix"):
+        if run.truth.get(key) is not None:
+            extra[key] = _jsonable(run.truth[key])
     truth = GroundTruth(truth_params, extra)
     enc = JointStateEncoder()
     names = tuple(run.joint_names)

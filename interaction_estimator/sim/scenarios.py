@@ -66,7 +66,11 @@ class ScenarioSpec:
 
     ``direction_kind``: ``"world"`` (an object along a fixed unit vector ``direction``, world
     frame), ``"arc"`` (the door: ``direction`` is the opening tangent when closed; it turns with
-    the door) or ``"none"`` (no object at all: free motion only, see ``joint_motion``).
+    the door), ``"cartesian"`` (an object with 3x3 mass, damping and stiffness matrices and a
+    static force vector, ``physical`` keys ``mass_matrix_kg``, ``damping_matrix_N_s_per_m``,
+    ``stiffness_matrix_N_per_m``, ``static_force_N``; the tool wiggles along every world axis,
+    ``axis_wiggles``; ``direction`` only names the direction of the *_along truth) or
+    ``"none"`` (no object at all: free motion only, see ``joint_motion``).
     ``settings``: recommended overrides of the estimator's settings (dotted names).
     ``duration`` s, default run length; ``hold`` s of holding still at the end.
 
@@ -109,13 +113,21 @@ class ScenarioSpec:
     physical: dict[str, float] = field(default_factory=dict, hash=False)
     joint_motion: tuple[JointSweep, ...] = ()
     ramp: float = 0.0
+    axis_wiggles: tuple[tuple[Wiggle, ...], ...] = ()
 
     def __post_init__(self) -> None:
         # developer checks of the built-in catalogue (not user input)
-        if self.direction_kind not in ("world", "arc", "none"):
+        if self.direction_kind not in ("world", "arc", "cartesian", "none"):
             raise ValueError(f"scenario {self.name!r}: direction_kind {self.direction_kind!r};"
-                             " expected 'world', 'arc' or 'none'")
-        if self.has_object:
+                             " expected 'world', 'arc', 'cartesian' or 'none'")
+        if self.direction_kind == "cartesian":
+            missing = [n for n in ("direction", "contact_point", "start_offset")
+                       if getattr(self, n) is None]
+            missing += [k for k in CARTESIAN_KEYS if k not in self.physical]
+            if missing or len(self.axis_wiggles) != 3 or self.joint_motion:
+                raise ValueError(f"scenario {self.name!r} (cartesian): it needs {missing}, "
+                                 "three axis_wiggles and no joint_motion")
+        elif self.has_object:
             missing = [n for n in ("mass", "damping", "stiffness", "static_force", "direction",
                                    "contact_point", "start_offset")
                        if getattr(self, n) is None]
@@ -143,12 +155,45 @@ class ScenarioSpec:
         return self.free_time + self.hold + 1.5
 
     def truth_parameters(self) -> dict[str, float] | None:
-        """``{"mass": kg, "damping": N·s/m, "stiffness": N/m, "static_force": N}``; None when
-        the scenario has no object (there are no object parameters to be true)."""
+        """``{"mass": kg, "damping": N·s/m, "stiffness": N/m, "static_force": N}``; for a
+        cartesian object the 21 entries of the cartesian model (``mass_xx`` ... ``mass_zz``,
+        ``damping_*``, ``stiffness_*`` and ``static_force_x/y/z``); None when the scenario has
+        no object (there are no object parameters to be true)."""
         if not self.has_object:
             return None
+        if self.direction_kind == "cartesian":
+            out: dict[str, float] = {}
+            for prefix, key in zip(("mass", "damping", "stiffness"), CARTESIAN_KEYS[:3],
+                                   strict=True):
+                matrix = np.asarray(self.physical[key], float)
+                for a, b in ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2)):
+                    out[f"{prefix}_{'xyz'[a]}{'xyz'[b]}"] = float(matrix[a, b])
+            for a in range(3):
+                out[f"static_force_{'xyz'[a]}"] = float(self.physical[CARTESIAN_KEYS[3]][a])
+            return out
         return {"mass": self.mass, "damping": self.damping, "stiffness": self.stiffness,
                 "static_force": self.static_force}
+
+    def truth_mechanism(self) -> dict[str, Any] | None:
+        """The true geometry the estimator's ``revolute`` or ``prismatic`` model should find:
+        ``axis`` (unit, world; the opening motion positive), for a hinge ``axis_point`` m,
+        ``radius`` m and its own parameters (``inertia`` kg·m², ``rotary_damping`` N·m·s/rad,
+        ``rotary_stiffness`` N·m/rad, ``torque`` N·m); for a cartesian object its matrices.
+        None when the scenario has none of these."""
+        if self.direction_kind == "arc":
+            ph = self.physical
+            u = np.asarray(self.direction, float)
+            n0 = np.cross(u, [0.0, 0.0, 1.0])
+            hinge = np.asarray(self.contact_point, float) - ph["handle_radius_m"] * n0
+            return {"kind": "revolute", "axis": [0.0, 0.0, 1.0],
+                    "axis_point": [float(hinge[0]), float(hinge[1]), 0.0],
+                    "radius": ph["handle_radius_m"], "inertia": ph["inertia_kg_m2"],
+                    "rotary_damping": ph["damping_N_m_s_per_rad"],
+                    "rotary_stiffness": ph["stiffness_N_m_per_rad"],
+                    "torque": ph["preload_N_m"]}
+        if self.direction_kind == "world":
+            return {"kind": "prismatic", "axis": [float(x) for x in self.direction]}
+        return None
 
 
 def door_along_arc(inertia: float, damping: float, stiffness: float, preload: float,
@@ -276,8 +321,88 @@ def _commissioning() -> ScenarioSpec:
         joint_motion=motion)
 
 
-SCENARIOS: dict[str, ScenarioSpec] = {s.name: s for s in (_door(), _drawer(), _cart(),
-                                                          _toolbox(), _commissioning())}
+CARTESIAN_KEYS = ("mass_matrix_kg", "damping_matrix_N_s_per_m", "stiffness_matrix_N_per_m",
+                  "static_force_N")
+
+
+def _cabinet_door() -> ScenarioSpec:
+    """A tall tool-cabinet door on a vertical hinge with a soft closer, swung through about 40
+    degrees by its bar handle (numbers invented)."""
+    phys = {"inertia_kg_m2": 0.95, "damping_N_m_s_per_rad": 0.6,
+            "stiffness_N_m_per_rad": 2.6, "preload_N_m": 1.4, "handle_radius_m": 0.46,
+            "open_angle_rad": 0.55}
+    arc = door_along_arc(phys["inertia_kg_m2"], phys["damping_N_m_s_per_rad"],
+                         phys["stiffness_N_m_per_rad"], phys["preload_N_m"],
+                         phys["handle_radius_m"])
+    u = np.array([-0.94, 0.34, 0.0])
+    return ScenarioSpec(
+        name="cabinet_door",
+        description="Marten swings a tool-cabinet door open by its bar handle against a soft"
+                    " closer and works it back and forth (hinge estimated from the path).",
+        duration=18.0, direction_kind="arc", direction=tuple(u / np.linalg.norm(u)),
+        settings={"environment.model": "revolute", "direction.mode": "estimated",
+                  "direction.vector": [float(x) for x in u / np.linalg.norm(u)]},
+        free_time=2.0, contact_point=(0.86, 0.05, 0.88), start_offset=(-0.20, 0.12, 0.16),
+        travel=phys["handle_radius_m"] * phys["open_angle_rad"],
+        wiggles=(Wiggle(0.035, 0.5), Wiggle(0.010, 1.5)),
+        hold=1.0, monotone=False, base_follows=False, feedforward=4.0, physical=phys, **arc)
+
+
+def _tool_cart_drawer() -> ScenarioSpec:
+    """A drawer of a rolling tool cart, on rails at an angle to the robot (numbers
+    invented)."""
+    u = np.array([-0.8, -0.6, 0.0])
+    return ScenarioSpec(
+        name="tool_cart_drawer",
+        description="Marten pulls a loaded drawer out of a tool cart standing at an angle to"
+                    " it and works it in and out (slider axis estimated from the path).",
+        duration=10.0, mass=3.2, damping=9.0, stiffness=0.0, static_force=3.0,
+        direction_kind="world", direction=tuple(u),
+        settings={"environment.model": "prismatic", "direction.mode": "estimated",
+                  "direction.vector": [float(x) for x in u]},
+        free_time=2.0, contact_point=(0.84, 0.10, 0.74), start_offset=(-0.18, 0.16, 0.18),
+        travel=0.26, wiggles=(Wiggle(0.03, 0.5), Wiggle(0.006, 1.8)),
+        hold=0.0, monotone=False, base_follows=False, feedforward=3.0,
+        physical={"rail_friction_N": 3.0})
+
+
+def _rotation(axis: tuple[float, float, float], angle: float) -> np.ndarray:
+    """Rotation matrix about a unit axis by an angle in rad (Rodrigues)."""
+    k = np.asarray(axis, float) / np.linalg.norm(axis)
+    K = np.array([[0.0, -k[2], k[1]], [k[2], 0.0, -k[0]], [-k[1], k[0], 0.0]])
+    return np.eye(3) + math.sin(angle) * K + (1 - math.cos(angle)) * K @ K
+
+
+def _soft_fixture() -> ScenarioSpec:
+    """A part held in a compliant fixture (rubber mounts), stiffer in one direction than the
+    others, its principal axes turned away from the world's (numbers invented)."""
+    R = _rotation((1.0, 1.0, 1.0), math.radians(35.0))
+    mass = R @ np.diag([1.6, 2.1, 2.6]) @ R.T
+    damping = R @ np.diag([18.0, 30.0, 45.0]) @ R.T
+    stiffness = R @ np.diag([300.0, 650.0, 1100.0]) @ R.T
+    phys = {"mass_matrix_kg": mass.tolist(), "damping_matrix_N_s_per_m": damping.tolist(),
+            "stiffness_matrix_N_per_m": stiffness.tolist(),
+            "static_force_N": [2.0, -1.5, 4.0],
+            "principal_mass_kg": [1.6, 2.1, 2.6], "principal_damping_N_s_per_m": [18, 30, 45],
+            "principal_stiffness_N_per_m": [300, 650, 1100],
+            "rotation_axis": [1.0, 1.0, 1.0], "rotation_deg": 35.0}
+    return ScenarioSpec(
+        name="soft_fixture",
+        description="Marten presses and wiggles a part held in a compliant three-axis fixture"
+                    " (3-D mass, damping and stiffness, world frame).",
+        duration=12.0, direction_kind="cartesian", direction=(1.0, 0.0, 0.0),
+        settings={"environment.model": "cartesian", "direction.mode": "world",
+                  "direction.vector": [1.0, 0.0, 0.0]},
+        free_time=2.0, contact_point=(0.80, 0.0, 0.80), start_offset=(-0.18, 0.15, 0.16),
+        hold=0.5, feedforward=0.0, physical=phys,
+        axis_wiggles=((Wiggle(0.020, 0.55), Wiggle(0.006, 1.9, 0.4)),
+                      (Wiggle(0.018, 0.75), Wiggle(0.005, 2.3, 1.1)),
+                      (Wiggle(0.015, 0.95), Wiggle(0.004, 1.45, 2.0))))
+
+
+SCENARIOS: dict[str, ScenarioSpec] = {s.name: s for s in (
+    _door(), _drawer(), _cart(), _toolbox(), _commissioning(), _cabinet_door(),
+    _tool_cart_drawer(), _soft_fixture())}
 
 
 @dataclass

@@ -95,7 +95,7 @@ from typing import Any
 import numpy as np
 import pinocchio as pin
 
-from .dynamics import _Door, _impact, _LinearObject, _Robot, _solve, _terms
+from .dynamics import _CartesianObject, _Door, _impact, _LinearObject, _Robot, _solve, _terms
 from .marten import CONTACT_FRAME, MOBILE_URDF, mobile_urdf
 from .motions import (
     POSTURE_DAMPING_RATIO,
@@ -191,8 +191,9 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
     for k in range(n_ticks):
         tm = _terms(robot, q, v)
         if k == k_contact:
-            obj = _Door(spec, tm.p) if spec.direction_kind == "arc" else _LinearObject(spec,
-                                                                                       tm.p)
+            obj = (_Door(spec, tm.p) if spec.direction_kind == "arc" else
+                   _CartesianObject(spec, tm.p) if spec.direction_kind == "cartesian" else
+                   _LinearObject(spec, tm.p))
             contact_point = tm.p.copy()
             v = _impact(tm, obj, v)
             tm = _terms(robot, q, v)
@@ -261,6 +262,16 @@ def simulate(scenario: str, duration: float | None = None, seed: int = 0, rate: 
     }
     if spec.direction_kind == "arc":
         truth["hinge"] = obj.hinge.copy()
+    mechanism = spec.truth_mechanism()
+    if mechanism is not None:
+        if spec.direction_kind == "arc":   # the hinge where the simulation put it
+            mechanism["axis_point"] = [float(x) for x in obj.hinge]
+        truth["mechanism"] = mechanism
+    if spec.direction_kind == "cartesian":
+        for prefix, key in (("mass", "mass_matrix_kg"), ("damping", "damping_matrix_N_s_per_m"),
+                            ("stiffness", "stiffness_matrix_N_per_m")):
+            truth[f"{prefix}_matrix"] = np.asarray(spec.physical[key], float)
+        truth["parameters"] = parameters
     settings = {**copy.deepcopy(spec.settings), "effort_side": effort_side,
                 "contact_frame": CONTACT_FRAME}
     return SimulatedRun(
