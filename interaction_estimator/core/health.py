@@ -33,6 +33,8 @@ FINDING_REJECTS = 2      # samples were rejected over the last second
 FINDING_LOW_RATE = 4     # the input rate is below health.min_rate
 FINDING_NO_STAMPS = 8    # stamps are zero: the receive time is used
 FINDING_NIS = 16         # the innovations are inconsistent (in contact only)
+FINDING_ODOMETRY = 32    # a moving base's odometry stale, refused or too slow (base.py words it)
+FINDING_IMU = 64         # the same for its IMU
 
 PARAMS = record(
     "health parameters",

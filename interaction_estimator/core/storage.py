@@ -60,6 +60,8 @@ PIPELINE_STATE = record(
     ("point", F8, (3,), "m", "previous contact point, world frame"),
     ("recent_rejects", I8, "", "samples rejected over the second before this one (caller)"),
     ("stamp_from_receive", B1, "", "this sample's stamp is its receive time (caller)"),
+    ("base_findings", I8, "", "a moving base's inputs stale, refused or too slow: "
+     "base.FINDING_* bits (caller)"),
 )
 PIPELINE_JOINT = record(
     "pipeline, per joint",
