@@ -66,6 +66,8 @@ ACC_FILTER_S = 0.02
 WORLD_FRAME = "odom"   # the odometry's frame_id: the MuJoCo world at the start
 _SITE = "harness_contact_site"
 _IMU_SITE = "harness_imu_site"
+_TIP_BODY = "harness_object_handle"
+TIP_MASS = 0.2    # kg, the handle's (part of the truth's mass along u)
 
 # arm controller gains (as in mujoco_world)
 JOINT_OMEGA, TASK_OMEGA, NULL_OMEGA = 2 * np.pi * 8.0, 2 * np.pi * 10.0, 2 * np.pi * 2.0
@@ -260,16 +262,22 @@ class MobileWorld:
                             axis=self.u.tolist())
         jnt.springref = 0.0
         jnt.limited = mujoco.mjtLimited.mjLIMITED_FALSE
-        # across u the object moves freely with its mass (a cart on casters, a crate in the
-        # hand): the force across u is then what its mass needs, not a guide's reaction to
-        # the arm's tracking errors on a base that moves
+        # the contact point's handle on the object: free across u with a negligible mass (a
+        # cart on casters, a crate in the hand: the force across u is what the handle's mass
+        # needs, not a guide's reaction to the arm's tracking errors on a base that moves);
+        # along u it carries the object
+        tip = obj.add_body(name=_TIP_BODY, pos=[0.0, 0.0, 0.0])
+        tip.explicitinertial = True
+        tip.mass = TIP_MASS
+        tip.inertia = [1e-3, 1e-3, 1e-3]
+        tip.gravcomp = 1.0
         across = np.linalg.svd(self.u.reshape(1, 3))[2][1:]
         for i, axis in enumerate(across):
-            side = obj.add_joint(name=f"{_OBJECT_JOINT}_across{i}",
+            side = tip.add_joint(name=f"{_OBJECT_JOINT}_across{i}",
                                  type=mujoco.mjtJoint.mjJNT_SLIDE, axis=axis.tolist())
             side.limited = mujoco.mjtLimited.mjLIMITED_FALSE
         spec.add_equality(name=_EQUALITY, type=mujoco.mjtEq.mjEQ_CONNECT,
-                          objtype=mujoco.mjtObj.mjOBJ_BODY, name1=_OBJECT_BODY,
+                          objtype=mujoco.mjtObj.mjOBJ_BODY, name1=_TIP_BODY,
                           name2=marten.CONTACT_FRAME, active=False,
                           solref=[2 * self.dt, 1.0], solimp=SOLIMP)
         self.model = m = spec.compile()
@@ -422,6 +430,9 @@ class MobileWorld:
                 m.body_mass[self.obj_id] = obj.mass
                 m.dof_damping[self.ov] = obj.damping
                 m.jnt_stiffness[self.oj] = obj.stiffness
+                # (the object body has a child, the handle: so MuJoCo 4.0 builds its inertia
+                # from body_mass at every step; a childless slide body is a "simple" body whose
+                # mass-matrix entry is fixed when the model is compiled, dof_M0)
                 f0 = obj.static_force + (obj.mass * STANDARD_GRAVITY * u[2]
                                          if self.gravity_on_object else 0.0)
                 d.eq_active[self.eq] = 1
@@ -563,7 +574,8 @@ class MobileWorld:
                         rec["xo"][row_now] = xo_now
                         rec["vo"][row_now] = vo_now
                         rec["ao"][row_now] = d.qacc[self.ov]
-                        rec["params"][row_now] = (obj.mass, obj.damping, obj.stiffness, f0)
+                        rec["params"][row_now] = (obj.mass + TIP_MASS, obj.damping,
+                                                  obj.stiffness, f0)
                     else:
                         rec["params"][row_now] = np.nan
                 k += 1
