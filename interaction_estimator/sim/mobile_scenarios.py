@@ -109,13 +109,15 @@ def truth_parameters(run: MobileRun) -> dict[str, float] | None:
                     (float(x) for x in rows[-1]), strict=True))
 
 
-def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap") -> None:
+def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap",
+                     wrench_frame: str | None = None) -> None:
     """The run as the robot records it: ``/joint_states`` (arm and wheel joints),
     ``/odometry`` (nav_msgs/Odometry, frame ``odom``, child the root link), ``/imu``
     (sensor_msgs/Imu in the IMU's frame, covariances from the sensor's noise),
     ``/robot_description``, and the ground truth (``/ground_truth/wrench`` in ``odom``,
     ``/ground_truth/parameters``, the bag's metadata). Log time = stamp + the sensor's latency;
-    messages written in log-time order."""
+    messages written in log-time order. ``wrench_frame``: the ground-truth wrench's frame_id
+    (default the odometry's frame; '' lets a replay that ignores the base compare with it)."""
     s = run.sensors
     params = truth_parameters(run)
     contact = run.time[run.attached]
@@ -137,7 +139,8 @@ def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap") ->
                     enc.encode(sec, nsec, "", names, run.position[k], run.velocity[k],
                                run.effort[k])))
         out.append((ns, "/ground_truth/wrench", WRENCH_STAMPED,
-                    encode_wrench_stamped(sec, nsec, run.world_frame, run.force[k], zero)))
+                    encode_wrench_stamped(sec, nsec, run.world_frame if wrench_frame is None
+                                          else wrench_frame, run.force[k], zero)))
     twist_cov = np.diag([s.twist_noise**2] * 3 + [s.yaw_rate_noise**2] * 3).ravel()
     pose_cov = np.diag([s.pose_drift**2] * 6).ravel()
     for row in run.odometry:

@@ -339,7 +339,8 @@ class MobileWorld:
     def _base_velocity(self) -> np.ndarray:
         """[v (3) of the root link's origin, w (3)] in the root link's frame."""
         out = np.zeros(6)
-        mujoco.mj_objectVelocity(self.model, self.data, mujoco.mjtObj.mjOBJ_BODY,
+        # XBODY: at the body's frame (BODY would be its centre of mass)
+        mujoco.mj_objectVelocity(self.model, self.data, mujoco.mjtObj.mjOBJ_XBODY,
                                  self.base_body, out, 1)
         return np.concatenate([out[3:], out[:3]])
 
