@@ -367,7 +367,7 @@ class RecordedBag:
                 j = i
                 while j < len(pending) and pending[j][0] == pending[i][0]:
                     j += 1
-                yield from _base_records(pending[i][0] == odometry,
+                yield from base_records(pending[i][0] == odometry,
                                          [p[1] for p in pending[i:j]],
                                          [p[2] for p in pending[i:j]])
                 i = j
@@ -487,9 +487,10 @@ class RecordedBag:
         self.close()
 
 
-def _base_records(odometry: bool, log_ns: list[int], raws: list[bytes]
+def base_records(odometry: bool, log_ns: list[int], raws: list[bytes]
                   ) -> Iterator[OdometryMessage | ImuMessage]:
-    """Odometry or IMU messages of one topic, decoded as a batch, as the core's records."""
+    """Odometry or IMU messages of one topic, decoded as a batch, as the core's records; a
+    zero stamp is replaced by the log (receive) time ``log_ns``. The node's reader too."""
     batch = decode_odometry_many(raws) if odometry else decode_imu_many(raws)
     times = np.where(batch.unstamped, np.asarray(log_ns, float) * 1e-9, batch.time)
     for k in range(len(raws)):

@@ -78,7 +78,8 @@ def main() -> int:
                 (d / f"{source}.yaml").write_text(
                     "/**:\n  ros__parameters:\n    base:\n      source: " + source + "\n")
                 r = evaluate(run, d / source)
-                print(f"{name:<12} {source:<9} {r['rmse']:9.2f} N {100 * r['rmse'] / r['peak']:6.1f}"
+                share = 100 * r["rmse"] / r["peak"]
+                print(f"{name:<12} {source:<9} {r['rmse']:9.2f} N {share:6.1f}"
                       + " ".join(f"{100 * x:7.1f}%" for x in r["rel"])
                       + f"  {'yes' if r['converged'] else 'no':>4}   peak {r['peak']:.1f} N, "
                       f"tilt {np.degrees(run.base_tilt.max()):.1f} deg, final "
