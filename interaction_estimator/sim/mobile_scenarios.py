@@ -110,7 +110,8 @@ def truth_parameters(run: MobileRun) -> dict[str, float] | None:
 
 
 def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap",
-                     wrench_frame: str | None = None) -> None:
+                     wrench_frame: str | None = None, odometry_topic: str = "/odometry",
+                     imu_topic: str = "/imu") -> None:
     """The run as the robot records it: ``/joint_states`` (arm and wheel joints),
     ``/odometry`` (nav_msgs/Odometry, frame ``odom``, child the root link), ``/imu``
     (sensor_msgs/Imu in the IMU's frame, covariances from the sensor's noise),
@@ -146,7 +147,7 @@ def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap",
     for row in run.odometry:
         sec, nsec = seconds_to_stamp(TIME_OFFSET + float(row[0]))
         ns = sec * 1_000_000_000 + nsec + int(s.odometry_latency * 1e9)
-        out.append((ns, "/odometry", ODOMETRY,
+        out.append((ns, odometry_topic, ODOMETRY,
                     encode_odometry(sec, nsec, run.world_frame, run.base_frame, row[1:4],
                                     row[4:8], row[8:11], row[11:14], pose_cov, twist_cov)))
     tilt = s.tilt_noise**2 + s.tilt_drift**2
@@ -156,7 +157,7 @@ def write_mobile_bag(path: str | Path, run: MobileRun, storage: str = "mcap",
     for row in run.imu:
         sec, nsec = seconds_to_stamp(TIME_OFFSET + float(row[0]))
         ns = sec * 1_000_000_000 + nsec + int(s.imu_latency * 1e9)
-        out.append((ns, "/imu", IMU, encode_imu(sec, nsec, run.imu_frame, row[1:5], row[5:8],
+        out.append((ns, imu_topic, IMU, encode_imu(sec, nsec, run.imu_frame, row[1:5], row[5:8],
                                                row[8:11], ocov, gcov, acov)))
     out.sort(key=lambda item: item[0])
     with BagWriter(path, storage) as w:
