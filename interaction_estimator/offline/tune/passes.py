@@ -6,6 +6,7 @@ from typing import Any
 
 import numpy as np
 
+from ...core.base import OdometryMessage
 from ...core.observer import KalmanMomentumObserver, MomentumObserver
 from ...core.pipeline import Pipeline
 from ...core.settings import Settings
@@ -132,8 +133,19 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
     """Feed a recording through a fresh Pipeline, recording the environment filter's inputs
     (and, when ``taps``, the observer's responses). Raises TuneError when no sample fits the
     URDF."""
-    pipe = Pipeline(settings, urdf)
-    nv = pipe.model.nv
+    pipe = Pipeline(settings, urdf, whole_recording=True)
+    if pipe.base is not None:   # base.source odometry: the recording's base messages first
+        if not rec.base_messages:
+            raise TuneError(f"{rec.name}: base.source is odometry but the recording has no "
+                            "odometry messages; expected nav_msgs/Odometry (--topics "
+                            "odometry=TOPIC)")
+        for msg in rec.base_messages:
+            if isinstance(msg, OdometryMessage):
+                pipe.add_odometry(msg)
+            else:
+                pipe.add_imu(msg)
+    base_nv = pipe.model.base_nv   # the measured joints' rows and columns follow the base's
+    nv = len(pipe.model.joint_names)
     obs_tap = (_ObserverTap(pipe.observer, nv, settings["friction.smoothing_velocity"])
                if taps else None)
     tape = FilterTape()
@@ -144,7 +156,8 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
         effort = None
         if obs_tap is not None:
             try:
-                _, obs_tap.velocity, effort = pipe.model.joint_map(sample.names).apply(sample)
+                _, velocity, effort = pipe.model.joint_map(sample.names).apply(sample)
+                obs_tap.velocity = velocity[base_nv:]
             except Exception:  # the Pipeline rejects and counts it below
                 effort = None
         rejected = pipe.rejects.total
@@ -162,7 +175,8 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
         restarted = pipe.observer.restarts != restarts
         restarts = pipe.observer.restarts
         if obs_tap is not None:
-            obs_tap.step(est.time, pipe.last_raw_residual(), pipe.last_mass_matrix())
+            obs_tap.step(est.time, pipe.last_raw_residual(),
+                         pipe.last_mass_matrix()[base_nv:, base_nv:])
         cols.add(est, restarted, obs_tap, effort)
     if cols.count == 0:
         raise TuneError(
