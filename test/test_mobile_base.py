@@ -430,3 +430,31 @@ def test_model_locks_base_branches_and_refuses_other_floating_joints():
     assert np.allclose(p, [-0.1, 0.05, 0.3]) and np.allclose(R @ R.T, np.eye(3))
     fixed = RobotModel(marten.rover_urdf(), marten.CONTACT_FRAME)
     assert fixed.joint_names == marten.ARM_JOINTS + marten.ROVER_WHEELS
+
+
+@pytest.mark.parametrize("rate, slow", [(10.0, True), (100.0, False)])
+def test_odometry_too_slow_for_the_motion_is_reported(rate, slow):
+    """A base whose velocity swings at 2 Hz (0.5 m/s): at 10 Hz linear interpolation misses
+    about T^2/8 |v''| = 0.25 m/s, far above the odometry's stated noise (0.01 m/s); at 100 Hz
+    it misses 0.0025 m/s. Reference: that closed form for a sine."""
+    urdf = marten.arm_urdf()
+    pipe = Pipeline(Settings({"base.source": "odometry", "base.imu": False,
+                              "base.max_age": 0.2}), urdf, whole_recording=True)
+    level = np.array([0.0, 0.0, 0.0, 1.0])
+    cov = np.zeros(36)
+    cov[0] = cov[7] = cov[14] = 0.01**2
+    w = 2 * math.pi * 2.0
+    for k in range(int(3 * rate)):
+        t = k / rate
+        pipe.add_odometry(OdometryMessage(t, "odom", "marten_base",
+                                          np.array([0.5 / w * -math.cos(w * t), 0, 0]), level,
+                                          np.array([0.5 * math.sin(w * t), 0, 0]), np.zeros(3),
+                                          twist_covariance=cov))
+    names = pipe.model.joint_names
+    zeros = np.zeros(len(names))
+    est = None
+    for k in range(2000, 2500):
+        est = pipe.process(Sample(k * 1e-3, names, zeros + 0.3, zeros, zeros + 1.0))
+    assert est is not None
+    assert ("odometry at 10 Hz too slow for the base's motion" in est.message) == slow
+    assert bool(est.record[0]["findings"] & 32) == slow
