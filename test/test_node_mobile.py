@@ -118,6 +118,7 @@ def test_node_with_odometry_and_imu_equals_the_pipeline(tmp_path):
         assert len(wrenches) == len(outputs)   # the last joint states wait for odometry
         for w, (t, numbers) in zip(wrenches, outputs, strict=True):
             assert w.header.frame_id == "odom"   # the world frame: the odometry's
+            assert (w.header.stamp.sec, w.header.stamp.nanosec) == seconds_to_stamp(t)
             f = w.wrench.force
             np.testing.assert_allclose([f.x, f.y, f.z], numbers[:3], rtol=0, atol=1e-9)
         statuses = [values(s) for s in peer.status.messages()]
