@@ -387,7 +387,7 @@ def test_three_channels_equal_batch_least_squares_of_stacked_rows():
     flt = EnvironmentFilter(Settings({**PLAIN, "filter.learn_noise": True,
                                       "filter.initial_std": DIFFUSE,
                                       "filter.nis_time": 1.0}), model)
-    for k, tk in enumerate(t):
+    for tk in t:
         H = np.column_stack([rng.normal(0, 1, 3), rng.normal(0, 0.3, 3),
                              rng.normal(0, 0.05, 3), np.ones(3)])
         f = H @ theta + rng.normal(0, 0.2, 3)

@@ -34,6 +34,8 @@ FINDING_LOW_RATE = 4     # the input rate is below health.min_rate
 FINDING_NO_STAMPS = 8    # stamps are zero: the receive time is used
 FINDING_NIS = 16         # the innovations are inconsistent (in contact only)
 FINDING_PATH = 32        # the contact path does not fit the mechanism asked for
+FINDING_ODOMETRY = 64    # a moving base's odometry stale, refused or too slow (base.py words it)
+FINDING_IMU = 128        # the same for its IMU
 
 PARAMS = record(
     "health parameters",

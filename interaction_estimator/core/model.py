@@ -6,6 +6,17 @@ The rigid-body terms of ``M(q) q'' + C(q, q') q' + g(q) = tau + tau_ext`` come f
 Jacobian in the world-aligned frame (``LOCAL_WORLD_ALIGNED``: linear rows are the contact point's
 velocity in world axes). Continuous joints take two configuration entries (cos, sin) in Pinocchio;
 JointState carries their angle, which :class:`JointMap` converts.
+
+Moving base (``floating_base=True``, the setting ``base.source: odometry``): the URDF's root link
+is the base, joined to the world by Pinocchio's free-flyer joint (``JointModelFreeFlyer``:
+configuration [x, y, z, qx, qy, qz, qw] of the root link in the world, velocity [v, w] of the
+root link in its own frame). Joints that hang off the base body and do not lead to the contact
+frame (wheels, casters, a ball drive, a second arm) are locked at their neutral position
+(``buildReducedModel``): no row of a joint on the way to the contact frame depends on them (in a
+kinematic tree M[i, j] is zero unless one joint is an ancestor of the other, and g and C^T v of
+a row depend only on the bodies the joint carries), so they need not be measured. The remaining
+joints are the measured joints (:attr:`RobotModel.joint_names`); their velocity coordinates are
+the last ``n`` of the model's ``nv``, after the base's six.
 """
 from __future__ import annotations
 
@@ -61,9 +72,10 @@ class JointMap:
             raise SampleRejected(
                 "unknown_joint",
                 f"joint state lacks model joints {missing}; it has {list(names)}")
-        self.source = np.array([index[j] for j in model.joint_names], dtype=int)  # (nv,)
-        self._identity = len(names) == model.nv and bool(
-            np.array_equal(self.source, np.arange(model.nv)))
+        n = len(model.joint_names)
+        self.source = np.array([index[j] for j in model.joint_names], dtype=int)  # (n,)
+        self._identity = len(names) == n and bool(np.array_equal(self.source, np.arange(n)))
+        self._base_nq, self._base_nv = model.base_nq, model.base_nv
         # q index -> the velocity index (joint) whose angle fills it; continuous joints' two
         # entries are then overwritten by (cos, sin)
         q_from = np.zeros(model.nq, dtype=int)
@@ -75,9 +87,13 @@ class JointMap:
                                   strict=True))
 
     def apply(self, sample: Sample) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Return (q (nq,), v (nv,), effort (nv,)) in model order: new, writeable, contiguous
+        """Return (q (nq,), v (nv,), effort (n,)) in model order: new, writeable, contiguous
         float arrays (the compiled step is compiled for exactly that kind of array; a read-only
-        view of a message buffer would make it compile again)."""
+        view of a message buffer would make it compile again). With a moving base the base's
+        entries (the first 7 of q, the first 6 of v) are left for the caller to fill (q's are
+        zero, v's zero)."""
+        if self._base_nv:
+            return self._apply_floating(sample.position, sample.velocity, sample.effort)
         if self._identity:  # names already in model order: no reordering
             angle = sample.position
             v = np.array(sample.velocity, dtype=float)
@@ -96,11 +112,32 @@ class JointMap:
         return q, v, e
 
 
+    def _apply_floating(self, position, velocity, effort):
+        """:meth:`apply` (or :meth:`apply_block`, on (k, n) arrays) with a moving base."""
+        src = self.source
+        lead = position.shape[:-1]
+        angle = position[..., src].astype(float)
+        q = np.zeros(lead + (len(self._q_from),))
+        q[..., self._base_nq:] = angle[..., self._q_from[self._base_nq:]]
+        for iq, iv in self._circles:
+            a = angle[..., iv]
+            if a.ndim:
+                q[:, iq] = [math.cos(x) for x in a.tolist()]
+                q[:, iq + 1] = [math.sin(x) for x in a.tolist()]
+            else:
+                q[iq] = math.cos(float(a))
+                q[iq + 1] = math.sin(float(a))
+        v = np.zeros(lead + (self._base_nv + len(src),))
+        v[..., self._base_nv:] = velocity[..., src]
+        return q, v, np.ascontiguousarray(effort[..., src], dtype=float)
+
     def apply_block(self, block) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """:meth:`apply` for every sample of a :class:`~.samples.SampleBlock`: (q (k, nq),
-        v (k, nv), effort (k, nv)), new C-contiguous float arrays whose rows are what
+        v (k, nv), effort (k, n)), new C-contiguous float arrays whose rows are what
         :meth:`apply` returns for each sample (continuous joints through math.cos/math.sin,
         as there)."""
+        if self._base_nv:
+            return self._apply_floating(block.position, block.velocity, block.effort)
         if self._identity:
             angle = block.position
             v = np.array(block.velocity, dtype=float, order="C")
@@ -119,48 +156,68 @@ class JointMap:
 
 
 class RobotModel:
-    """A robot built from URDF text, with a contact frame and gravity along -z of the root.
+    """A robot built from URDF text, with a contact frame and gravity along -z of the world.
 
-    joint_names: model joints in velocity order (nv of them). Raises ModelError for a URDF that
-    does not parse, a contact frame that does not exist, or an unsupported joint type.
+    joint_names: the measured joints in velocity order (n of them); nq, nv: the model's
+    configuration and velocity sizes (with a moving base, ``floating_base``, 7 and 6 more than
+    the joints', see the module docstring; base_nq, base_nv: those 7 and 6, else 0). Raises
+    ModelError for a URDF that does not parse, a contact frame that does not exist, or an
+    unsupported joint type.
     """
 
-    def __init__(self, urdf: str, contact_frame: str, gravity: float = STANDARD_GRAVITY):
+    def __init__(self, urdf: str, contact_frame: str, gravity: float = STANDARD_GRAVITY,
+                 floating_base: bool = False):
         if not isinstance(urdf, str) or "<robot" not in urdf:
             raise ModelError("robot description is not URDF text: no <robot> element found")
         if problems := inertial_problems(urdf):  # unreadable values would be read as 0
             raise ModelError("URDF has unusable inertial values: " + "; ".join(problems))
         try:
-            self.model = pin.buildModelFromXML(urdf)
+            if floating_base:
+                full = pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
+            else:
+                full = pin.buildModelFromXML(urdf)
         except Exception as exc:  # Pinocchio raises ValueError/RuntimeError with the parser text
             raise ModelError(f"URDF does not parse: {str(exc).strip()}") from None
-        self.model.gravity.linear = np.array([0.0, 0.0, -gravity])
-        self.data = self.model.createData()
-        if not self.model.existFrame(contact_frame):
-            frames = sorted({f.name for f in self.model.frames} - {"universe"})
+        if not full.existFrame(contact_frame):
+            frames = sorted({f.name for f in full.frames} - {"universe", "root_joint"})
             raise ModelError(f"contact frame {contact_frame!r} is not in the URDF; expected one of "
                              f"{frames}")
+        self.floating_base = bool(floating_base)
+        self.base_nq, self.base_nv = (7, 6) if floating_base else (0, 0)
+        self.locked_joints: tuple[str, ...] = ()
+        if floating_base:
+            locked = _base_branches(full, full.frames[full.getFrameId(contact_frame)].parentJoint)
+            self.locked_joints = tuple(full.names[j] for j in locked)
+            if locked:
+                full = pin.buildReducedModel(full, locked, pin.neutral(full))
+        self.model = full
+        self.model.gravity.linear = np.array([0.0, 0.0, -gravity])
+        self.data = self.model.createData()
         self.contact_frame = contact_frame
         self.frame_id = self.model.getFrameId(contact_frame)
-        self.root_frame = self.model.frames[1].name if len(self.model.frames) > 1 else "world"
+        # the root link: the first body frame (frames 0 and, with a free flyer, 1 are joints')
+        self.root_frame = next((f.name for f in self.model.frames
+                                if f.type == pin.FrameType.BODY), "world")
         self.nq, self.nv = self.model.nq, self.model.nv
 
         names, simple_q, simple_v, circle_q, circle_v = [], [], [], [], []
-        for jid in range(1, self.model.njoints):
+        first = 2 if floating_base else 1
+        for jid in range(first, self.model.njoints):
             joint = self.model.joints[jid]
             name = self.model.names[jid]
             kind = joint.shortname()
             if joint.nv != 1 or joint.nq not in (1, 2):
                 raise ModelError(f"joint {name!r} of type {kind} is not supported; expected "
                                  "revolute, continuous, prismatic or fixed joints (write a mobile "
-                                 "base as prismatic and continuous joints)")
+                                 "base as prismatic and continuous joints, or use base.source "
+                                 "odometry)")
             names.append(name)
             if joint.nq == 1:
                 simple_q.append(joint.idx_q)
-                simple_v.append(joint.idx_v)
+                simple_v.append(joint.idx_v - self.base_nv)
             else:
                 circle_q.append(joint.idx_q)
-                circle_v.append(joint.idx_v)
+                circle_v.append(joint.idx_v - self.base_nv)
         self.joint_names: tuple[str, ...] = tuple(names)
         self.continuous_joints = tuple(names[i] for i in circle_v)
         self._simple_q, self._simple_v = np.array(simple_q, int), np.array(simple_v, int)
@@ -169,6 +226,33 @@ class RobotModel:
         # Older Pinocchio releases fill only the upper triangle of M in crba: check once.
         probe = pin.crba(self.model, self.data, pin.neutral(self.model))
         self._symmetrize = self.nv > 1 and not np.allclose(probe, probe.T)
+
+    def base_placement(self, frame: str) -> tuple[np.ndarray, np.ndarray] | None:
+        """(R (3, 3), p (3,) m) of ``frame`` in the root link's frame when the frame is rigidly
+        attached to the base body (the root link, a link fixed to it, or a locked branch's
+        link); None otherwise, or without a moving base. An empty name is the root link."""
+        if not self.floating_base:
+            return None
+        if frame == "":
+            return np.eye(3), np.zeros(3)
+        if not self.model.existFrame(frame):
+            return None
+        f = self.model.frames[self.model.getFrameId(frame)]
+        if f.parentJoint != 1:
+            return None
+        return f.placement.rotation.copy(), f.placement.translation.copy()
+
+    def base_frames(self) -> list[str]:
+        """The frames rigidly attached to the base body (see :meth:`base_placement`)."""
+        if not self.floating_base:
+            return []
+        return [f.name for f in self.model.frames if f.parentJoint == 1
+                and f.type in (pin.FrameType.BODY, pin.FrameType.FIXED_JOINT)
+                and f.name != "root_joint"]
+
+    def has_link(self, name: str) -> bool:
+        """True when ``name`` is a frame (link or joint) of the model."""
+        return bool(self.model.existFrame(name))
 
     @classmethod
     def from_file(cls, path: str | Path, contact_frame: str,
@@ -190,8 +274,11 @@ class RobotModel:
         return m
 
     def configuration_from_angles(self, angles: np.ndarray) -> np.ndarray:
-        """Model configuration q (nq,) from one angle/position per joint (nv,), model order."""
-        q = np.empty(self.nq)
+        """Model configuration q (nq,) from one angle/position per joint (n,), model order
+        (a moving base at the world's origin, level)."""
+        q = np.zeros(self.nq)
+        if self.base_nq:
+            q[6] = 1.0
         q[self._simple_q] = angles[self._simple_v]
         q[self._circle_q] = np.cos(angles[self._circle_v])
         q[self._circle_q + 1] = np.sin(angles[self._circle_v])
@@ -228,3 +315,13 @@ class RobotModel:
         pose, mass, coriolis, gravity, jac = self.terms(q, v)
         # C^T v as v^T C: one product, no transposed view
         return Dynamics(mass, v.dot(coriolis), gravity, jac, pose[:3, 3], pose[:3, :3])
+
+
+def _base_branches(model: pin.Model, contact_joint: int) -> list[int]:
+    """Joint ids of the branches that hang off the base body (the free flyer, joint 1) and do
+    not carry the contact frame (whose parent joint is ``contact_joint``), subtrees included."""
+    out: list[int] = []
+    for jid in range(2, model.njoints):
+        if model.parents[jid] == 1 and contact_joint not in model.subtrees[jid]:
+            out.extend(int(j) for j in model.subtrees[jid])
+    return sorted(out)

@@ -25,11 +25,12 @@ from collections.abc import Callable
 import numpy as np
 
 from . import outputs, step, storage
+from .base import BASE_OK, REASONS as BASE_REASONS, BaseInput, ImuMessage, OdometryMessage
 from .compensation import BiasEstimator, FrictionModel
 from .contact import ContactMonitor
 from .direction import Direction
 from .environment import UPDATED, EnvironmentFilter, change_text
-from .health import Health
+from .health import FINDING_IMU, FINDING_ODOMETRY, Health
 from .kinematics import AlongKinematics
 from .model import RobotModel
 from . import mechanism
@@ -61,17 +62,33 @@ class Pipeline:
 
     Raises ModelError (bad URDF, unknown contact frame) or SettingsError (per-joint lists that do
     not fit the model) at construction.
+
+    With ``base.source: odometry`` the base's state comes from :meth:`add_odometry` and
+    :meth:`add_imu` (see :mod:`.base`): a recording's messages all given first
+    (``whole_recording=True`` keeps them all), then its joint states through :meth:`process` or
+    :meth:`process_block`; or, as they arrive (the node), joint states through :meth:`submit`,
+    which holds each until the base's messages around its stamp are there.
     """
 
-    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel | None = None):
+    def __init__(self, settings: Settings, urdf: str, object_model: ObjectModel | None = None,
+                 whole_recording: bool = False):
         self.settings = settings
-        self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"])
+        floating = settings["base.source"] == "odometry"
+        self.model = RobotModel(urdf, settings["contact_frame"], settings["gravity"],
+                                floating_base=floating)
         if object_model is None:
             object_model = model_named(settings["environment.model"])
         self.object_model = object_model
         self.validator = SampleValidator()
         self.rejects = RejectCounts()
-        nv, m = self.model.nv, object_model.size
+        self.base: BaseInput | None = None
+        if floating:
+            for reason in BASE_REASONS:
+                self.rejects.counts.setdefault(reason, 0)
+            self.base = BaseInput(self.model, settings["base.imu"], settings["base.max_age"],
+                                  settings["base.velocity_noise"], settings["base.rate_noise"],
+                                  self._reject, bounded=not whole_recording)
+        nv, m = len(self.model.joint_names), object_model.size
         self._mechanism_kind = (mechanism.KIND_REVOLUTE if object_model.code == MODEL_REVOLUTE
                                 else mechanism.KIND_PRISMATIC
                                 if object_model.code == MODEL_PRISMATIC
@@ -93,7 +110,11 @@ class Pipeline:
     # --- configuration ---------------------------------------------------------------------
     def _configure(self, s: Settings) -> None:
         joints = self.model.joint_names
-        nv = self.model.nv
+        nv = len(joints)
+        if self.base is not None:
+            self.base.max_age = s["base.max_age"]
+            self.base.velocity_noise = s["base.velocity_noise"]
+            self.base.rate_noise = s["base.rate_noise"]
         gain = np.array(per_joint(s, "observer.gain", joints))
         kalman = s["observer.form"] == "kalman"
         st = self._storage
@@ -270,6 +291,19 @@ class Pipeline:
             return False
         t = float(sample.time)
         stamp_from_receive = sample.stamp_from_receive
+        base = self.base
+        if base is not None:   # the base's state at t, or the sample is stale
+            if not math.isfinite(t):
+                self._invalid(sample)
+                return False
+            times = np.array([t])
+            Qb, Vb, codes, upper = base.states(times)
+            if codes[0] != BASE_OK:
+                self._reject(t, base.stale(t, int(codes[0])))
+                return False
+            q[:7] = Qb[0]
+            v[:6] = Vb[0]
+            self._pipe[0]["base_findings"] = base.findings(times, upper)[0]
         code = self._one(t, q, v, effort, stamp_from_receive)
         if code:
             self._refused(code, sample, t)
@@ -305,6 +339,7 @@ class Pipeline:
     def _words(self, recent_rejects: int) -> Callable[[Estimate], tuple[str, str]]:
         """The wording of an Estimate's verdict and event (made when first asked for)."""
         health, threshold = self._health, self.filter.change_threshold
+        base = self.base
 
         def words(e: Estimate) -> tuple[str, str]:
             o = e.record[0]
@@ -320,6 +355,8 @@ class Pipeline:
                 e.jacobian_condition, recent_rejects, e.rate_hz)
             if kind != mechanism.KIND_NONE and e.in_contact:
                 message = f"{message}; {mechanism_words(e)}"
+            if base is not None and int(o["findings"]) & (FINDING_ODOMETRY | FINDING_IMU):
+                message += "; " + base.describe(int(o["findings"]))
             return message, event_word
 
         kind, mechanism_words = self._mechanism_kind, self._mechanism_words
@@ -393,20 +430,46 @@ class Pipeline:
             return self._block_estimates(block, rows, parameter_rows, keep)
         T = np.ascontiguousarray(block.time, dtype=float)
         receive = np.ascontiguousarray(block.stamp_from_receive, dtype=np.bool_)
-        H, M, C, G, J = self.model.terms_block(Q, V)
-        i = 0
-        while i < k:
+        arrays = (T, Q, V, E, receive, rows, parameter_rows, keep)
+        if self.base is None:
+            self._rows(block, arrays, 0, k)
+        else:
+            self._rows_with_base(block, arrays)
+        if k:
+            self._forget_rejects(float(T[-1]))
+            last = np.flatnonzero(keep)
+            if len(last):
+                self._out[0] = rows[last[-1]]
+                self._out_params[:] = parameter_rows[last[-1]]
+        return self._block_estimates(block, rows, parameter_rows, keep)
+
+    def _rows(self, block: SampleBlock, arrays: tuple[np.ndarray, ...], lo: int,
+              hi: int) -> None:
+        """Samples lo..hi-1 of a block (arrays: T, Q, V, E, receive, rows, parameter_rows, keep
+        of the whole block) through the step: the Pinocchio calls for all of them, then one
+        compiled call over them, returning to Python only at a refusal, or one at a time while
+        the kinematics learns the nominal interval."""
+        T, Q, V, E, receive, rows, parameter_rows, keep = arrays
+        H, M, C, G, J = self.model.terms_block(Q[lo:hi], V[lo:hi])
+        if hi > lo:
+            self._last_mass = M[-1]
+        sub = (T[lo:hi], Q[lo:hi], V[lo:hi], E[lo:hi])
+        i = lo
+        while i < hi:
             if self.kinematics is None:   # learning the nominal interval: one at a time
                 t = float(T[i])
+                r = i - lo
                 code = self._one(t, Q[i], V[i], E[i], bool(receive[i]),
-                                 (H[i], M[i], C[i], G[i], J[i]))
+                                 (H[r], M[r], C[r], G[r], J[r]))
                 rows[i] = self._out[0]
                 parameter_rows[i] = self._out_params
             else:
                 times = np.array(self._reject_times) if self._reject_times else _NO_TIMES
-                i, code = self._run(self._storage, i, T, Q, V, E, M, C, G, J, H, receive,
-                                    times, rows, parameter_rows, self._out_joints)
-                if i == k:
+                r, code = self._run(self._storage, i - lo, *sub, M, C, G, J, H,
+                                    receive[lo:hi], times, rows[lo:hi], parameter_rows[lo:hi],
+                                    self._out_joints)
+                i = r + lo
+                if i == hi:
                     break
                 t = float(T[i])
                 self._forget_rejects(t)
@@ -415,14 +478,104 @@ class Pipeline:
                 self._out[0] = rows[i]   # the refused step's figures (filter row, codes)
                 self._refused(code, block.sample(i), t)
             i += 1
-        if k:
-            self._last_mass = M[-1]
-            self._forget_rejects(float(T[-1]))
-            last = np.flatnonzero(keep)
-            if len(last):
-                self._out[0] = rows[last[-1]]
-                self._out_params[:] = parameter_rows[last[-1]]
-        return self._block_estimates(block, rows, parameter_rows, keep)
+
+    def _rows_with_base(self, block: SampleBlock, arrays: tuple[np.ndarray, ...]) -> None:
+        """A block's samples with a moving base: the base's state at every stamp, then the
+        runs of samples that have one (and the same base findings) through :meth:`_rows`, the
+        stale ones rejected in between, in stamp order as the node does."""
+        base = self.base
+        assert base is not None
+        T, Q, V, E, receive, rows, parameter_rows, keep = arrays
+        k = len(T)
+        finite = np.isfinite(T)
+        times = np.where(finite, T, 0.0)
+        Qb, Vb, codes, upper = base.states(times)
+        Q[:, :7] = Qb
+        V[:, :6] = Vb
+        problems = {}
+        for i in np.flatnonzero((codes != BASE_OK) & finite):
+            problems[int(i)] = base.stale(float(T[i]), int(codes[i]))
+        findings = base.findings(times, upper)
+        usable = (codes == BASE_OK) & finite
+        i = 0
+        while i < k:
+            if not usable[i]:
+                keep[i] = False
+                if i in problems:
+                    self._reject(float(T[i]), problems[i])
+                else:
+                    self._invalid(block.sample(i))   # the validator names the bad stamp
+                i += 1
+                continue
+            j = i + 1
+            while j < k and usable[j] and findings[j] == findings[i]:
+                j += 1
+            self._pipe[0]["base_findings"] = findings[i]
+            self._rows(block, arrays, i, j)
+            i = j
+
+    # --- a moving base's inputs (base.source odometry) ---------------------------------------
+    @property
+    def world_frame(self) -> str:
+        """The frame of every position and force output: the URDF's root link, or with a
+        moving base the odometry's frame_id (empty until its first message)."""
+        return self.base.world_frame if self.base is not None else self.model.root_frame
+
+    def add_odometry(self, msg: OdometryMessage,
+                     on_done: Callable[[Sample], None] | None = None) -> int:
+        """One odometry message (refused and counted when unusable); then the held joint
+        states it makes decidable are processed (see :meth:`submit`). Returns how many."""
+        self._need_base().add_odometry(msg)
+        return self._release(on_done)
+
+    def add_imu(self, msg: ImuMessage, on_done: Callable[[Sample], None] | None = None) -> int:
+        """One IMU message; as :meth:`add_odometry`."""
+        self._need_base().add_imu(msg)
+        return self._release(on_done)
+
+    def submit(self, sample: Sample, on_done: Callable[[Sample], None] | None = None) -> int:
+        """One joint state as it arrives (the node). Without a moving base: :meth:`advance`.
+        With one: held until the base's messages around its stamp have arrived (or cannot come
+        in time), then advanced; ``on_done(sample)`` is called after each sample that was
+        processed, while :meth:`last_outputs` and :meth:`estimate` tell its results. Returns
+        the number of samples processed by this call."""
+        if self.base is None:
+            if self.advance(sample):
+                if on_done is not None:
+                    on_done(sample)
+                return 1
+            return 0
+        self.base.hold(sample)
+        return self._release(on_done)
+
+    def flush(self, on_done: Callable[[Sample], None] | None = None) -> int:
+        """The joint states still held (the end of a recording): processed or rejected."""
+        if self.base is None:
+            return 0
+        return self._advance_all(self.base.release_all(), on_done)
+
+    def held(self) -> int:
+        """Joint states held waiting for the base's messages."""
+        return len(self.base.queue) if self.base is not None else 0
+
+    def _release(self, on_done: Callable[[Sample], None] | None) -> int:
+        return self._advance_all(self.base.ready() if self.base is not None else [], on_done)
+
+    def _advance_all(self, samples: list[Sample],
+                     on_done: Callable[[Sample], None] | None) -> int:
+        done = 0
+        for sample in samples:
+            if self.advance(sample):
+                done += 1
+                if on_done is not None:
+                    on_done(sample)
+        return done
+
+    def _need_base(self) -> BaseInput:
+        if self.base is None:
+            raise ValueError("odometry and IMU messages are used only with base.source: "
+                             "odometry (the base is written as joints of the URDF now)")
+        return self.base
 
     def _block_estimates(self, block: SampleBlock, rows: np.ndarray,
                          parameter_rows: np.ndarray, keep: np.ndarray) -> EstimateBlock:

@@ -304,6 +304,27 @@ SPECS: tuple[ParamSpec, ...] = (
        "Input rate below which the status warns.", 0.0, 1e6),
     _f("health.stale_after", 0.5, "s",
        "Estimates older than this (no contact, no input) are STALE.", 0.0, 3600.0),
+    # --- moving base ----------------------------------------------------------------------
+    _s("base.source", "joints",
+       "Where a mobile base's motion comes from: 'joints' (the URDF writes the base as joints"
+       " carried in joint_states, or the robot is fixed) or 'odometry' (the URDF's root link is"
+       " the base, on a free-flyer joint: its pose and twist from the odometry input, roll,"
+       " pitch and angular rate from the imu input; world frame = the odometry's frame_id).",
+       choices=("joints", "odometry"), read_only=True),
+    _b("base.imu", True,
+       "With base.source odometry: roll, pitch and angular rate of the base from the imu input;"
+       " false: from the odometry alone.", read_only=True),
+    _f("base.max_age", 0.1, "s",
+       "With base.source odometry: the base state at a joint state's stamp is interpolated"
+       " between the odometry (and IMU) messages before and after it; a joint state with either"
+       " farther than this is rejected (stale_odometry, missing_imu).", 0.001, 10.0,
+       exclusive=False),
+    _f("base.velocity_noise", 0.01, "m/s",
+       "Noise of the odometry's linear velocity, used only to judge whether its rate suffices"
+       " for the base's motion when its twist covariance states none.", 0.0, 10.0),
+    _f("base.rate_noise", 0.005, "rad/s",
+       "Noise of the base's angular rate (IMU, or odometry without IMU), for the same check.",
+       0.0, 10.0),
     # --- node inputs and outputs (used by the node only) ------------------------------------
     _b("input.separate_efforts", False,
        "Take efforts from the joint_efforts topic, matched to joint_states by stamp.",
@@ -320,7 +341,8 @@ SPECS: tuple[ParamSpec, ...] = (
        "Rate of ~/status; 0: one per processed sample.", 0.0, 1e5),
     _f("output.diagnostics_rate", 1.0, "Hz", "Rate of /diagnostics.", 0.01, 100.0),
     _s("output.frame_id", "",
-       "frame_id of the published wrench; empty: the URDF root link (the world frame)."),
+       "frame_id of the published wrench; empty: the world frame (the URDF root link, or with"
+       " base.source odometry the odometry's frame_id)."),
 )
 
 SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in SPECS}

@@ -46,8 +46,11 @@ def validate(s, t, q, v, effort):
     for x in q:
         if not math.isfinite(x):
             return False
-    for j in range(v.shape[0]):
-        if not (math.isfinite(v[j]) and math.isfinite(effort[j])):
+    for x in v:
+        if not math.isfinite(x):
+            return False
+    for x in effort:
+        if not math.isfinite(x):
             return False
     s.has_valid = True
     s.last_valid_s = t
@@ -57,31 +60,48 @@ def validate(s, t, q, v, effort):
 @kernel
 def observe(st, t, v, effort, M, C, g):
     """Momentum observer on tau = effort - friction: p = M v, beta = tau + C^T v - g; the
-    residual with the bias removed in ``st.joints.residual``. Returns True on a restart."""
+    residual with the bias removed in ``st.joints.residual``. Returns True on a restart.
+
+    The observer runs on the rows of the measured joints: the last n = len(effort) of the nv
+    velocity coordinates. With a moving base (base.source odometry) the first nv - n are the
+    base's twist, a measured input. Row j of ``M v' + C v + g = tau + tau_ext`` with
+    ``M' = C + C^T`` (Pinocchio's C satisfies it) gives, for p_j = (M v)_j,
+
+        p_j' = (M v')_j + (M' v)_j = tau_j + tau_ext_j - (C v)_j - g_j + (C v)_j + (C^T v)_j
+             = tau_j + (C^T v)_j - g_j + tau_ext_j,
+
+    with v the whole velocity (base twist included) and no acceleration of any coordinate, the
+    base's included: the measured joints' momentum needs the base's twist and pose only. No
+    measured row depends on the forces that act on the base body alone (wheels, a ball,
+    the ground): they enter the base's rows, which are not used."""
     nv = v.shape[0]
+    n = effort.shape[0]
+    off = nv - n
     fp = st.params[0].friction
-    beta = np.empty(nv)
+    beta = np.empty(n)
     if fp.enabled:
-        compensation.friction_torque(beta, v, st.joints["friction"], fp.smoothing_velocity)
-        for j in range(nv):
+        compensation.friction_torque(beta, v[off:], st.joints["friction"],
+                                     fp.smoothing_velocity)
+        for j in range(n):
             beta[j] = effort[j] - beta[j]
     else:
-        for j in range(nv):
+        for j in range(n):
             beta[j] = effort[j]
-    momentum = np.empty(nv)
-    for j in range(nv):
+    momentum = np.empty(n)
+    for j in range(n):
+        row = off + j
         ctv = 0.0
         p = 0.0
         for i in range(nv):
-            ctv += v[i] * C[i, j]
-            p += M[j, i] * v[i]
-        beta[j] = beta[j] + ctv - g[j]
+            ctv += v[i] * C[i, row]
+            p += M[row, i] * v[i]
+        beta[j] = beta[j] + ctv - g[row]
         momentum[j] = p
     restarted = observer.observer_step(st.params[0].observer, st.state[0].observer,
                                        st.joints["observer_params"], st.joints["observer"], t,
-                                       momentum, beta, M)
+                                       momentum, beta, M[off:, :])
     joints = st.joints
-    for j in range(nv):
+    for j in range(n):
         joints[j].pipeline.residual = joints[j].observer.torque + joints[j].bias.value
     return restarted
 
@@ -445,6 +465,8 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
             (geometry == mechanism.GEOMETRY_STRAIGHT or geometry == mechanism.GEOMETRY_CURVED)
             and st.state[0].mechanism.travel_m >= 2.0 * mp.min_travel_m)):
         out.findings |= health.FINDING_PATH
+    if s.base_findings != 0:   # a moving base's inputs stale, refused or too slow (caller)
+        out.findings |= s.base_findings
         if out.level == health.OK:
             out.level = health.WARN
 
@@ -481,12 +503,15 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
 
     contact_joints = st.joints["contact"]
     contact.weights(st.state[0].contact, contact_joints)
-    residual = np.empty(v.shape[0])
-    for j in range(v.shape[0]):
+    n = effort.shape[0]
+    residual = np.empty(n)
+    for j in range(n):
         residual[j] = st.joints[j].pipeline.residual
     wp = st.params[0].wrench
     wrench6 = np.empty(6)
-    condition = wrench.wrench_solve(wp, wrench6, J, residual, contact_joints)
+    # the measured joints' columns: forces on a moving base's own body never enter
+    condition = wrench.wrench_solve(wp, wrench6, J[:, v.shape[0] - n:], residual,
+                                    contact_joints)
     check = wrench6[0] + wrench6[1] + wrench6[2]
     if wp.full_wrench:
         check += wrench6[3] * wrench6[3] + wrench6[4] * wrench6[4] + wrench6[5] * wrench6[5]
@@ -538,10 +563,11 @@ def _step_signature():
 @entry_kernel(_step_signature)
 def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
     """One sample through every stage (see the module docstring). st: :class:`~.storage.Storage`;
-    t: stamp, s; q (nq,) configuration, v, effort (nv,) in model order; M (nv, nv), C (nv, nv)
-    Coriolis matrix, g (nv,), J (6, nv) world-aligned contact Jacobian, H (4, 4) contact-frame
-    pose, all from Pinocchio; out (1,) outputs.SAMPLE, out_params (m,) outputs.PARAMETER and
-    out_joints (nv,) outputs.JOINT receive the sample's outputs.
+    t: stamp, s; q (nq,) configuration, v (nv,) velocity, effort (n,) of the measured joints
+    (the last n velocity coordinates; the first nv - n a moving base's twist), in model order;
+    M (nv, nv), C (nv, nv) Coriolis matrix, g (nv,), J (6, nv) world-aligned contact Jacobian,
+    H (4, 4) contact-frame pose, all from Pinocchio; out (1,) outputs.SAMPLE, out_params (m,)
+    outputs.PARAMETER and out_joints (n,) outputs.JOINT receive the sample's outputs.
 
     Returns STEP_DONE (outputs filled), STEP_INVALID_SAMPLE (a non-finite number or a stamp not
     after the last valid one: nothing changed; samples.SampleValidator says which),
@@ -569,7 +595,7 @@ def pipeline_run(st, start, T, Q, V, E, M, C, G, J, H, from_receive, reject_time
                  parameter_rows, out_joints):
     """:func:`pipeline_step` on samples ``start``, ``start`` + 1, ... of a block (row i of
     each array: sample i; ``rows[i]`` and ``parameter_rows[i]`` its outputs; from_receive (k,)
-    True where a stamp is the receive time; out_joints (nv,) the last sample's joint outputs),
+    True where a stamp is the receive time; out_joints (n,) the last sample's joint outputs),
     until the block ends or a step does not return STEP_DONE. reject_times: the stamps, s, of
     the samples rejected before ``start`` (ascending), from which each sample's count of rejects
     over the second before it is taken.

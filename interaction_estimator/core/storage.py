@@ -63,6 +63,8 @@ PIPELINE_STATE = record(
     ("stamp_from_receive", B1, "", "this sample's stamp is its receive time (caller)"),
     ("point_velocity", F8, (3,), "m/s", "velocity of the contact point, world frame"),
     ("quiet_point", F8, (3,), "m", "contact point where the residual was last quiet"),
+    ("base_findings", I8, "", "a moving base's inputs stale, refused or too slow: "
+     "base.FINDING_* bits (caller)"),
 )
 PIPELINE_JOINT = record(
     "pipeline, per joint",

@@ -73,6 +73,22 @@ def warm_up() -> float:
         rows = np.ones((20, len(names)))   # and a recording's block (Pipeline.process_block)
         pipe.process_block(SampleBlock(np.arange(60, 80) * 1e-3, names, rows * 0.3,
                                        rows * 0.6, rows * 30.0, np.zeros(20, bool)))
+    # a moving base (base.source odometry): the base's interpolation, one sample and a block
+    from .base import ImuMessage, OdometryMessage
+    pipe = Pipeline(Settings({"base.source": "odometry", "bias.startup": 0.01}), WARMUP_URDF,
+                    whole_recording=True)
+    names = pipe.model.joint_names
+    level = np.array([0.0, 0.0, 0.0, 1.0])
+    for k in range(0, 90, 5):
+        pipe.add_odometry(OdometryMessage(k * 1e-3, "odom", "", np.zeros(3), level,
+                                          np.zeros(3), np.zeros(3)))
+        pipe.add_imu(ImuMessage(k * 1e-3, "", level, np.zeros(3)))
+    zeros = np.zeros(len(names))
+    for k in range(30):
+        pipe.process(Sample(k * 1e-3, names, zeros + 0.3, zeros, zeros + 1.0))
+    rows = np.ones((20, len(names)))
+    pipe.process_block(SampleBlock(np.arange(30, 50) * 1e-3, names, rows * 0.3, rows * 0.1,
+                                   rows, np.zeros(20, bool)))
     n = 2
     observers = [KalmanMomentumObserver(np.full(n, 50.0), 0.003, 0.1, 1.0),
                  KalmanMomentumObserver(np.array([50.0, 60.0]), 0.003, 0.1, 1.0),

@@ -12,7 +12,10 @@ has them with a leading slash or under a namespace, and both are found):
 * ``reference`` (``ground_truth/wrench``, geometry_msgs/msg/WrenchStamped, optional): force the
   robot applies, world frame, N;
 * ``parameters`` (``ground_truth/parameters``, std_msgs/msg/String, optional): ground truth as
-  JSON (see :mod:`.ground_truth`).
+  JSON (see :mod:`.ground_truth`);
+* ``odometry`` (``odometry``, nav_msgs/msg/Odometry) and ``imu`` (``imu``, sensor_msgs/msg/Imu),
+  a moving base's inputs (``base.source: odometry``): when no topic of that name exists and the
+  bag holds exactly one topic of that type, that one is taken.
 
 Messages come from the ``rosbags`` reader (by log time, equal times in file order) in batches of
 :data:`BATCH` messages, about a storage chunk's worth. A batch of JointState messages with one
@@ -34,14 +37,21 @@ from typing import Any
 
 import numpy as np
 
+from ..core.base import ImuMessage, OdometryMessage
 from ..core.samples import Sample, SampleBlock
 from .cdr import (
+    IMU,
     JOINT_STATE,
+    ODOMETRY,
     STRING,
     WRENCH_STAMPED,
     JointStateDecoder,
+    decode_imu_many,
+    decode_odometry_many,
     decode_string,
     decode_wrench_stamped_many,
+    imu_fields,
+    odometry_fields,
     stamp_seconds,
 )
 from .effort_matching import EffortMatcher, efforts_in_order
@@ -53,7 +63,11 @@ ROLE_TYPES: dict[str, str] = {
     "robot_description": STRING,
     "reference": WRENCH_STAMPED,
     "parameters": STRING,
+    "odometry": ODOMETRY,
+    "imu": IMU,
 }
+# roles found by type when no topic has their name and exactly one topic has their type
+_BY_TYPE = ("odometry", "imu")
 
 _EFFORT_PROBE = 20  # joint states looked at to decide whether the bag carries efforts at all
 BATCH = 2000        # messages per batch read (a 1 MiB MCAP chunk holds ~2500 10-joint states)
@@ -70,6 +84,8 @@ class TopicNames:
     robot_description: str = "robot_description"
     reference: str = "ground_truth/wrench"
     parameters: str = "ground_truth/parameters"
+    odometry: str = "odometry"
+    imu: str = "imu"
 
     @classmethod
     def roles(cls) -> tuple[str, ...]:
@@ -108,6 +124,8 @@ class BagInfo:
     robot_description: str | None
     reference: str | None
     parameters: str | None
+    odometry: str | None = None
+    imu: str | None = None
 
 
 def _short(exc: BaseException) -> str:
@@ -182,6 +200,12 @@ class RecordedBag:
             if wanted is None:
                 return None
             found = _match_topic(wanted, topics)
+            if not found and role in _BY_TYPE:
+                found = [t for t, (ty, _) in topics.items() if ty == ROLE_TYPES[role]]
+                if len(found) > 1:
+                    raise BagError(f"{where}: no {role} topic {wanted!r}, and several "
+                                   f"{ROLE_TYPES[role]} topics: {sorted(found)}; name one with "
+                                   f"--topics {role}=TOPIC")
             if len(found) > 1:
                 raise BagError(f"{where}: several topics match {role} {wanted!r}: {found}; "
                                f"name one with --topics {role}=TOPIC")
@@ -213,7 +237,9 @@ class RecordedBag:
             joint_state_count=topics[states][1],
             joint_efforts=pick("joint_efforts", self.names.joint_efforts, False),
             robot_description=pick("robot_description", self.names.robot_description, False),
-            reference=ref, parameters=pick("parameters", self.names.parameters, False))
+            reference=ref, parameters=pick("parameters", self.names.parameters, False),
+            odometry=pick("odometry", self.names.odometry, False),
+            imu=pick("imu", self.names.imu, False))
         self._check_efforts()
 
     def _check_efforts(self) -> None:
@@ -314,6 +340,45 @@ class RecordedBag:
             values.append(w)
         w = np.concatenate(values)
         return ReferenceWrench(topic, frame, np.concatenate(times), w[:, :3], w[:, 3:])
+
+    def base_messages(self, imu: bool = True) -> Iterator[OdometryMessage | ImuMessage]:
+        """The odometry (and, with ``imu``, IMU) messages in recorded order, as the core's
+        message records (a zero stamp is replaced by the log time). Raises BagError when the
+        bag has no odometry topic, or no IMU topic while ``imu`` is asked for."""
+        odometry, imu_topic = self.info.odometry, self.info.imu if imu else None
+        where = f"bag {str(self.path)!r}"
+        if odometry is None:
+            raise BagError(f"{where} has no odometry topic {self.names.odometry!r} (nor exactly "
+                           f"one {ODOMETRY} topic); expected one for base.source: odometry "
+                           "(name it with --topics odometry=TOPIC)")
+        if imu and imu_topic is None:
+            raise BagError(f"{where} has no IMU topic {self.names.imu!r} (nor exactly one {IMU} "
+                           "topic); expected one for base.imu: true (name it with --topics "
+                           "imu=TOPIC, or set base.imu: false to take roll, pitch and rates "
+                           "from the odometry)")
+        topics = [odometry] + ([imu_topic] if imu_topic else [])
+        topic_of = {c.id: t for t in topics for c in self._connections[t]}
+        pending: list[tuple[str, int, bytes]] = []
+
+        def flush() -> Iterator[OdometryMessage | ImuMessage]:
+            # consecutive messages of one topic decoded as a batch, in recorded order
+            i = 0
+            while i < len(pending):
+                j = i
+                while j < len(pending) and pending[j][0] == pending[i][0]:
+                    j += 1
+                yield from base_records(pending[i][0] == odometry,
+                                         [p[1] for p in pending[i:j]],
+                                         [p[2] for p in pending[i:j]])
+                i = j
+            pending.clear()
+
+        for conn, log_ns, raw in self._messages(*topics):
+            pending.append((topic_of[conn.id], log_ns,
+                            raw if isinstance(raw, bytes) else bytes(raw)))
+            if len(pending) >= BATCH:
+                yield from flush()
+        yield from flush()
 
     def samples(self, stamp_tolerance: float = 0.0005, separate_efforts: bool | None = None,
                 model_joints: Iterable[str] | None = None) -> Iterator[Sample]:
@@ -420,3 +485,20 @@ class RecordedBag:
 
     def __exit__(self, *exc: Any) -> None:
         self.close()
+
+
+def base_records(odometry: bool, log_ns: list[int], raws: list[bytes]
+                  ) -> Iterator[OdometryMessage | ImuMessage]:
+    """Odometry or IMU messages of one topic, decoded as a batch, as the core's records; a
+    zero stamp is replaced by the log (receive) time ``log_ns``. The node's reader too."""
+    batch = decode_odometry_many(raws) if odometry else decode_imu_many(raws)
+    times = np.where(batch.unstamped, np.asarray(log_ns, float) * 1e-9, batch.time)
+    for k in range(len(raws)):
+        row = batch.values[k]
+        if odometry:
+            p, o, pc, lin, ang, tc = odometry_fields(row)
+            yield OdometryMessage(float(times[k]), batch.frame_id[k], batch.child_frame_id[k],
+                                  p, o, lin, ang, pc, tc)
+        else:
+            o, oc, w, wc, a, ac = imu_fields(row)
+            yield ImuMessage(float(times[k]), batch.frame_id[k], o, w, a, oc, wc, ac)

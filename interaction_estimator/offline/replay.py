@@ -33,6 +33,7 @@ from typing import Any, TextIO
 
 import numpy as np
 
+from ..core.base import OdometryMessage
 from ..core.model import ModelError
 from ..core.pipeline import Pipeline
 from ..core.samples import Sample
@@ -222,6 +223,28 @@ def load_urdf(urdf: Path | None, settings: Settings, bag: RecordedBag,
     return text, f"bag topic {bag.info.robot_description}"
 
 
+def load_base(pipeline: Pipeline, bag: RecordedBag, settings: Settings) -> str:
+    """With base.source odometry: every odometry (and IMU) message of the bag into the
+    pipeline, in recorded order (refused ones counted); returns where the base's state comes
+    from, in words ('joints' otherwise)."""
+    if pipeline.base is None:
+        return "joints"
+    use_imu = settings["base.imu"]
+    for msg in bag.base_messages(use_imu):
+        if isinstance(msg, OdometryMessage):
+            pipeline.add_odometry(msg)
+        else:
+            pipeline.add_imu(msg)
+    if pipeline.base.odometry.count == 0:
+        raise ReplayError(f"no usable odometry message on {bag.info.odometry!r} of bag "
+                          f"{str(bag.path)!r} (refused: {pipeline.rejects.last_message}); "
+                          "expected nav_msgs/Odometry of the robot's base")
+    where = f"odometry topic {bag.info.odometry}"
+    if use_imu:
+        where += f", imu topic {bag.info.imu} (roll, pitch, angular rate)"
+    return where
+
+
 def check_joint_names(pipeline: Pipeline, first: Sample, bag: RecordedBag) -> None:
     model = pipeline.model.joint_names
     missing = [j for j in model if j not in first.names]
@@ -274,7 +297,7 @@ class NodeOutputBag:
     :mod:`..io.cdr` (the bytes the node publishes; no ROS installation needed)."""
 
     def __init__(self, path: Path, settings: Settings, pipeline: Pipeline):
-        self.frame = settings["output.frame_id"] or pipeline.model.root_frame
+        self.frame = settings["output.frame_id"] or pipeline.world_frame
         rate = settings["output.status_rate"]
         self._status_period = 0.0 if rate == 0 else 1.0 / rate
         self._last_status = -math.inf
@@ -376,16 +399,18 @@ def replay(req: ReplayRequest) -> ReplayResult:
         truth = bag.truth()
         settings, sources = load_settings(req.params, truth, req.bag_settings)
         urdf, urdf_source = load_urdf(req.urdf, settings, bag, req.params)
-        pipeline = Pipeline(settings, urdf)
+        pipeline = Pipeline(settings, urdf, whole_recording=True)
         first = bag.samples()
         check_joint_names(pipeline, next(first), bag)
         first.close()
+        base_source = load_base(pipeline, bag, settings)
         ref = bag.reference()
-        if ref is not None and ref.frame_id not in ("", pipeline.model.root_frame):
+        if ref is not None and ref.frame_id not in ("", pipeline.world_frame):
             raise ReplayError(
                 f"reference topic {ref.topic!r} is in frame {ref.frame_id!r}; expected the "
-                f"world frame {pipeline.model.root_frame!r} (the URDF root) or an empty "
-                "frame_id, since the estimates are in the world frame")
+                f"world frame {pipeline.world_frame!r} (the URDF root, or the odometry's frame "
+                "with base.source odometry) or an empty frame_id, since the estimates are in "
+                "the world frame")
         out_bag = (NodeOutputBag(stage.path / OUTPUT_BAG_DIR, settings, pipeline)
                    if req.output_bag else None)
         show = sys.stderr.isatty() if req.progress is None else req.progress
@@ -419,6 +444,7 @@ def replay(req: ReplayRequest) -> ReplayResult:
             "urdf": urdf_source, "settings": sources,
             "settings_changed": _changed_settings(settings),
             "truth": ("bag ground truth" if truth is not None else None),
+            "world_frame": pipeline.world_frame, "base": base_source,
             "scenario": truth.extra.get("scenario") if truth is not None else None,
             "tool": "replay",
         }

@@ -8,6 +8,10 @@ remapping apply):
   and with ``input.separate_efforts`` also ``joint_efforts`` (efforts only, matched by stamp);
 - in ``robot_description`` (std_msgs/String, transient local) unless ``robot_description_file``
   names a URDF file;
+- with ``base.source: odometry`` also in ``odometry`` (nav_msgs/Odometry) and, with
+  ``base.imu``, ``imu`` (sensor_msgs/Imu): the base's state, interpolated at each joint state's
+  stamp (a joint state waits for the messages after it: at most one odometry interval); the
+  world frame of the outputs is then the odometry's frame_id;
 - out ``~/wrench`` (geometry_msgs/WrenchStamped: force N and torque N·m the robot applies to the
   environment, world frame = URDF root unless ``output.frame_id``), ``~/environment``
   (std_msgs/Float64MultiArray: mass kg, damping N·s/m, stiffness N/m, static force N, then their
@@ -41,7 +45,7 @@ import gc
 import math
 import sys
 import time
-from collections import deque
+from collections import OrderedDict, deque
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -52,6 +56,7 @@ import rclpy.utilities
 from builtin_interfaces.msg import Time as TimeMsg
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
+from nav_msgs.msg import Odometry
 from rcl_interfaces.msg import SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
@@ -59,7 +64,7 @@ from rclpy.node import Node
 from rclpy.parameter import Parameter
 from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy
 from rclpy.serialization import deserialize_message
-from sensor_msgs.msg import JointState
+from sensor_msgs.msg import Imu, JointState
 from std_msgs.msg import Float64MultiArray, String
 from std_srvs.srv import Trigger
 from visualization_msgs.msg import MarkerArray
@@ -79,6 +84,7 @@ from ..core.settings import (
     unknown_name_message,
 )
 from ..core.warmup import warm_up
+from ..io.bag import base_records
 from ..io.description_file import resolve as resolve_description
 from ..io.effort_matching import EffortMatcher
 from . import parameters as node_params
@@ -115,6 +121,8 @@ from .messages import (
 JOINT_STATES_TOPIC = "joint_states"
 JOINT_EFFORTS_TOPIC = "joint_efforts"
 ROBOT_DESCRIPTION_TOPIC = "robot_description"
+ODOMETRY_TOPIC = "odometry"   # base.source odometry: nav_msgs/Odometry
+IMU_TOPIC = "imu"             # and sensor_msgs/Imu (base.imu)
 WRENCH_TOPIC = "~/wrench"
 ENVIRONMENT_TOPIC = "~/environment"
 CARTESIAN_TOPIC = "~/environment_cartesian"
@@ -126,7 +134,8 @@ RESET_SERVICE = "~/reset"
 CALIBRATE_SERVICE = "~/calibrate_bias"
 # lifecycle states as the status reports them (the labels of lifecycle_msgs/State)
 UNCONFIGURED, INACTIVE, ACTIVE, FINALIZED = "unconfigured", "inactive", "active", "finalized"
-INPUT_TOPICS = (JOINT_STATES_TOPIC, JOINT_EFFORTS_TOPIC, ROBOT_DESCRIPTION_TOPIC)
+INPUT_TOPICS = (JOINT_STATES_TOPIC, JOINT_EFFORTS_TOPIC, ROBOT_DESCRIPTION_TOPIC,
+                ODOMETRY_TOPIC, IMU_TOPIC)
 OUTPUT_TOPICS = (WRENCH_TOPIC, ENVIRONMENT_TOPIC, STATUS_TOPIC, DIAGNOSTICS_TOPIC, MARKERS_TOPIC)
 # with environment.model cartesian, ~/environment_cartesian in place of ~/environment; with
 # revolute or prismatic, ~/mechanism beside it (at the status rate)
@@ -139,6 +148,7 @@ RATE_TOLERANCE = 0.2        # input rate "far" from input.expected_rate: off by 
 RECENT_S = 1.0              # s, window of "in the last second" counts
 EFFORT_BUFFER = 100         # joint states (and effort messages) held for stamp matching
 SPIN_TIMEOUT_S = 0.1        # s, executor wait per spin_once
+HELD_CAPACITY = 10000       # joint states' stamps kept while they wait for the base's messages
 
 
 class _Estimator:
@@ -194,6 +204,9 @@ class _Estimator:
         self._declare_errors: dict[str, str] = {}
         self._lifecycle = ACTIVE   # a plain node is always active; a managed one says
         self._configure_error = ""
+        # base.source odometry: joint states held for the base's messages, by stamp
+        self._held: OrderedDict[float, tuple] = OrderedDict()
+        self._odometry_sub = self._imu_sub = None
 
     def _create_status_outputs(self) -> None:
         """~/status and /diagnostics (published in every lifecycle state)."""
@@ -244,13 +257,23 @@ class _Estimator:
                                                         self._on_joint_state, input_qos)
             self._efforts_sub = self.create_subscription(JointState, JOINT_EFFORTS_TOPIC,
                                                          self._on_efforts, input_qos)
+        self._odometry_sub = self._imu_sub = None
+        if s["base.source"] == "odometry":   # the bytes received, read by io/cdr
+            self._odometry_sub = self.create_subscription(
+                Odometry, ODOMETRY_TOPIC, lambda raw: self._on_base_bytes(raw, True), input_qos,
+                raw=True)
+            if s["base.imu"]:
+                self._imu_sub = self.create_subscription(
+                    Imu, IMU_TOPIC, lambda raw: self._on_base_bytes(raw, False), input_qos,
+                    raw=True)
 
     def _destroy_inputs(self) -> None:
-        for sub in (self._states_sub, self._efforts_sub):
+        for sub in (self._states_sub, self._efforts_sub, self._odometry_sub, self._imu_sub):
             if sub is not None:
                 self.destroy_subscription(sub)
-        self._states_sub = self._efforts_sub = None
+        self._states_sub = self._efforts_sub = self._odometry_sub = self._imu_sub = None
         self._matcher.clear()
+        self._held.clear()
 
     def _create_model_input(self) -> None:
         """The robot_description subscription, unless robot_description_file names a file."""
@@ -423,6 +446,7 @@ class _Estimator:
         self._marker_builder = None
         self._clear_markers()
         self._matcher.clear()
+        self._held.clear()
         self._node_reject_times.clear()  # rejects without a model are not this model's findings
         self._last_restarts = 0
         self._last_processed = None
@@ -539,10 +563,55 @@ class _Estimator:
         decide now)."""
         pipeline = self.pipeline
         before = pipeline.rejects.total
+        if pipeline.base is not None:   # held until the base's messages around it are there
+            held = self._held
+            held[sample.time] = (sec, nanosec, receive, start, due)
+            while len(held) > HELD_CAPACITY:
+                held.popitem(last=False)
+            pipeline.submit(sample, self._after_base)
+            if pipeline.rejects.total > before:
+                self._note_pipeline_reject(pipeline)
+            return
         if not pipeline.advance(sample):
             if pipeline.rejects.total > before:
                 self._note_pipeline_reject(pipeline)
             return
+        self._outputs(sample, sec, nanosec, receive, start, due)
+
+    def _after_base(self, sample: Sample) -> None:
+        """A held joint state that the pipeline has just processed (base.source odometry)."""
+        held = self._held
+        while held:   # the ones before it were rejected (stale base), or are this one
+            t, entry = held.popitem(last=False)
+            if t == sample.time:
+                self._outputs(sample, *entry)
+                return
+        stamp = time_message(sample.time)
+        self._outputs(sample, stamp.sec, stamp.nanosec, math.nan, time.perf_counter(), None)
+
+    def _on_base_bytes(self, raw: bytes, odometry: bool) -> None:
+        """An Odometry or Imu message as the CDR bytes received (base.source odometry)."""
+        what = "odometry" if odometry else "IMU"
+        try:
+            pipeline = self.pipeline
+            if pipeline is None or pipeline.base is None:
+                return
+            receive_ns = int(self._now_s() * 1e9)
+            before = pipeline.rejects.total
+            for msg in base_records(odometry, [receive_ns], [raw]):
+                if odometry:
+                    pipeline.add_odometry(msg, self._after_base)
+                else:
+                    pipeline.add_imu(msg, self._after_base)
+            if pipeline.rejects.total > before:
+                self._note_pipeline_reject(pipeline)
+        except Exception as exc:
+            self._internal_error(exc, f"{what} message")
+
+    def _outputs(self, sample: Sample, sec: int, nanosec: int, receive: float, start: float,
+                 due: bool | None = None) -> None:
+        """The messages of a processed sample (and a status when due)."""
+        pipeline = self.pipeline
         if sample.stamp_from_receive:
             self._input_age = math.nan
         elif receive == receive:   # read (not NaN)
@@ -629,7 +698,7 @@ class _Estimator:
     # --- status ----------------------------------------------------------------------------
     def _frame_id(self) -> str:
         return self.settings["output.frame_id"] or (
-            self.pipeline.model.root_frame if self.pipeline is not None else "")
+            self.pipeline.world_frame if self.pipeline is not None else "")
 
     def _hardware_id(self) -> str:
         return self.pipeline.model.model.name if self.pipeline is not None else ""

@@ -6,6 +6,7 @@ from typing import Any
 
 import numpy as np
 
+from ...core.base import OdometryMessage
 from ...core.observer import KalmanMomentumObserver, MomentumObserver
 from ...core.pipeline import Pipeline
 from ...core.settings import Settings
@@ -95,18 +96,30 @@ class Trace:
 def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) -> Trace:
     """Feed a recording through a fresh Pipeline, recording its outputs per sample (and, when
     ``taps``, the observer's responses). Raises TuneError when no sample fits the URDF."""
-    pipe = Pipeline(settings, urdf)
-    nv = pipe.model.nv
+    pipe = Pipeline(settings, urdf, whole_recording=True)
+    if pipe.base is not None:   # base.source odometry: the recording's base messages first
+        if not rec.base_messages:
+            raise TuneError(f"{rec.name}: base.source is odometry but the recording has no "
+                            "odometry messages; expected nav_msgs/Odometry (--topics "
+                            "odometry=TOPIC)")
+        for msg in rec.base_messages:
+            if isinstance(msg, OdometryMessage):
+                pipe.add_odometry(msg)
+            else:
+                pipe.add_imu(msg)
+    base_nv = pipe.model.base_nv   # the measured joints' rows and columns follow the base's
+    nv = len(pipe.model.joint_names)
     obs_tap = (_ObserverTap(pipe.observer, nv, settings["friction.smoothing_velocity"])
                if taps else None)
     n = len(rec.samples)
-    cols = _TraceColumns(n, nv, taps)
+    cols = _TraceColumns(n, nv, taps, pipe.object_model.size)
     restarts = pipe.observer.restarts
     for sample in rec.samples:
         effort = None
         if obs_tap is not None:
             try:
-                _, obs_tap.velocity, effort = pipe.model.joint_map(sample.names).apply(sample)
+                _, velocity, effort = pipe.model.joint_map(sample.names).apply(sample)
+                obs_tap.velocity = velocity[base_nv:]
             except Exception:  # the Pipeline rejects and counts it below
                 effort = None
         rejected = pipe.rejects.total
@@ -119,7 +132,8 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
         restarted = pipe.observer.restarts != restarts
         restarts = pipe.observer.restarts
         if obs_tap is not None:
-            obs_tap.step(est.time, pipe.last_raw_residual(), pipe.last_mass_matrix())
+            obs_tap.step(est.time, pipe.last_raw_residual(),
+                         pipe.last_mass_matrix()[base_nv:, base_nv:])
         cols.add(est, restarted, obs_tap, effort)
     if cols.count == 0:
         raise TuneError(
@@ -132,15 +146,15 @@ def run_pass(rec: Recording, settings: Settings, urdf: str, taps: bool = False) 
 class _TraceColumns:
     """Pre-allocated per-sample arrays filled during a pass."""
 
-    def __init__(self, n: int, nv: int, taps: bool):
+    def __init__(self, n: int, nv: int, taps: bool, m: int):
         self.count = 0
         self.time = np.zeros(n)
         self.phase = np.zeros(n, np.int8)
         self.restarted = np.zeros(n, bool)
         self.force = np.zeros((n, 3))
         self.force_along = np.zeros(n)
-        self.parameters = np.zeros((n, 4))
-        self.parameter_std = np.zeros((n, 4))
+        self.parameters = np.zeros((n, m))
+        self.parameter_std = np.zeros((n, m))
         self.taps = taps
         if taps:
             self.raw = np.zeros((n, nv))

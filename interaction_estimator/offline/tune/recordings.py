@@ -34,7 +34,8 @@ class Recording:
     the recording (simulated bags carry them), dotted names. truth: ground-truth object parameters
     {mass kg, damping N·s/m, stiffness N/m, static_force N} or None (none known, or no object in
     the recording; report only).
-    reference: true force series or None (report only).
+    reference: true force series or None (report only). base_messages: the odometry and IMU
+    messages (core.base records) in recorded order, for base.source odometry (empty: none).
     """
 
     name: str
@@ -43,6 +44,7 @@ class Recording:
     recommended: dict[str, Any] = field(default_factory=dict)
     truth: dict[str, float] | None = None
     reference: Reference | None = None
+    base_messages: list = field(default_factory=list)   # Odometry/Imu records, recorded order
 
     @property
     def duration(self) -> float:
@@ -68,6 +70,7 @@ def read_bag(path: Path, topics: Sequence[str] = ()) -> Recording:
     from ...io.bag import RecordedBag, TopicNames
     with RecordedBag(path, TopicNames().with_overrides(list(topics))) as bag:
         samples = list(bag.samples())
+        base = list(bag.base_messages(bag.info.imu is not None)) if bag.info.odometry else []
         urdf = bag.urdf()
         truth = bag.truth()
         ref = bag.reference()
@@ -79,6 +82,6 @@ def read_bag(path: Path, topics: Sequence[str] = ()) -> Recording:
     if not samples:
         raise TuneError(f"bag {str(path)!r} holds no joint states; expected a recording of the "
                         "robot moving freely and then in contact")
-    return Recording(str(path), samples, urdf, dict(recommended), params, reference)
+    return Recording(str(path), samples, urdf, dict(recommended), params, reference, base)
 
 
