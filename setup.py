@@ -20,7 +20,9 @@ setup(
     zip_safe=True,
     maintainer="interaction_estimator maintainers",
     maintainer_email="engineering@interaction-estimator.invalid",
-    description="Sensorless interaction-force and object-parameter estimation for ROS 2 manipulators.",
+    description=(
+        "Sensorless interaction-force and object-parameter estimation for ROS 2 manipulators."
+    ),
     license="Apache-2.0",
     tests_require=["pytest"],
     # optional: replays of many bags on a Dask cluster (replay --cluster); not needed by the node

@@ -13,6 +13,10 @@ Arguments (all optional):
                      joint_efforts)
   robot_description  topic of the URDF, std_msgs/String, transient local (default:
                      robot_description)
+  odometry           topic of nav_msgs/Odometry of a moving base, used with base.source
+                     odometry (default: odometry)
+  imu                topic of sensor_msgs/Imu of a moving base, used with base.imu
+                     (default: imu)
   log_level          debug, info, warn, error (default: info)
   managed            true: the node is a managed (lifecycle) node that waits, unconfigured,
                      for a lifecycle manager's configure and activate (default: false)
@@ -47,6 +51,11 @@ def generate_launch_description():
                               description="Topic of separate efforts (input.separate_efforts)"),
         DeclareLaunchArgument("robot_description", default_value="robot_description",
                               description="URDF topic (std_msgs/String, transient local)"),
+        DeclareLaunchArgument("odometry", default_value="odometry",
+                              description="Odometry topic of a moving base (base.source "
+                                          "odometry)"),
+        DeclareLaunchArgument("imu", default_value="imu",
+                              description="IMU topic of a moving base (base.imu)"),
         DeclareLaunchArgument("log_level", default_value="info",
                               description="Logging level: debug, info, warn or error"),
         DeclareLaunchArgument("managed", default_value="false",
@@ -57,6 +66,8 @@ def generate_launch_description():
         ("joint_states", LaunchConfiguration("joint_states")),
         ("joint_efforts", LaunchConfiguration("joint_efforts")),
         ("robot_description", LaunchConfiguration("robot_description")),
+        ("odometry", LaunchConfiguration("odometry")),
+        ("imu", LaunchConfiguration("imu")),
     ]
     common = dict(
         package=PACKAGE,

@@ -13,6 +13,7 @@ import pytest
 from rosbags.typesys import Stores, get_typestore
 
 from interaction_estimator.core.base import ImuMessage, OdometryMessage, matrix_quaternion
+from interaction_estimator.core.health import FINDING_ODOMETRY
 from interaction_estimator.core.model import RobotModel
 from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample, SampleBlock
@@ -457,4 +458,4 @@ def test_odometry_too_slow_for_the_motion_is_reported(rate, slow):
         est = pipe.process(Sample(k * 1e-3, names, zeros + 0.3, zeros, zeros + 1.0))
     assert est is not None
     assert ("odometry at 10 Hz too slow for the base's motion" in est.message) == slow
-    assert bool(est.record[0]["findings"] & 32) == slow
+    assert bool(est.record[0]["findings"] & FINDING_ODOMETRY) == slow

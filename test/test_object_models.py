@@ -30,6 +30,7 @@ PLAIN = {
     "filter.nonnegative": False,
     "filter.change_threshold": 1e8,
     "filter.correlation_correction": False,
+    "filter.model_error": 0.0,
     "cartesian.initial_std": [1e5, 1e6, 1e7, 1e6],   # diffuse
 }
 PAIRS = ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2))

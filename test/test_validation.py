@@ -319,15 +319,18 @@ def test_subset_runs_and_covers_the_generator(subset):
 
 def test_subset_batch_fit_matches_the_rls_on_the_same_rows(subset):
     # without a change the naive RLS has seen exactly the episode's rows: it must end where the
-    # batch fit of those rows is (Ljung 1999, 11.2; numpy.linalg.lstsq)
+    # batch fit of those rows is (Ljung 1999, 11.2; numpy.linalg.lstsq). The rows are 0.1 s block
+    # means, so a short contact gives 25-50 of them, and the RLS's prior P_0 = 1e6 I (a ridge term)
+    # still pulls a weakly determined column by a few 1e-3 of its scale: compared where the batch
+    # fit itself is within 30 %, to 0.5 % + 2 % of its largest error (our tolerance, no source)
     checked = 0
     for r in subset:
         if r["spec"]["change"] != "none":
             continue
         ep = r["episodes"][0]
         b, q = np.array(ep["batch"]["error"]), np.array(ep["rls"]["error"])
-        if ep["batch"]["rows"] > 50 and np.all(np.isfinite(b)) and np.all(b < 10):
-            np.testing.assert_allclose(q, b, atol=1e-3 + 1e-3 * b.max())
+        if ep["batch"]["rows"] > 20 and np.all(np.isfinite(b)) and np.all(b < 0.3):
+            np.testing.assert_allclose(q, b, atol=5e-3 + 2e-2 * b.max())
             checked += 1
     assert checked >= 5
 

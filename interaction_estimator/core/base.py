@@ -330,7 +330,8 @@ class Track:
     def _judge_rate(self, t: float, rate: np.ndarray, noise: float) -> None:
         """The interpolation error T |a_k - a_(k-1)| / 8 of the newest interval, its RMS over
         the last second (see the module docstring)."""
-        self._rates = getattr(self, "_rates", deque(maxlen=3))
+        self._rates: deque[tuple[float, np.ndarray]] = getattr(self, "_rates",
+                                                              deque(maxlen=3))
         self._rates.append((t, np.array(rate, float)))
         if len(self._rates) == 3:
             (t0, v0), (t1, v1), (t2, v2) = self._rates

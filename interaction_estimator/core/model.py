@@ -72,9 +72,10 @@ class JointMap:
             raise SampleRejected(
                 "unknown_joint",
                 f"joint state lacks model joints {missing}; it has {list(names)}")
-        n = len(model.joint_names)
+        count = len(model.joint_names)
         self.source = np.array([index[j] for j in model.joint_names], dtype=int)  # (n,)
-        self._identity = len(names) == n and bool(np.array_equal(self.source, np.arange(n)))
+        self._identity = len(names) == count and bool(
+            np.array_equal(self.source, np.arange(count)))
         self._base_nq, self._base_nv = model.base_nq, model.base_nv
         # q index -> the velocity index (joint) whose angle fills it; continuous joints' two
         # entries are then overwritten by (cos, sin)

@@ -24,17 +24,16 @@ from collections.abc import Callable
 
 import numpy as np
 
-from . import outputs, step, storage
-from .base import BASE_OK, REASONS as BASE_REASONS, BaseInput, ImuMessage, OdometryMessage
+from . import mechanism, outputs, step, storage
+from .base import BASE_OK, BaseInput, ImuMessage, OdometryMessage
+from .base import REASONS as BASE_REASONS
 from .compensation import BiasEstimator, FrictionModel
 from .contact import ContactMonitor
 from .direction import Direction
 from .environment import UPDATED, EnvironmentFilter, change_text
 from .health import FINDING_IMU, FINDING_ODOMETRY, Health
-from .kinematics import AlongKinematics
+from .kinematics import SPATIAL_RING, AlongKinematics, spatial_placeholder, spatial_reset
 from .model import RobotModel
-from . import mechanism
-from .kinematics import SPATIAL_RING, spatial_placeholder, spatial_reset
 from .object_models import (
     MATCH_FIRST_ORDER,
     MATCH_KALMAN,
@@ -493,8 +492,8 @@ class Pipeline:
         Q[:, :7] = Qb
         V[:, :6] = Vb
         problems = {}
-        for i in np.flatnonzero((codes != BASE_OK) & finite):
-            problems[int(i)] = base.stale(float(T[i]), int(codes[i]))
+        for bad in np.flatnonzero((codes != BASE_OK) & finite).tolist():
+            problems[bad] = base.stale(float(T[bad]), int(codes[bad]))
         findings = base.findings(times, upper)
         usable = (codes == BASE_OK) & finite
         i = 0
