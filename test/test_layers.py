@@ -21,9 +21,7 @@ ROS_PACKAGE_SUFFIXES = ("_msgs", "_srvs", "_interfaces")
 
 # Known violations inside core/, left to the core rewrite (the lead removes each entry with the
 # fix; an entry that no longer occurs fails the test, so the list cannot go stale).
-KNOWN_CORE_VIOLATIONS = {
-    ("interaction_estimator.core.settings", "yaml"),
-}
+KNOWN_CORE_VIOLATIONS: set[tuple[str, str]] = set()
 # Known circles outside core/, left to their owner (remove the entry with the fix; a circle
 # that no longer exists fails the test): in the tune package, procedure imports entries and
 # entries imports procedure's records.

@@ -38,7 +38,7 @@ from ros_harness import (
 from sensor_msgs.msg import JointState
 
 from interaction_estimator.core.pipeline import Pipeline
-from interaction_estimator.core.settings import load_parameter_file
+from interaction_estimator.io.parameter_file import load_parameter_file
 from interaction_estimator.sim import marten
 
 PREFIX = "/interaction_estimator"

@@ -26,7 +26,7 @@ import pinocchio as pin
 import pytest
 from scipy import stats
 
-from interaction_estimator.core.settings import load_parameter_file
+from interaction_estimator.io.parameter_file import load_parameter_file
 from interaction_estimator.offline.validation import methods, scenarios, scoring, table
 from interaction_estimator.offline.validation.__main__ import parse_seeds
 from interaction_estimator.offline.validation.robots import ROBOT_NAMES, robots

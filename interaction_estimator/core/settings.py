@@ -3,8 +3,9 @@
 Every setting is declared once in :data:`SPECS` with its type, default, unit, allowed range and a
 description. The ROS node declares its parameters from this table (with descriptors and ranges),
 the replay and tuning commands read the same ROS 2 parameter YAML through
-:func:`load_parameter_file`, and :func:`validate_value` refuses a bad value with its name, the
-value and the allowed range, whoever supplies it.
+``io.parameter_file.load_parameter_file`` (files are the io layer's business), and
+:func:`validate_value` refuses a bad value with its name, the value and the allowed range,
+whoever supplies it.
 
 Settings are flat, dotted names (``observer.gain``), as ROS 2 parameters are. The YAML file nests
 them (``observer: {gain: [...]}``) under ``interaction_estimator:`` or ``/**:`` and then
@@ -16,10 +17,7 @@ import difflib
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
-
-import yaml
 
 NODE_NAME = "interaction_estimator"
 STANDARD_GRAVITY = 9.80665  # m/s^2, CGPM 1901 (3rd General Conference on Weights and Measures)
@@ -533,54 +531,6 @@ def nest(flat: Mapping[str, Any]) -> dict[str, Any]:
             node = node.setdefault(p, {})
         node[leaf] = value
     return tree
-
-
-def parameters_from_yaml(text: str, source: str = "<text>",
-                         node_name: str = NODE_NAME) -> dict[str, Any]:
-    """Read the node's parameters from ROS 2 parameter-file text; flat, not yet validated.
-
-    Accepts the sections ``/**``, ``<node_name>``, ``/<node_name>`` and ``/<ns>/<node_name>``,
-    each holding ``ros__parameters``; later sections override earlier ones, as in ROS 2.
-    """
-    try:
-        doc = yaml.safe_load(text)
-    except yaml.YAMLError as exc:
-        raise SettingsError(f"{source}: not valid YAML: {exc}") from None
-    if not isinstance(doc, Mapping):
-        raise SettingsError(f"{source}: expected a mapping with '{node_name}:' or '/**:' at the"
-                            f" top, found {type(doc).__name__}")
-    found: dict[str, Any] = {}
-    matched = False
-    for section, body in doc.items():
-        section = str(section)
-        if section not in ("/**", node_name) and section.rstrip("/").split("/")[-1] != node_name:
-            continue
-        if not isinstance(body, Mapping) or "ros__parameters" not in body:
-            raise SettingsError(f"{source}: section {section!r} has no 'ros__parameters:' mapping")
-        params = body["ros__parameters"] or {}
-        if not isinstance(params, Mapping):
-            raise SettingsError(f"{source}: {section}.ros__parameters must be a mapping")
-        found.update(flatten(params))
-        matched = True
-    if not matched:
-        raise SettingsError(f"{source}: no section for this node; expected a top-level"
-                            f" '{node_name}:' or '/**:' key, found {sorted(map(str, doc))}")
-    return found
-
-
-def load_parameter_file(path: str | Path, base: Settings | None = None) -> Settings:
-    """Load a ROS 2 parameter YAML into validated Settings (unknown keys are refused)."""
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise SettingsError(f"parameter file {str(path)!r} cannot be read: "
-                            f"{exc.strerror}") from None
-    flat = parameters_from_yaml(text, source=str(path))
-    try:
-        return (base or Settings()).replace(flat)
-    except SettingsError as exc:
-        raise SettingsError(f"{path}: {exc}") from None
 
 
 def per_joint(settings: Settings, name: str, model_joints: Iterable[str]) -> list[float]:

@@ -17,7 +17,7 @@ def evaluate_run(seed: int, cache_dir: str | Path | None = None, short: bool = F
     """Simulate (or load) the run of ``seed``, write its parameter file, feed the estimator,
     run the baselines, score every episode. Returns a JSON-able dict: the spec's summary,
     ``episodes`` (scoring.score_episodes), timings (s) and ``error`` (text) when it failed."""
-    from ...core.settings import load_parameter_file
+    from ...io.parameter_file import load_parameter_file
     out: dict = {"seed": int(seed)}
     try:
         t0 = time.perf_counter()
