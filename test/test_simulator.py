@@ -23,9 +23,9 @@ G0 = 9.80665  # m/s^2, standard gravity, CGPM 1901
 
 
 @functools.cache
-def clean_run(name: str) -> sim.SimulatedRun:
-    """Each scenario at its own duration, without measurement corruption (cached)."""
-    return sim.simulate(name, noise=False)
+def clean_run(name: str, rate: float = 1000.0) -> sim.SimulatedRun:
+    """Each scenario at its own duration, without measurement corruption (cached); rate, Hz."""
+    return sim.simulate(name, noise=False, rate=rate)
 
 
 @functools.cache
@@ -177,7 +177,10 @@ def test_door_handle_stays_on_its_circle_and_the_direction_is_its_tangent():
         p = pin.updateFramePlacement(model, data, fid).translation
         d = p[:2] - hinge[:2]
         # geometry of a circle: |d| = R, the tangent is perpendicular to the radius
-        assert np.hypot(*d) == pytest.approx(radius, abs=1e-6)
+        # held by Baumgarte stabilization (Baumgarte 1972), whose drift is bounded, not zero:
+        # 5.7e-6 m at the door's 0.3 m/s, the same at 1 and 2 kHz (measured); 10 um is our
+        # tolerance (no source), far below anything the estimator resolves
+        assert np.hypot(*d) == pytest.approx(radius, abs=1e-5)
         assert np.linalg.norm(direction[k]) == pytest.approx(1.0, abs=1e-12)
         assert direction[k][:2] @ d == pytest.approx(0.0, abs=1e-9)
         assert direction[k][2] == 0.0
@@ -189,7 +192,7 @@ def test_door_handle_stays_on_its_circle_and_the_direction_is_its_tangent():
 
 @pytest.mark.parametrize("name", ["door", "cart"])
 def test_work_energy_balance_of_the_object(name):
-    run = clean_run(name)
+    run = clean_run(name, 2000.0)
     t = run.truth
     c = run.in_contact
     time = run.time[c]
@@ -205,7 +208,8 @@ def test_work_energy_balance_of_the_object(name):
     # The force jumps at every control tick (the torque is held between ticks) and the samples
     # hold the value just after the jump, so the trapezoid rule carries an O(dt) error: seen
     # as about 9e-4 of the gross work at 1 kHz; it halves at 2 kHz and again at 4 kHz (checked
-    # by hand on 8 s runs), so it is the quadrature, not the physics.
+    # by hand on 8 s runs), so it is the quadrature, not the physics. The door worked at up to
+    # 0.3 m/s jumps more: 1.8e-3 at 1 kHz, 1.0e-3 at 2 kHz (measured), so the check runs at 2 kHz.
     assert abs(work - balance) < 1.5e-3 * gross
 
 

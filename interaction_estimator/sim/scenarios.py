@@ -220,11 +220,15 @@ def _door() -> ScenarioSpec:
         name="door",
         description="Marten pulls a spring-closed storeroom door open by its handle and works it"
                     " back and forth along the arc.",
-        duration=16.0, direction_kind="arc", direction=(-1.0, 0.0, 0.0),
+        duration=20.0, direction_kind="arc", direction=(-1.0, 0.0, 0.0),
         settings={"direction.mode": "estimated", "direction.vector": [-1.0, 0.0, 0.0]},
         free_time=2.0, contact_point=(0.90, -0.10, 0.95), start_offset=(-0.22, -0.12, 0.18),
-        travel=phys["handle_radius_m"] * phys["open_angle_rad"],
-        wiggles=(Wiggle(0.030, 0.45), Wiggle(0.008, 1.6)),
+        # the wiggles ride on the opening: the door's widest swing stays its open angle
+        travel=phys["handle_radius_m"] * phys["open_angle_rad"] - 0.06 - 0.010,
+        # the handle is worked at up to 0.3 m/s: slower working (0.085 m/s) leaves the door's
+        # damping force (0.3 N) under the force estimate's noise, and the demo would show a
+        # damping that never converges - the motion, not a threshold, decides what is learned
+        wiggles=(Wiggle(0.06, 0.8), Wiggle(0.010, 1.8)),
         hold=1.0, monotone=False, base_follows=False, feedforward=7.0, physical=phys, **arc)
 
 
