@@ -16,6 +16,7 @@ import pytest
 from interaction_estimator.core.settings import NODE_NAME, SPEC_BY_NAME
 from interaction_estimator.io.parameter_file import load_parameter_file
 from interaction_estimator.ros import node as estimator_node
+from interaction_estimator.ros.topics import INPUT_TOPICS
 
 REPO = Path(__file__).resolve().parents[1]
 LAUNCH = REPO / "launch" / "interaction_estimator.launch.py"
@@ -148,7 +149,7 @@ def test_remappings_name_node_topics_and_declared_arguments(launch_tree):
     sources = [ast.literal_eval(t.elts[0]) for t in remap.value.elts]
     # reference: the topic names the node subscribes to (its own constants, used over DDS in
     # test_node.py)
-    assert sorted(sources) == sorted(estimator_node.INPUT_TOPICS)
+    assert sorted(sources) == sorted(INPUT_TOPICS)
 
 
 def test_generate_launch_description_where_launch_ros_exists():

@@ -49,12 +49,15 @@ if "--source" in sys.argv[:-1]:
     sys.path.insert(0, sys.argv[sys.argv.index("--source") + 1])
 
 import rclpy  # noqa: E402
+import rclpy.executors  # noqa: E402
 from rclpy.parameter import Parameter  # noqa: E402
+from rclpy.qos import QoSProfile, ReliabilityPolicy  # noqa: E402
 from rclpy.serialization import deserialize_message, serialize_message  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
 
-from interaction_estimator import node as node_module  # noqa: E402
 from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
+from interaction_estimator.core.settings import NODE_NAME  # noqa: E402
+from interaction_estimator.ros import node as node_module  # noqa: E402
 from interaction_estimator.ros.messages import sample_from_joint_state  # noqa: E402
 from interaction_estimator.sim import marten  # noqa: E402
 
@@ -134,7 +137,7 @@ def listener_main() -> int:
     def on_message(raw: bytes) -> None:
         count[0] += 1
 
-    qos = node_module.QoSProfile(depth=100, reliability=node_module.ReliabilityPolicy.RELIABLE)
+    qos = QoSProfile(depth=100, reliability=ReliabilityPolicy.RELIABLE)
     for kind, topic in ((WrenchStamped, "wrench"), (Float64MultiArray, "environment"),
                         (DiagnosticStatus, "status")):
         node.create_subscription(kind, f"/interaction_estimator/{topic}", on_message, qos,
@@ -144,7 +147,7 @@ def listener_main() -> int:
     try:
         while rclpy.ok():
             executor.spin_once(timeout_sec=0.1)
-    except (KeyboardInterrupt, node_module.rclpy.executors.ExternalShutdownException):
+    except (KeyboardInterrupt, rclpy.executors.ExternalShutdownException):
         pass
     finally:
         print(f"  listener received {count[0]} messages", flush=True)
@@ -170,7 +173,7 @@ def main(argv: list[str] | None = None) -> int:
         listener = subprocess.Popen(command)
     rclpy.init()
     # a node per pass: their start-up lines would only clutter the figures
-    rclpy.logging.set_logger_level(node_module.NODE_NAME, rclpy.logging.LoggingSeverity.WARN)
+    rclpy.logging.set_logger_level(NODE_NAME, rclpy.logging.LoggingSeverity.WARN)
     msgs = messages(args.messages, args.rate)
     node = make_node(args.rate)
     if listener is not None:  # let discovery match the publishers with the listener
