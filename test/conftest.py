@@ -12,7 +12,7 @@ os.environ["ROS_DOMAIN_ID"] = str(10 + os.getpid() % 80)
 os.environ.setdefault("RMW_IMPLEMENTATION", "rmw_fastrtps_cpp")
 os.environ.pop("ROS_LOCALHOST_ONLY", None)  # deprecated variable; the range above replaces it
 
-# test-support modules (mujoco_world, ...) import as top-level modules
+# test-support modules (ros_harness, real_robots, ...) import as top-level modules
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 

@@ -1,6 +1,6 @@
 """End-to-end accuracy against MuJoCo, an independent physics engine (PyPI `mujoco`).
 
-The same URDF of our fictional Marten robot runs in MuJoCo (test/mujoco_world.py) under a
+The same URDF of our fictional Marten robot runs in MuJoCo (sim/mujoco_world/arm.py) under a
 controller of its own; the package sees only joint positions, velocities and efforts, and its
 force and object estimates are compared with MuJoCo's ground truth (constraint forces, applied
 forces, the simulated object's own parameters).
@@ -8,7 +8,6 @@ forces, the simulated object's own parameters).
 Measurement corruption, where applied (the levels the issues set): effort noise 0.1 N·m, velocity
 noise 0.003 rad/s, 18-bit encoders, a constant per-joint torque bias of up to 2 N·m.
 """
-import mujoco_world as mw
 import numpy as np
 import pytest
 
@@ -16,13 +15,19 @@ from interaction_estimator.core.pipeline import Pipeline
 from interaction_estimator.core.samples import Sample
 from interaction_estimator.core.settings import STANDARD_GRAVITY, Settings
 from interaction_estimator.sim import marten
+from interaction_estimator.sim.mujoco_world.arm import (
+    example_force,
+    run_applied_force,
+    run_attached_object,
+)
+from interaction_estimator.sim.mujoco_world.common import corrupt
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 ARM_BIAS = np.array([2.0, -1.5, 1.0, -2.0, 0.8, -0.6, 0.5])  # N·m, up to 2 N·m per joint
 
 
 def corrupted(run, bias, seed):
-    return mw.corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18, bias=bias,
+    return corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18, bias=bias,
                       seed=seed)
 
 
@@ -50,7 +55,7 @@ def applied_runs():
     """A known force (0.5 to 2 Hz, about 28 N peak) at the tool after 1 s of free motion."""
     runs = {}
     for name, path, n in (("arm", marten.ARM_URDF, 7), ("mobile", marten.MOBILE_URDF, 10)):
-        run = mw.run_applied_force(path, mw.example_force(free_time=1.0, peak=30.0),
+        run = run_applied_force(path, example_force(free_time=1.0, peak=30.0),
                                    duration=6.0, free_time=1.0)
         bias = np.random.default_rng(7).uniform(-2.0, 2.0, n)
         runs[name] = (run, corrupted(run, bias, seed=1))
@@ -77,7 +82,7 @@ def test_force_with_noise_and_bias_within_5_percent_and_bias_matters(applied_run
 
 
 def object_run(mass, damping, stiffness, static, direction, seed, duration=10.0, **kw):
-    run = mw.run_attached_object(marten.ARM_URDF, mass, damping, stiffness, static, direction,
+    run = run_attached_object(marten.ARM_URDF, mass, damping, stiffness, static, direction,
                                  duration=duration, free_time=1.5, **kw)
     noisy = corrupted(run, ARM_BIAS, seed)
     est = estimate(noisy, Settings({"direction.mode": "world",

@@ -5,7 +5,7 @@ exact model.
 
 Reference: MuJoCo (an independent physics engine) simulates the true robot: the commissioning
 motion (joint computed torque along the excitation command's trajectory) and a task (a known
-force at the flange, mujoco_world.run_applied_force); its applied force is the ground truth.
+force at the flange, mujoco_world.arm.run_applied_force); its applied force is the ground truth.
 Robots: our Marten and two real robots' published URDFs from PyPI example-robot-data (UR5,
 xArm7). Sensors: effort noise 0.1 N·m, velocity noise 0.003 rad/s, 18-bit encoders, a constant
 bias per joint of up to 1.5 N·m (the levels of the package's other accuracy tests).
@@ -19,7 +19,6 @@ from __future__ import annotations
 import json
 
 import identification_world as W
-import mujoco_world as mw
 import numpy as np
 import pytest
 import real_robots
@@ -43,6 +42,7 @@ from interaction_estimator.offline.excitation import optimize, resolve
 from interaction_estimator.offline.identification import Tool
 from interaction_estimator.offline.tune.model import ModelRequest
 from interaction_estimator.sim import marten
+from interaction_estimator.sim.mujoco_world.arm import example_force, run_applied_force
 
 ROBOTS = {  # URDF, flange (tool mount and contact frame), task start posture (rad)
     "marten": (marten.arm_urdf(), "tool_tip", None),
@@ -86,7 +86,7 @@ class Case:
                                                    run["effort"], self.bias, 1))
         self.tasks = []
         for seed in (1, 2):
-            r = mw.run_applied_force(self.truth, mw.example_force(free_time=1.5, peak=30.0),
+            r = run_applied_force(self.truth, example_force(free_time=1.5, peak=30.0),
                                      duration=7.0, free_time=1.5, seed=seed, q0=q0,
                                      contact_frame=self.flange)
             assert tuple(r.joint_names) == self.names

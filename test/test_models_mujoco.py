@@ -1,5 +1,5 @@
 """The object models beyond one direction (environment.model cartesian, revolute, prismatic)
-against MuJoCo, an independent physics engine (PyPI `mujoco`; test/mujoco_world.py).
+against MuJoCo, an independent physics engine (PyPI `mujoco`; sim/mujoco_world/mechanisms.py).
 
 Our fictional Marten arm holds, through MuJoCo's own equality constraint, (a) an object on three
 orthogonal slide joints with their own springs and dampers, turned away from the world axes; (b)
@@ -12,7 +12,6 @@ inertia from MuJoCo's mass matrix. Bounds: issue 19's.
 """
 import math
 
-import mujoco_world as mw
 import numpy as np
 import pytest
 
@@ -21,12 +20,20 @@ from interaction_estimator.core.samples import Sample
 from interaction_estimator.core.settings import Settings
 from interaction_estimator.io.estimates import principal
 from interaction_estimator.sim import marten
+from interaction_estimator.sim.mujoco_world.arm import run_attached_object
+from interaction_estimator.sim.mujoco_world.common import _smoothstep, corrupt
+from interaction_estimator.sim.mujoco_world.mechanisms import (
+    rotation_matrix,
+    run_attached_fixture,
+    run_hinged_door,
+)
+from interaction_estimator.sim.mujoco_world.schedule import MultiSine, Push, Window
 
 ARM_BIAS = np.array([2.0, -1.5, 1.0, -2.0, 0.8, -0.6, 0.5])  # N·m, up to 2 N·m per joint
 
 
 def estimates(run, settings, seed=3):
-    noisy = mw.corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18,
+    noisy = corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18,
                        bias=ARM_BIAS, seed=seed)
     pipe = Pipeline(Settings(settings), noisy.urdf)
     out = []
@@ -55,8 +62,8 @@ def matrix(e, prefix):
 
 @pytest.fixture(scope="module")
 def fixture_run():
-    rotation = mw.rotation_matrix((1.0, 2.0, 0.5), math.radians(40.0))
-    run = mw.run_attached_fixture(marten.ARM_URDF, (0.8, 0.6, 1.0), (15.0, 30.0, 50.0),
+    rotation = rotation_matrix((1.0, 2.0, 0.5), math.radians(40.0))
+    run = run_attached_fixture(marten.ARM_URDF, (0.8, 0.6, 1.0), (15.0, 30.0, 50.0),
                                   (250.0, 600.0, 1200.0), (2.0, -3.0, 1.5), rotation,
                                   duration=12.0)
     return run, estimates(run, {"environment.model": "cartesian"})
@@ -94,8 +101,8 @@ def test_cartesian_unexplored_direction_is_never_converged():
     # x-y plane: the arm's own dynamics still move it ~4.5 mm along z (against ~6 cm along x),
     # so the zz entries are barely explored: they must never converge (issue 19). (With no
     # motion at all along z they are not even excited: test_object_models.py.)
-    rotation = mw.rotation_matrix((0.0, 0.0, 1.0), math.radians(40.0))  # z stays an axis
-    run = mw.run_attached_fixture(marten.ARM_URDF, (0.8, 0.6, 1.0), (15.0, 30.0, 50.0),
+    rotation = rotation_matrix((0.0, 0.0, 1.0), math.radians(40.0))  # z stays an axis
+    run = run_attached_fixture(marten.ARM_URDF, (0.8, 0.6, 1.0), (15.0, 30.0, 50.0),
                                   (250.0, 600.0, 1200.0), (2.0, -3.0, 1.5), rotation,
                                   amplitudes=((0.025, 0.008), (0.022, 0.007), (0.0, 0.0)),
                                   duration=8.0)
@@ -112,12 +119,12 @@ def test_cartesian_unexplored_direction_is_never_converged():
 def _opening(open_angle, amplitudes, frequencies, hold=0.3, ramp=6.0):
     """Door angle (rad) against time since the grasp: a slow opening by ``open_angle`` plus
     swings a (1 - cos w t) >= 0 faded in (a door at its closed stop opens first)."""
-    window = mw.Window(hold, 0.8, 1e9, fade_out=False)
+    window = Window(hold, 0.8, 1e9, fade_out=False)
     a = np.asarray(amplitudes)
     w = 2 * np.pi * np.asarray(frequencies)
 
     def angle(tau):
-        s, sd, sdd = mw._smoothstep((tau - hold) / ramp)
+        s, sd, sdd = _smoothstep((tau - hold) / ramp)
         e, ed, edd = window(tau)
         x = float(np.sum(a * (1 - np.cos(w * tau))))
         xd = float(np.sum(a * w * np.sin(w * tau)))
@@ -130,8 +137,8 @@ def _opening(open_angle, amplitudes, frequencies, hold=0.3, ramp=6.0):
 
 @pytest.fixture(scope="module")
 def door_run():
-    axis = mw.rotation_matrix((1.0, 0.0, 0.0), math.radians(4.0)) @ np.array([0.0, 0.0, 1.0])
-    run = mw.run_hinged_door(marten.ARM_URDF, axis, (-1.0, 0.3, 0.0), 0.45, 3.0, 0.06,
+    axis = rotation_matrix((1.0, 0.0, 0.0), math.radians(4.0)) @ np.array([0.0, 0.0, 1.0])
+    run = run_hinged_door(marten.ARM_URDF, axis, (-1.0, 0.3, 0.0), 0.45, 3.0, 0.06,
                              damping=0.8, stiffness=3.0, closing_torque=1.5,
                              angle=_opening(0.6, (0.07, 0.02), (0.55, 1.4)), duration=12.0)
     return run, estimates(run, {"environment.model": "revolute"})
@@ -176,14 +183,14 @@ def test_prismatic_axis_after_5_cm_and_parameters():
     # and the parameters along it as along_direction's bounds (10 %; static force 5 %).
     direction = np.array([0.55, -0.7, 0.45])
     direction /= np.linalg.norm(direction)
-    push = mw.Push(0.012, hold=0.3, ramp=0.6, duration=9.0, fade_out=False)
-    wiggle = mw.MultiSine((0.02, 0.008), (0.6, 1.7), (0.0, 0.0), hold=0.3, ramp=1.0,
+    push = Push(0.012, hold=0.3, ramp=0.6, duration=9.0, fade_out=False)
+    wiggle = MultiSine((0.02, 0.008), (0.6, 1.7), (0.0, 0.0), hold=0.3, ramp=1.0,
                           duration=9.0, fade_out=False)
 
     def path(tau):
         return push(tau)[0] + wiggle(tau)[0]
 
-    run = mw.run_attached_object(marten.ARM_URDF, 1.5, 12.0, 60.0, 4.0, direction,
+    run = run_attached_object(marten.ARM_URDF, 1.5, 12.0, 60.0, 4.0, direction,
                                  path_fn=path, duration=10.0, free_time=1.0)
     est = estimates(run, {"environment.model": "prismatic"})
     travel = np.array([e.travel for e in est])

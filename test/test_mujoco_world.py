@@ -1,4 +1,5 @@
-"""Checks of the MuJoCo ground-truth harness (test/mujoco_world.py) against independent facts.
+"""Checks of the MuJoCo ground-truth harness (interaction_estimator/sim/mujoco_world/) against
+independent facts.
 
 References used here:
 * Pinocchio (``pin``), a second, independent rigid-body engine: crba (mass matrix), rnea
@@ -12,7 +13,6 @@ References used here:
 """
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import mujoco
@@ -21,8 +21,18 @@ import pinocchio as pin
 import pytest
 from scipy import stats
 
-sys.path.insert(0, str(Path(__file__).resolve().parent))
-import mujoco_world as mw  # noqa: E402
+from interaction_estimator.sim.mujoco_world.arm import (
+    example_force,
+    run_applied_force,
+    run_attached_object,
+)
+from interaction_estimator.sim.mujoco_world.common import (
+    GroundTruthRun,
+    _make_spec,
+    _Robot,
+    corrupt,
+    read_urdf,
+)
 
 ROBOTS = Path(__file__).resolve().parents[1] / "interaction_estimator" / "sim" / "robots"
 ARM = ROBOTS / "marten_arm.urdf"
@@ -96,7 +106,7 @@ def mujoco_site_jacobian(model, data, site, names, position):
     return jacp[:, [model.jnt_dofadr[j] for j in jid]]
 
 
-def newton_euler_residual(run: mw.GroundTruthRun, pr: PinRobot, stride: int = 1):
+def newton_euler_residual(run: GroundTruthRun, pr: PinRobot, stride: int = 1):
     """M(q_k) a_k + c(q_k, v_k) + g(q_k) - effort_k - tau_ext_k with a_k from forward differences
     of the recorded velocities (Pinocchio rnea); worst absolute value and the effort scale."""
     a = np.diff(run.velocity, axis=0) / run.dt
@@ -113,8 +123,8 @@ def newton_euler_residual(run: mw.GroundTruthRun, pr: PinRobot, stride: int = 1)
 
 @pytest.mark.parametrize("urdf", [ARM, MOBILE], ids=["arm", "mobile"])
 def test_mass_matrix_and_bias_forces_match_pinocchio(urdf):
-    text = mw.read_urdf(urdf)
-    robot = mw._Robot(mw._make_spec(text, 1e-3, "tool_tip"), text)  # the harness's own model
+    text = read_urdf(urdf)
+    robot = _Robot(_make_spec(text, 1e-3, "tool_tip"), text)  # the harness's own model
     pr = PinRobot(text, robot.joint_names)
     assert robot.model.opt.gravity[2] == -G0 and robot.n == len(pr.vidx)
     rng = np.random.default_rng(7)
@@ -145,8 +155,8 @@ def test_mass_matrix_and_bias_forces_match_pinocchio(urdf):
 
 @pytest.fixture(scope="module", params=[ARM, MOBILE], ids=["arm", "mobile"])
 def applied(request):
-    force = mw.example_force(free_time=1.0, peak=30.0)
-    run = mw.run_applied_force(request.param, force, duration=3.0, free_time=1.0)
+    force = example_force(free_time=1.0, peak=30.0)
+    run = run_applied_force(request.param, force, duration=3.0, free_time=1.0)
     return run, force
 
 
@@ -203,7 +213,7 @@ def test_applied_force_positions_integrate_velocities(applied):
 # 3. Attached objects
 # ---------------------------------------------------------------------------------------------
 
-def object_balance_error(run: mw.GroundTruthRun):
+def object_balance_error(run: GroundTruthRun):
     """|true_force . u - (m x'' + d x' + k x + f0)| on the contact samples, with x'' the forward
     difference of the object's own slide velocity (Newton's second law for the object)."""
     T = run.truth
@@ -218,7 +228,7 @@ def object_balance_error(run: mw.GroundTruthRun):
 
 @pytest.fixture(scope="module")
 def lifted():
-    return mw.run_attached_object(ARM, mass=2.0, damping=0.0, stiffness=0.0, static_force=0.0,
+    return run_attached_object(ARM, mass=2.0, damping=0.0, stiffness=0.0, static_force=0.0,
                                   direction=[0, 0, 1], duration=3.5, free_time=1.0,
                                   gravity_on_object=True)
 
@@ -278,7 +288,7 @@ def test_lifted_payload_robot_side(lifted):
                direction=[1.0, 0.0, 0.0], free_time=0.0)),
 ], ids=["arm-oblique", "mobile-lateral", "arm-attached-from-start"])
 def test_spring_damper_object_is_recovered_by_least_squares(urdf, params):
-    run = mw.run_attached_object(urdf, duration=4.0, **params)
+    run = run_attached_object(urdf, duration=4.0, **params)
     err, scale = object_balance_error(run)
     assert err < 1e-9 * max(1.0, scale)
     # batch least squares (numpy.linalg.lstsq) of f = [x'', x', x, 1] theta on the object's
@@ -308,7 +318,7 @@ def test_corrupt_statistics_and_copy(applied):
     run, _ = applied
     n = len(run.joint_names)
     bias = np.linspace(-0.5, 0.5, n)
-    noisy = mw.corrupt(run, effort_noise=0.2, velocity_noise=0.01, encoder_bits=16, bias=bias,
+    noisy = corrupt(run, effort_noise=0.2, velocity_noise=0.01, encoder_bits=16, bias=bias,
                        seed=3)
     assert noisy.effort is not run.effort and run.corruption == {}
     np.testing.assert_array_equal(noisy.true_force, run.true_force)
@@ -328,6 +338,6 @@ def test_corrupt_statistics_and_copy(applied):
     np.testing.assert_allclose(qn, np.round(qn), atol=1e-6)  # multiples of the encoder step
     assert np.abs(noisy.position[:, ang] - run.position[:, ang]).max() <= step / 2 + 1e-12
     np.testing.assert_array_equal(noisy.position[:, ~ang], run.position[:, ~ang])
-    again = mw.corrupt(run, effort_noise=0.2, velocity_noise=0.01, encoder_bits=16, bias=bias,
+    again = corrupt(run, effort_noise=0.2, velocity_noise=0.01, encoder_bits=16, bias=bias,
                        seed=3)
     np.testing.assert_array_equal(again.effort, noisy.effort)  # seeded

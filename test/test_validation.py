@@ -31,7 +31,13 @@ from interaction_estimator.offline.validation import methods, scenarios, scoring
 from interaction_estimator.offline.validation.__main__ import parse_seeds
 from interaction_estimator.offline.validation.robots import ROBOT_NAMES, robots
 from interaction_estimator.offline.validation.runner import evaluate_runs
-from interaction_estimator.sim import mujoco_world as mw
+from interaction_estimator.sim.mujoco_world.object_world import ObjectWorld
+from interaction_estimator.sim.mujoco_world.schedule import (
+    ContactPhase,
+    FreePhase,
+    MultiSine,
+    ObjectParams,
+)
 
 G0 = 9.80665  # m/s^2, standard gravity (CGPM 1901)
 SUBSET = range(0, 35)  # 35 seeds: 7 per robot
@@ -219,7 +225,7 @@ def test_real_robots_in_mujoco_have_pinocchios_dynamics(name):
     # links welded to the base repaired) against Pinocchio on the published URDF as it is.
     entry = robots()[name]
     text = entry.urdf_text()
-    world = mw.ObjectWorld(text, entry.contact_frame, (1.0, 0.0, 0.0), q0=entry.q0)
+    world = ObjectWorld(text, entry.contact_frame, (1.0, 0.0, 0.0), q0=entry.q0)
     r = world.robot
     model = pin.buildModelFromXML(text)
     model.gravity.linear = np.array([0.0, 0.0, -G0])
@@ -258,18 +264,18 @@ def test_object_world_bookkeeping_with_a_mimic_joint_and_a_change():
     # and the attachment's own constraint torque is J_p^T (-F) (virtual work).
     entry = robots()["panda"]
     u = np.array([0.2, -0.5, 0.84])
-    world = mw.ObjectWorld(
+    world = ObjectWorld(
         entry.urdf_path, entry.contact_frame, u, q0=entry.q0, gravity_on_object=True
     )
-    motion = mw.MultiSine([0.015, 0.01], [0.6, 1.5], [0.0, 1.0], 0.3, 0.4, 3.0)
+    motion = MultiSine([0.015, 0.01], [0.6, 1.5], [0.0, 1.0], 0.3, 0.4, 3.0)
     phases = [
-        mw.FreePhase(0.8, seed=1),
-        mw.ContactPhase(
+        FreePhase(0.8, seed=1),
+        ContactPhase(
             3.0,
             motion,
             (
-                (0.0, mw.ObjectParams(1.2, 8.0, 250.0, 4.0)),
-                (1.5, mw.ObjectParams(2.0, 0.0, 600.0, -6.0)),
+                (0.0, ObjectParams(1.2, 8.0, 250.0, 4.0)),
+                (1.5, ObjectParams(2.0, 0.0, 600.0, -6.0)),
             ),
         ),
     ]

@@ -30,7 +30,7 @@ from ..io.cdr import (
 )
 from ..io.ground_truth import TRUTH_METADATA_KEY, GroundTruth
 from .mobile_world import Contact, Free, MobileRun, MobileScenario, MobileWorld
-from .mujoco_world import MultiSine, ObjectParams
+from .mujoco_world.schedule import MultiSine, ObjectParams
 
 TIME_OFFSET = 1.0   # s added to simulation time in the stamps (a zero stamp means "unset")
 

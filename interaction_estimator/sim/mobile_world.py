@@ -3,7 +3,7 @@ their base's motion as real mobile robots do (odometry and an IMU), with ground 
 
 The independent ground truth of the moving-base checks (``base.source: odometry``). MuJoCo is
 the physics engine; from ``interaction_estimator`` only the URDF generators of our robots
-(:mod:`.marten`) and this module's sibling :mod:`.mujoco_world` (URDF preparation, the object's
+(:mod:`.marten`) and the sibling package :mod:`.mujoco_world` (URDF preparation, the object's
 motions and parameters) are used; the estimator is not. MuJoCo is a test and validation
 dependency, not a runtime one.
 
@@ -24,9 +24,10 @@ The worlds (sim dt 1 ms for the rover, 0.5 ms for the orb):
 
 In both, an object (a point mass on a slide along u fixed in the world, MuJoCo's own spring and
 damper, a constant resisting force, its weight when lifted) is attached to the contact frame by
-a near-rigid ``connect`` equality, as in :class:`.mujoco_world.ObjectWorld`; the arm follows the
-object's motion along u by resolved-acceleration control with the whole floating-base Jacobian
-(the base's acceleration of the previous step as feed-forward), and the base moves meanwhile.
+a near-rigid ``connect`` equality, as in :class:`.mujoco_world.object_world.ObjectWorld`; the
+arm follows the object's motion along u by resolved-acceleration control with the whole
+floating-base Jacobian (the base's acceleration of the previous step as feed-forward), and the
+base moves meanwhile.
 Ground truth: the force the robot applies (the equality's own constraint force), the object's
 state and parameters, and the base's true pose and twist.
 
@@ -48,17 +49,16 @@ import numpy as np
 import scipy.linalg
 
 from . import marten
-from .mujoco_world import (
+from .mujoco_world.common import (
     _COMPILER_TAG,
     _EQUALITY,
     _OBJECT_BODY,
     _OBJECT_JOINT,
     SOLIMP,
     STANDARD_GRAVITY,
-    Motion,
-    ObjectParams,
     physics_urdf,
 )
+from .mujoco_world.schedule import Motion, ObjectParams
 
 # s: the base's acceleration of the last steps, low-passed, is the arm controller's feed-forward
 # (unfiltered, the contacts' step-to-step jitter fed back through the arm made it unstable)

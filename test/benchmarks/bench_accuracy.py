@@ -13,12 +13,12 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-import mujoco_world as mw  # noqa: E402
 
 from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
 from interaction_estimator.core.samples import Sample  # noqa: E402
 from interaction_estimator.core.settings import Settings  # noqa: E402
 from interaction_estimator.sim import marten  # noqa: E402
+from interaction_estimator.sim.mujoco_world import arm, common  # noqa: E402
 
 PARAMS = ("mass", "damping", "stiffness", "static_force")
 
@@ -31,7 +31,7 @@ def run_pipeline(run, settings):
 
 def corrupt(run, n, seed):
     bias = np.random.default_rng(7).uniform(-2.0, 2.0, n)
-    return mw.corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18, bias=bias,
+    return common.corrupt(run, effort_noise=0.1, velocity_noise=0.003, encoder_bits=18, bias=bias,
                       seed=seed)
 
 
@@ -40,7 +40,7 @@ def main() -> None:
           "contact")
     print(f"  {'robot':8s} {'clean':>8s} {'noisy':>8s} {'no bias comp.':>14s}")
     for name, path, n in (("arm", marten.ARM_URDF, 7), ("mobile", marten.MOBILE_URDF, 10)):
-        run = mw.run_applied_force(path, mw.example_force(free_time=1.0, peak=30.0),
+        run = arm.run_applied_force(path, arm.example_force(free_time=1.0, peak=30.0),
                                    duration=6.0, free_time=1.0)
         noisy = corrupt(run, n, 1)
         peak = np.linalg.norm(run.true_force, axis=1).max()
@@ -59,7 +59,7 @@ def main() -> None:
              ("lifted 2 kg, +z", (2.0, 0.0, 0.0, 0.0), (0, 0, 1), {"gravity_on_object": True}),
              ("cart-like 4 kg, y", (4.0, 24.0, 0.0, 7.845), (0, 1, 0), {}))
     for label, (m, d, k, f0), u, kw in cases:
-        run = mw.run_attached_object(marten.ARM_URDF, m, d, k, f0, u, duration=10.0,
+        run = arm.run_attached_object(marten.ARM_URDF, m, d, k, f0, u, duration=10.0,
                                      free_time=1.5, **kw)
         noisy = corrupt(run, 7, 3)
         est = run_pipeline(noisy, Settings({"direction.vector": list(u)}))

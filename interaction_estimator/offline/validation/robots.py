@@ -81,7 +81,7 @@ TORQUE_SENSOR_ARM = SensorSheet(
 
 # Efforts from motor currents (UR5 CB-series, TIAGo): several tenths of a N·m of noise, offsets
 # of up to a few N·m. Common practice, no source. (Motor friction is not simulated: the
-# validation's efforts are link-side, see sim/mujoco_world.physics_urdf.)
+# validation's efforts are link-side, see sim/mujoco_world/common.physics_urdf.)
 CURRENT_BASED = SensorSheet(
     effort_noise=(0.1, 0.5), velocity_noise=(0.001, 0.006), encoder_bits=17, bias_max=2.0,
     source="common practice, no source (efforts from motor currents)")

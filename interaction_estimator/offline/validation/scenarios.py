@@ -108,7 +108,7 @@ def _loguniform(rng, lo, hi):
 
 def draw_object(rng, lifted: bool):
     """An object from the issue's ranges; exact zeros in about a third of the draws."""
-    from ...sim.mujoco_world import ObjectParams
+    from ...sim.mujoco_world.schedule import ObjectParams
 
     mass = _loguniform(rng, 0.3, 5.0 if lifted else 30.0)
     damping = 0.0 if rng.random() < ZERO_SHARE else _loguniform(rng, 1.0, 100.0)
@@ -135,7 +135,7 @@ def _changed_enough(old, new) -> bool:
 
 def draw_motion(rng, kind: str, duration: float):
     """A motion of ``kind`` lasting ``duration`` s (starts and ends at rest)."""
-    from ...sim import mujoco_world as mw
+    from ...sim.mujoco_world.schedule import Hold, MultiSine, Push, Steps
 
     hold = rng.uniform(0.3, 1.0)
     ramp = 0.5
@@ -146,11 +146,11 @@ def draw_motion(rng, kind: str, duration: float):
             freqs = np.exp(rng.uniform(math.log(0.3), math.log(2.0), 1))
         weights = rng.uniform(0.5, 1.0, k)
         amps = rng.uniform(0.01, 0.05) * weights / weights.sum()
-        return mw.MultiSine(amps, freqs, rng.uniform(0, 2 * np.pi, k), hold, ramp, duration)
+        return MultiSine(amps, freqs, rng.uniform(0, 2 * np.pi, k), hold, ramp, duration)
     if kind == "push":
         speed = rng.uniform(0.01, 0.05) * rng.choice([-1.0, 1.0])
         speed = math.copysign(min(abs(speed), 0.15 / duration), speed)  # <= 15 cm of travel
-        return mw.Push(speed, hold, ramp, duration)
+        return Push(speed, hold, ramp, duration)
     if kind == "steps":
         # out to +/- 2-6 cm, back to 0, out to the other side, ...; each move a quintic of
         # 0.4-1 s, at rest 0.5-2 s in between
@@ -167,9 +167,9 @@ def draw_motion(rng, kind: str, duration: float):
             moves.append(target - level)
             times.append((t, dur))
             level, t = target, t + dur + rest
-        return mw.Steps(moves, times, duration)
+        return Steps(moves, times, duration)
     if kind == "hold":
-        return mw.Hold(duration)
+        return Hold(duration)
     raise ValueError(f"unknown motion kind {kind!r}; expected one of {MOTIONS}")
 
 
@@ -181,7 +181,7 @@ def _force_peak(motion, obj, static_total: float) -> float:
 def make_spec(seed: int, short: bool = False) -> RunSpec:
     """The run a seed names (without simulating it). ``short``: the same draws with every
     contact SHORT_FACTOR as long (for the test suite's subset)."""
-    from ...sim import mujoco_world as mw
+    from ...sim.mujoco_world.schedule import ContactPhase, FreePhase
 
     rng = np.random.default_rng([VALIDATION_STREAM, int(seed)])
     robot = ROBOT_NAMES[int(seed) % len(ROBOT_NAMES)]
@@ -198,7 +198,7 @@ def make_spec(seed: int, short: bool = False) -> RunSpec:
             q0[name] = q0[name] + rng.uniform(-0.15, 0.15)
     free0 = rng.uniform(1.5, 2.5)
     obj1 = draw_object(rng, lifted)
-    phases: list = [mw.FreePhase(free0, seed=int(rng.integers(1 << 30)))]
+    phases: list = [FreePhase(free0, seed=int(rng.integers(1 << 30)))]
     objects = [(free0, obj1)]
     k = SHORT_FACTOR if short else 1.0
     if change == "none":
@@ -218,9 +218,9 @@ def make_spec(seed: int, short: bool = False) -> RunSpec:
         objects.append((free0 + T1 + SWAP_FREE_TIME, obj2))
     for i, (T, objs) in enumerate(contacts):
         if i:
-            phases.append(mw.FreePhase(SWAP_FREE_TIME, seed=int(rng.integers(1 << 30))))
+            phases.append(FreePhase(SWAP_FREE_TIME, seed=int(rng.integers(1 << 30))))
         phases.append(
-            mw.ContactPhase(T, draw_motion(rng, motion_kind, T), tuple((t, o) for t, o in objs))
+            ContactPhase(T, draw_motion(rng, motion_kind, T), tuple((t, o) for t, o in objs))
         )
     n = movable_joint_count(entry.urdf_text())
     sheet = entry.sensors
@@ -264,18 +264,18 @@ def build_phases(spec: RunSpec, world) -> list:
     """The spec's phases for ``world``, each contact's motion scaled down (never the object)
     where the object's peak force (sum of the peaks of its terms) would exceed the force the
     robot's URDF effort limits allow along u at its posture (ObjectWorld.force_budget)."""
-    from ...sim import mujoco_world as mw
+    from ...sim.mujoco_world.schedule import ContactPhase
 
     budget = world.force_budget()
     out = []
     for ph in spec.phases:
-        if isinstance(ph, mw.ContactPhase):
+        if isinstance(ph, ContactPhase):
             objs = [o for _, o in ph.objects]
             peak = max(_force_peak(ph.motion, o, world.static_total(o)) for o in objs)
             static = max(abs(world.static_total(o)) for o in objs)
             if peak > budget and peak > static:
                 room = max(budget - static, 0.25 * budget)
-                ph = mw.ContactPhase(
+                ph = ContactPhase(
                     ph.duration, ph.motion.scaled(min(1.0, room / (peak - static))), ph.objects
                 )
         out.append(ph)
@@ -325,8 +325,9 @@ def _sources_digest() -> str:
     from . import robots as robots_module
 
     h = hashlib.sha256()
-    for mod in (mujoco_world, robots_module):
-        h.update(Path(mod.__file__).read_bytes())
+    world = sorted(Path(mujoco_world.__file__).parent.glob("*.py"))   # the world's modules
+    for path in (*world, Path(robots_module.__file__)):
+        h.update(path.read_bytes())
     h.update(Path(__file__).read_bytes())
     h.update(mujoco.__version__.encode())
     return h.hexdigest()[:12]
@@ -343,7 +344,8 @@ def default_cache_dir() -> Path:
 def simulate(spec: RunSpec, cache_dir: Path | None = None):
     """The clean ScheduledRun of ``spec``, from the cache when there (keyed by seed and the
     sources' digest), else simulated and stored."""
-    from ...sim.mujoco_world import ObjectWorld, ScheduledRun
+    from ...sim.mujoco_world.object_world import ObjectWorld
+    from ...sim.mujoco_world.schedule import ScheduledRun
 
     path = None
     if cache_dir is not None:
