@@ -57,6 +57,7 @@ from sensor_msgs.msg import JointState  # noqa: E402
 
 from interaction_estimator.core.pipeline import Pipeline  # noqa: E402
 from interaction_estimator.core.settings import NODE_NAME  # noqa: E402
+from interaction_estimator.ros import messages as node_messages  # noqa: E402
 from interaction_estimator.ros import node as node_module  # noqa: E402
 from interaction_estimator.ros.messages import sample_from_joint_state  # noqa: E402
 from interaction_estimator.sim import marten  # noqa: E402
@@ -232,7 +233,7 @@ def main(argv: list[str] | None = None) -> int:
             continue
 
         # parts of the node's cost
-        nm = node_module
+        nm = node_messages
         reader = nm.JointStateReader()
         results["read"].append(per_message_us(
             lambda raw, nm=nm, reader=reader: nm.sample_from_parts(reader.read(raw),
