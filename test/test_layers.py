@@ -23,11 +23,8 @@ ROS_PACKAGE_SUFFIXES = ("_msgs", "_srvs", "_interfaces")
 # fix; an entry that no longer occurs fails the test, so the list cannot go stale).
 KNOWN_CORE_VIOLATIONS: set[tuple[str, str]] = set()
 # Known circles outside core/, left to their owner (remove the entry with the fix; a circle
-# that no longer exists fails the test): in the tune package, procedure imports entries and
-# entries imports procedure's records.
-KNOWN_CYCLES = [
-    ["interaction_estimator.offline.tune.entries", "interaction_estimator.offline.tune.procedure"],
-]
+# that no longer exists fails the test). None today.
+KNOWN_CYCLES: list[list[str]] = []
 
 
 def _modules() -> dict[str, Path]:

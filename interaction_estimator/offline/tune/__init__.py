@@ -81,8 +81,9 @@ from .common import (
     TASK_SETTINGS,
     TuneError,
 )
-from .entries import TunedEntry, build_entries, file_header, free_only_text
+from .entries import TunedEntry, build_entries
 from .friction import Identification, JointFit, check_model_fit, identify
+from .headers import file_header, free_only_text
 from .passes import Trace, run_pass
 from .procedure import TuneResult, bag_settings, tune
 from .recordings import Recording, Reference, read_bag, recording_from_run

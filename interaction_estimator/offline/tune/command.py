@@ -17,7 +17,7 @@ from ...io.files import write_atomic
 from ..identification import Tool
 from ..identification.signals import DEFAULT_WINDOW
 from .common import EXIT_OK, EXIT_USAGE, FREE_ONLY_USE, PROG, REPORT_NAME, TuneError
-from .entries import file_header, model_summary, point_at_model, urdf_header
+from .headers import file_header, model_summary, point_at_model, urdf_header
 from .model import ModelRequest
 from .procedure import TuneResult, tune
 from .recordings import Recording, read_bag
