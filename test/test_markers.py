@@ -175,3 +175,19 @@ def test_markers_show_force_direction_and_parameters_then_clear(node_and_peer):
                         arrow.points[1].z - arrow.points[0].z])
         np.testing.assert_allclose(vec, force * 0.05, rtol=0, atol=1e-9)
     assert node.alive()
+
+
+def test_the_replay_and_tune_read_a_file_that_sets_the_marker_scale(tmp_path):
+    # the scale is a setting of the registry: the file readers of replay and tune take it and
+    # refuse a value out of its range with the name and the range (the node's own check above)
+    from interaction_estimator.core.settings import SettingsError
+    from interaction_estimator.io.parameter_file import load_parameter_file
+    good = tmp_path / "good.yaml"
+    good.write_text("/**/interaction_estimator:\n  ros__parameters:\n"
+                    "    output: {marker_force_scale: 0.05}\n", encoding="utf-8")
+    assert load_parameter_file(good)["output.marker_force_scale"] == 0.05
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("/**/interaction_estimator:\n  ros__parameters:\n"
+                   "    output: {marker_force_scale: 5.0}\n", encoding="utf-8")
+    with pytest.raises(SettingsError, match="output.marker_force_scale"):
+        load_parameter_file(bad)

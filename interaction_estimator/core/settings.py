@@ -338,6 +338,8 @@ SPECS: tuple[ParamSpec, ...] = (
     _f("output.status_rate", 50.0, "Hz",
        "Rate of ~/status; 0: one per processed sample.", 0.0, 1e5),
     _f("output.diagnostics_rate", 1.0, "Hz", "Rate of /diagnostics.", 0.01, 100.0),
+    _f("output.marker_force_scale", 0.01, "m/N",
+       "Length of the force arrow on ~/markers per newton of force.", 1e-5, 1.0),
     _s("output.frame_id", "",
        "frame_id of the published wrench; empty: the world frame (the URDF root link, or with"
        " base.source odometry the odometry's frame_id)."),

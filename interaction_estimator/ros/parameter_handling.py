@@ -107,6 +107,9 @@ class _ParameterHandling:
         for name in changes:
             self._declare_errors.pop(name, None)
         self._matcher.tolerance_s = new["input.stamp_tolerance"]
+        if new["output.marker_force_scale"] != old["output.marker_force_scale"]:
+            self._marker_scale = new["output.marker_force_scale"]
+            self._marker_builder = None   # made again with the new scale
         if new["output.diagnostics_rate"] != old["output.diagnostics_rate"]:
             self.destroy_timer(self._diagnostics_timer)
             self._diagnostics_timer = self.create_timer(1.0 / new["output.diagnostics_rate"],

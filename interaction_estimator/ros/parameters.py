@@ -53,14 +53,10 @@ FOREIGN_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_se
 
 PER_JOINT_SETTINGS: tuple[str, ...] = tuple(s.name for s in SPECS if PER_JOINT in s.description)
 
-# Settings only the node uses (what it draws), declared as parameters beside the registry's.
-# They belong in the registry (core/settings.py SPECS) so that the replay and tune commands
-# accept a parameter file that sets them; until they are there, they are declared from here (a
-# name the registry has is skipped, so moving it there needs no change here).
-_NODE_ONLY = (
-    ParamSpec("output.marker_force_scale", "float", 0.01, "m/N",
-              "Length of the force arrow on ~/markers per newton of force.", 1e-5, 1.0),
-)
+# Settings only the node uses, declared as parameters beside the registry's. None today: a
+# setting belongs in the registry (core/settings.py SPECS) so that the replay and tune commands
+# accept a parameter file that sets it; a name the registry has is skipped here.
+_NODE_ONLY: tuple[ParamSpec, ...] = ()
 NODE_SPECS: tuple[ParamSpec, ...] = tuple(s for s in _NODE_ONLY if s.name not in SPEC_BY_NAME)
 NODE_SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in NODE_SPECS}
 
