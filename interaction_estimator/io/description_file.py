@@ -8,33 +8,20 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-import yaml
+from ..core.settings import SettingsError
+from .parameter_file import parameters_from_yaml
 
 SETTING = "robot_description_file"
 
 
-def _values(tree: Any, name: str) -> list[Any]:
-    """Every value of key ``name`` in a YAML tree, nested (dotted keys flattened by ROS 2 are
-    nested mappings here: ``robot_description_file`` is a top-level setting)."""
-    out: list[Any] = []
-    if isinstance(tree, dict):
-        for k, v in tree.items():
-            if k == name:
-                out.append(v)
-            else:
-                out += _values(v, name)
-    return out
-
-
 def file_value(path: str | Path, name: str = SETTING) -> Any:
-    """The value a ROS 2 parameter YAML gives ``name`` (the last one), None when it gives none
-    or cannot be read."""
+    """The value a ROS 2 parameter YAML gives ``name`` in this node's sections (read by the
+    package's one reader, io.parameter_file), None when it gives none or cannot be read."""
     try:
-        doc = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
-    except (OSError, yaml.YAMLError):
+        return parameters_from_yaml(Path(path).read_text(encoding="utf-8"),
+                                    source=str(path)).get(name)
+    except (OSError, SettingsError):
         return None
-    found = _values(doc, name)
-    return found[-1] if found else None
 
 
 def resolve(value: str, parameter_files: Sequence[str | Path] = ()) -> Path:
