@@ -205,7 +205,7 @@ SPECS: tuple[ParamSpec, ...] = (
        1e-3, 5.0),
     _i("kinematics.polyorder", 2, "",
        "Polynomial order of the Savitzky-Golay fit.", 1, 5),
-    # --- environment filter (adaptive Kalman filter) ---------------------------------------
+    # --- environment filter (recursive Bayesian least squares on block means) -------------
     _fa("filter.initial_mean", [0.0, 0.0, 0.0, 0.0], "kg, N·s/m, N/m, N",
         "Prior of [mass, damping, stiffness, static_force]. With filter.nonnegative the first"
         " three must not be negative.", -1e6, 1e6, length=4),
