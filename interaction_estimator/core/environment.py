@@ -753,7 +753,20 @@ def filter_update(fr, t, H, f):
     Returns ADDED (the row joined its block), UPDATED (a block was used: the figures are in
     ``fr.output`` and ``fr.parameter_output``), or REJECT_NON_FINITE / REJECT_TIME_BACKWARDS
     with the state untouched (the refusal counted in ``state.rejected``)."""
-    p, s = fr.params[0], fr.state[0]
+    code = filter_add(fr.params[0], fr.state[0], fr.block_force, fr.block_regressor, t, H, f)
+    if code == UPDATED:
+        filter_use_block(fr)
+    return code
+
+
+@kernel
+def filter_add(p, s, block_force, block_regressor, t, H, f):
+    """The first half of :func:`filter_update`, on the records it needs (p: PARAMS, s: STATE
+    records; the block's sums): the row's checks and its addition to the block. Returns ADDED,
+    a REJECT_* code, or UPDATED when the block is complete: then :func:`filter_use_block` must
+    follow. (The Pipeline's step calls it per sample and builds the filter's 17 arrays only
+    for a complete block: each array argument of a compiled call costs an atomic reference
+    count increment and decrement.)"""
     channels, m = H.shape[0], H.shape[1]
     total = t
     for c in range(channels):
@@ -773,11 +786,19 @@ def filter_update(fr, t, H, f):
     s.block_count += 1
     s.block_time_sum += t
     for c in range(channels):
-        fr.block_force[c] += f[c]
+        block_force[c] += f[c]
         for i in range(m):
-            fr.block_regressor[c, i] += H[c, i]
+            block_regressor[c, i] += H[c, i]
     if t - s.block_start_s < p.block_s:
         return ADDED
+    return UPDATED
+
+
+@kernel
+def filter_use_block(fr):
+    """The second half of :func:`filter_update`: the complete block's mean through the filter
+    (:func:`_use_block`), the block's sums cleared."""
+    s = fr.state[0]
     n = float(s.block_count)
     mean_h = fr.block_regressor / n
     mean_f = fr.block_force / n
@@ -787,7 +808,6 @@ def filter_update(fr, t, H, f):
     s.block_count = 0
     s.block_time_sum = 0.0
     _use_block(fr, mean_t, mean_f, mean_h)
-    return UPDATED
 
 def change_text(bits: int, g: float, threshold: float, text: str = "") -> str:
     """The ``change`` words of an update from its CHANGE_* bits (``text``: restarts asked for

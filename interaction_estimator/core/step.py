@@ -58,9 +58,11 @@ def validate(s, t, q, v, effort):
 
 
 @kernel
-def observe(st, t, v, effort, M, C, g):
+def observe(params, state, joints, t, v, effort, M, C, g):
     """Momentum observer on tau = effort - friction: p = M v, beta = tau + C^T v - g; the
-    residual with the bias removed in ``st.joints.residual``. Returns True on a restart.
+    residual with the bias removed in ``joints.pipeline.residual``. Returns True on a restart.
+    params, state: the storage's PARAMS and STATE records; joints: its JOINT rows (see
+    :func:`_step` for why the stages take records rather than the whole storage).
 
     The observer runs on the rows of the measured joints: the last n = len(effort) of the nv
     velocity coordinates. With a moving base (base.source odometry) the first nv - n are the
@@ -77,10 +79,10 @@ def observe(st, t, v, effort, M, C, g):
     nv = v.shape[0]
     n = effort.shape[0]
     off = nv - n
-    fp = st.params[0].friction
+    fp = params.friction
     beta = np.empty(n)
     if fp.enabled:
-        compensation.friction_torque(beta, v[off:], st.joints["friction"],
+        compensation.friction_torque(beta, v[off:], joints["friction"],
                                      fp.smoothing_velocity)
         for j in range(n):
             beta[j] = effort[j] - beta[j]
@@ -97,24 +99,23 @@ def observe(st, t, v, effort, M, C, g):
             p += M[row, i] * v[i]
         beta[j] = beta[j] + ctv - g[row]
         momentum[j] = p
-    restarted = observer.observer_step(st.params[0].observer, st.state[0].observer,
-                                       st.joints["observer_params"], st.joints["observer"], t,
+    restarted = observer.observer_step(params.observer, state.observer,
+                                       joints["observer_params"], joints["observer"], t,
                                        momentum, beta, M[off:, :])
-    joints = st.joints
     for j in range(n):
         joints[j].pipeline.residual = joints[j].observer.torque + joints[j].bias.value
     return restarted
 
 
 @kernel
-def monitor(st, t, dt):
+def monitor(params, state, joints, t, dt):
     """Bias learning (start-up phase, then quiet free motion), the contact monitor and the
-    residual's noise learning. Returns (phase, contact event, contact level)."""
-    s = st.state[0].pipeline
-    joints = st.joints
+    residual's noise learning. Returns (phase, contact event, contact level). params, state:
+    the storage's PARAMS and STATE records; joints: its JOINT rows."""
+    s = state.pipeline
     nv = joints.shape[0]
-    bp, bs, bj = st.params[0].bias, st.state[0].bias, joints["bias"]
-    cp, cs, cj = st.params[0].contact, st.state[0].contact, joints["contact"]
+    bp, bs, bj = params.bias, state.bias, joints["bias"]
+    cp, cs, cj = params.contact, state.contact, joints["contact"]
     raw = np.empty(nv)
     for j in range(nv):
         raw[j] = joints[j].observer.torque
@@ -147,7 +148,7 @@ def monitor(st, t, dt):
     # right after a contact ended (it may resume: a held object's force passing through zero)
     contact.snapshot(cp, cs, cj, bj, t)
     if (not cs.pending and level < cp.exit_level and cs.evidence_g == 0.0
-            and t - s.contact_end_s > st.params[0].pipeline.forget_after_s):
+            and t - s.contact_end_s > params.pipeline.forget_after_s):
         compensation.bias_update(bp, bs, bj, t, dt, raw, True)
         for j in range(nv):
             joints[j].pipeline.residual = raw[j] + bj[j].value
@@ -162,10 +163,11 @@ def monitor(st, t, dt):
 
 
 @kernel
-def project(st, out, dt, J, v, H):
+def project(params, state, out, dt, J, v, H):
     """Direction u after this sample and the projections on it: returns (force along u N,
-    velocity along u m/s, displacement along u since the last sample m)."""
-    s = st.state[0].pipeline
+    velocity along u m/s, displacement along u since the last sample m). params, state: the
+    storage's PARAMS and STATE records."""
+    s = state.pipeline
     nv = v.shape[0]
     pv0 = J[0, 0] * v[0]
     pv1 = J[1, 0] * v[0]
@@ -176,8 +178,8 @@ def project(st, out, dt, J, v, H):
         pv2 += J[2, j] * v[j]
     point_velocity = np.empty(3)
     point_velocity[0], point_velocity[1], point_velocity[2] = pv0, pv1, pv2
-    ds = st.state[0].direction
-    direction.direction_update(st.params[0].direction, ds, dt, H[:3, :3], point_velocity)
+    ds = state.direction
+    direction.direction_update(params.direction, ds, dt, H[:3, :3], point_velocity)
     u0, u1, u2 = ds.u[0], ds.u[1], ds.u[2]
     f = out.force
     force_along = u0 * f[0] + u1 * f[1] + u2 * f[2]
@@ -244,7 +246,10 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
             forces[0] = force
             out.filter_time_s = time
             out.filter_force = force
-            code = environment.filter_update(_filter(st), time, h, forces)
+            code = environment.filter_add(st.params[0].filter, st.state[0].filter,
+                                          st.block_force, st.block_regressor, time, h, forces)
+            if code == environment.UPDATED:   # the block is complete: the filter's update
+                environment.filter_use_block(_filter(st))
             out.filter_code = code
             if code == environment.ADDED:   # the row joined its block
                 return _kinematics_out(out, kp, ks, event)
@@ -333,7 +338,11 @@ def estimate_spatial(st, out, t, dt, phase, event):
                         h[cc, i] = rows[cc, i].regressor
                 out.filter_time_s = entry.time_s
                 out.filter_force = forces[0]
-                code = environment.filter_update(_filter(st), entry.time_s, h, forces)
+                code = environment.filter_add(st.params[0].filter, st.state[0].filter,
+                                              st.block_force, st.block_regressor,
+                                              entry.time_s, h, forces)
+                if code == environment.UPDATED:   # the block is complete: the update
+                    environment.filter_use_block(_filter(st))
                 out.filter_code = code
                 if code != environment.ADDED:
                     if code != environment.UPDATED:
@@ -378,11 +387,12 @@ def _kinematics_out(out, kp, ks, event):
 
 
 @kernel
-def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condition):
-    """The sample's output records and its health verdict."""
-    s = st.state[0].pipeline
-    fs, fo = st.state[0].filter, st.state[0].filter_output
-    prm = st.parameters
+def write_outputs(params, state, prm, joints, out, out_params, out_joints, t, phase, event,
+                  level, condition):
+    """The sample's output records and its health verdict. params, state: the storage's
+    PARAMS and STATE records; prm: its PARAMETER rows; joints: its JOINT rows."""
+    s = state.pipeline
+    fs, fo = state.filter, state.filter_output
     m = out_params.shape[0]
     if fs.samples == 0:   # no update since the last reset: the prior
         for i in range(m):
@@ -392,7 +402,7 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
             out_params[i].converged = False
         out.nis = out.nis_average = out.nis_lower = 0.0
         out.nis_upper = math.inf
-        out.measurement_std = st.params[0].filter.measurement_std0
+        out.measurement_std = params.filter.measurement_std0
         all_converged = False
         samples = 0
     else:
@@ -409,10 +419,10 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
         out.measurement_std = math.sqrt(fo.r)
         all_converged = fo.all_converged
         samples = fo.samples
-    mp = st.params[0].mechanism
+    mp = params.mechanism
     geometry = mechanism.GEOMETRY_NONE
     if mp.kind != mechanism.KIND_NONE:
-        ms = st.state[0].mechanism
+        ms = state.mechanism
         geometry = ms.code
         out.geometry = geometry
         for r in range(3):
@@ -440,7 +450,7 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
     out.contact_level = level
     out.jacobian_condition = condition
     out.rate_hz = rate
-    bs = st.state[0].bias
+    bs = state.bias
     out.bias_age_s = t - bs.last_learned_s if bs.learned else math.inf
     out.phase = phase
     out.event = event
@@ -448,14 +458,13 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
     out.filter_samples = samples
     out.startup_remaining_s = s.learning_s - elapsed if elapsed < s.learning_s else 0.0
     out.since_contact_end_s = t - s.contact_end_s if s.ever_contact else math.inf
-    out.observer_restarts = st.state[0].observer.restarts
-    joints = st.joints
+    out.observer_restarts = state.observer.restarts
     for j in range(out_joints.shape[0]):
         out_joints[j].external_torque = joints[j].pipeline.residual
         out_joints[j].bias = joints[j].bias.value
         out_joints[j].raw_residual = joints[j].observer.torque
     out.level, out.state, out.findings = health.health_verdict(
-        st.params[0].health, phase, out.since_contact_end_s, all_converged, out.nis_average,
+        params.health, phase, out.since_contact_end_s, all_converged, out.nis_average,
         out.nis_lower, out.nis_upper, samples, condition, s.recent_rejects, rate,
         s.stamp_from_receive)
     # a path that fits nothing warns at once; "straight" or "curved" (the other mechanism's
@@ -463,7 +472,7 @@ def write_outputs(st, out, out_params, out_joints, t, phase, event, level, condi
     # straight within their noise, and that is not yet a finding
     if phase == PHASE_CONTACT and (geometry == mechanism.GEOMETRY_NO_FIT or (
             (geometry == mechanism.GEOMETRY_STRAIGHT or geometry == mechanism.GEOMETRY_CURVED)
-            and st.state[0].mechanism.travel_m >= 2.0 * mp.min_travel_m)):
+            and state.mechanism.travel_m >= 2.0 * mp.min_travel_m)):
         out.findings |= health.FINDING_PATH
     if s.base_findings != 0:   # a moving base's inputs stale, refused or too slow (caller)
         out.findings |= s.base_findings
@@ -484,30 +493,36 @@ def _filter(st):
 
 @kernel
 def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
-    s = st.state[0].pipeline
+    # The stages take the records they use (params, state: records, passed as pointers) and
+    # the few arrays they need, not the whole storage: every array argument of a compiled call
+    # costs an atomic reference count increment and decrement (Numba's runtime), and the
+    # storage's 20 arrays in each stage's call were ~40 % of them (counted with gdb at the
+    # runtime's increment, 2026-12-05).
+    params, state, joints = st.params[0], st.state[0], st.joints
+    s = state.pipeline
     if not validate(s, t, q, v, effort):
         return STEP_INVALID_SAMPLE
     if s.learning_pending:
         s.learning_pending = False
         s.learning_start_s = t
-        s.learning_s = st.params[0].pipeline.startup_s
+        s.learning_s = params.pipeline.startup_s
     dt = t - s.last_time_s if s.started else 0.0
 
-    restarted = observe(st, t, v, effort, M, C, g)
-    phase, contact_event, level = monitor(st, t, dt)
+    restarted = observe(params, state, joints, t, v, effort, M, C, g)
+    phase, contact_event, level = monitor(params, state, joints, t, dt)
     event = EV_RESTARTED if restarted else EV_NONE
     if contact_event == contact.EVENT_BEGIN:
         event = EV_BEGIN
     elif contact_event == contact.EVENT_END:
         event = EV_END
 
-    contact_joints = st.joints["contact"]
-    contact.weights(st.state[0].contact, contact_joints)
+    contact_joints = joints["contact"]
+    contact.weights(state.contact, contact_joints)
     n = effort.shape[0]
     residual = np.empty(n)
     for j in range(n):
-        residual[j] = st.joints[j].pipeline.residual
-    wp = st.params[0].wrench
+        residual[j] = joints[j].pipeline.residual
+    wp = params.wrench
     wrench6 = np.empty(6)
     # the measured joints' columns: forces on a moving base's own body never enter
     condition = wrench.wrench_solve(wp, wrench6, J[:, v.shape[0] - n:], residual,
@@ -521,7 +536,7 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
         out.force[r] = wrench6[r]
         out.torque[r] = wrench6[3 + r]
 
-    force_along, velocity_along, dx = project(st, out, dt, J, v, H)
+    force_along, velocity_along, dx = project(params, state, out, dt, J, v, H)
     out.force_along = force_along
     out.velocity_along = velocity_along
 
@@ -537,7 +552,8 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
     if dt > 0.0:
         s.dt_average_s = dt if s.dt_average_s == 0.0 else s.dt_average_s + 0.01 * (
             dt - s.dt_average_s)
-    write_outputs(st, out, out_params, out_joints, t, phase, event, level, condition)
+    write_outputs(params, state, st.parameters, joints, out, out_params, out_joints, t, phase,
+                  event, level, condition)
     return STEP_DONE
 
 
