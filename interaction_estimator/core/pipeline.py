@@ -620,11 +620,9 @@ class Pipeline:
         pose, mass, coriolis, gravity, jacobian = (self.model.terms(q, v) if terms is None
                                                    else terms)
         self._last_mass = mass
-        s = self._pipe
-        s["recent_rejects"] = self._forget_rejects(t)
-        s["stamp_from_receive"] = stamp_from_receive
         return self._step(self._storage, t, q, v, effort, mass, coriolis, gravity, jacobian,
-                          pose, self._out, self._out_params, self._out_joints)
+                          pose, self._out, self._out_params, self._out_joints,
+                          self._forget_rejects(t), stamp_from_receive)
 
     def _forget_rejects(self, t: float) -> int:
         """Drop the reject times more than a second before ``t`` s; returns how many are left."""

@@ -5,7 +5,8 @@ function of its own records (views of :class:`~.storage.Storage`): validate the 
 numbers; the momentum observer with friction and bias removed (:func:`observe`); the contact
 monitor with bias and noise learning (:func:`monitor`); the wrench map; the direction and the
 projections on it (:func:`project`); the kinematics along u and the environment filter
-(:func:`estimate_object`); the health verdict and the output records (:func:`write_outputs`).
+(:func:`object_begin`, :func:`object_row`, :func:`object_updated`; in 3-D
+:func:`estimate_spatial`); the health verdict and the output records (:func:`write_outputs`).
 The Pinocchio calls that feed it (M, C, g, the contact Jacobian and pose) are made by the
 Pipeline before the call, and the sample's joints are already in model order.
 :func:`pipeline_run` steps a block of samples.
@@ -35,6 +36,7 @@ from .health import PHASE_CONTACT, PHASE_FREE, PHASE_LEARNING
 from .outputs import EV_BEGIN, EV_CHANGE, EV_END, EV_NONE, EV_RESTARTED, EV_RESUMED
 
 STEP_DONE, STEP_NON_FINITE_WRENCH, STEP_FILTER_REFUSED, STEP_INVALID_SAMPLE = 0, 1, 2, 3
+_BLOCK_COMPLETE = -1   # inside the step: the filter's block is complete (object_row)
 
 
 @kernel
@@ -197,46 +199,57 @@ def project(params, state, out, dt, J, v, H):
 
 
 @kernel
-def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, force_along):
-    """Kinematics along u, and in contact the object model's measurement row through the
-    environment filter. Returns (event, code): the event possibly changed (a resumed contact, a
-    change the filter declared), code STEP_DONE or STEP_FILTER_REFUSED (its reason in
-    out.filter_code)."""
-    if st.params[0].model.kind != object_models.MODEL_ALONG_DIRECTION:
-        return estimate_spatial(st, out, t, dt, phase, event)
-    s = st.state[0].pipeline
-    kp, ks = st.params[0].kinematics, st.state[0].kinematics
-    ring = st.ring
+def object_begin(params, state, ring, out, t, event):
+    """Kinematics along u, first part: the outputs of :func:`object_row` reset, and at a
+    contact's beginning x taken from where the residual was last quiet (a new contact) or the
+    contact resumed. Returns (event, ready, restart): ready False until the kinematics know the
+    nominal interval (the sample then ends here); restart True when the environment filter must
+    start again on a regained contact (done by the caller, which holds the filter's records,
+    before :func:`object_row`)."""
+    s = state.pipeline
+    kp, ks = params.kinematics, state.kinematics
     out.filter_code = outputs.FILTER_NOT_UPDATED
     out.regained = False
     out.change = 0
     out.change_g = 0.0
     out.position_along = out.acceleration_along = out.kinematics_lag_s = 0.0
     if not kp.ready:
-        return event, STEP_DONE
+        return event, False, False
+    restart = False
     if event == EV_BEGIN:
-        if not s.ever_contact or t - s.contact_end_s > st.params[0].pipeline.forget_after_s:
+        if not s.ever_contact or t - s.contact_end_s > params.pipeline.forget_after_s:
             # a new contact: x from where the residual last was quiet (the contact began there,
             # before the monitor could tell); estimates uncertain again
             kinematics.kinematics_start_contact(ks, ring, s.quiet_position_m)
-            st.state[0].model.filtered = False
-            if s.ever_contact:
-                environment.filter_restart(_filter(st), environment.CHANGE_REGAINED)
-                out.regained = True
+            state.model.filtered = False
+            restart = s.ever_contact
         else:
             event = EV_RESUMED
         s.ever_contact = True
-    kinematics.kinematics_push(kp, ks, ring, st.coefficients, t, dx, velocity_along,
-                               force_along)
+    return event, True, restart
+
+
+@kernel
+def object_row(params, state, ring, coefficients, model_rows, block_force, block_regressor, out,
+               t, dt, phase, event, dx, velocity_along, force_along):
+    """Kinematics along u, second part: the sample into the kinematics, and in contact the
+    object model's measurement row into the environment filter's block (params, state: the
+    storage's PARAMS and STATE records; the storage's kinematics ring and weights, measurement
+    rows and the filter's block sums). Returns (event, code): code STEP_DONE, or
+    STEP_FILTER_REFUSED (its reason in out.filter_code), or _BLOCK_COMPLETE: the block is
+    complete, the caller runs the filter's update (:func:`environment.filter_use_block`) and
+    then :func:`object_updated`."""
+    s = state.pipeline
+    kp, ks = params.kinematics, state.kinematics
+    kinematics.kinematics_push(kp, ks, ring, coefficients, t, dx, velocity_along, force_along)
     if phase != PHASE_CONTACT:
-        if st.state[0].contact.onset_g == 0.0:   # no contact under way: x starts here
+        if state.contact.onset_g == 0.0:   # no contact under way: x starts here
             s.quiet_position_m = ks.position_m
     else:
         full, acc, vel, pos, force, time = kinematics.kinematics_centre(kp, ks, ring)
         if full:
-            rows = st.model_rows
-            object_models.measurement_row(st.params[0].model, st.state[0].model, rows, dt, acc,
-                                          vel, pos)
+            rows = model_rows
+            object_models.measurement_row(params.model, state.model, rows, dt, acc, vel, pos)
             channels, m = rows.shape[0], rows.shape[1]
             h = np.empty((channels, m))
             for c in range(channels):
@@ -246,29 +259,35 @@ def estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along, for
             forces[0] = force
             out.filter_time_s = time
             out.filter_force = force
-            code = environment.filter_add(st.params[0].filter, st.state[0].filter,
-                                          st.block_force, st.block_regressor, time, h, forces)
-            if code == environment.UPDATED:   # the block is complete: the filter's update
-                environment.filter_use_block(_filter(st))
+            code = environment.filter_add(params.filter, state.filter, block_force,
+                                          block_regressor, time, h, forces)
             out.filter_code = code
-            if code == environment.ADDED:   # the row joined its block
-                return _kinematics_out(out, kp, ks, event)
-            if code != environment.UPDATED:
+            if code == environment.UPDATED:   # the block is complete: the filter's update
+                return event, _BLOCK_COMPLETE
+            if code != environment.ADDED:
                 return event, STEP_FILTER_REFUSED
-            fo = st.state[0].filter_output
-            out.change = fo.change
-            out.change_g = fo.change_g
-            if fo.change != 0:
-                event = EV_CHANGE
     return _kinematics_out(out, kp, ks, event)
 
 
 @kernel
+def object_updated(params, state, out, event):
+    """Kinematics along u, after the environment filter's update of a complete block: a change
+    it declared, and the kinematics' outputs. Returns (event, STEP_DONE)."""
+    fo = state.filter_output
+    out.change = fo.change
+    out.change_g = fo.change_g
+    if fo.change != 0:
+        event = EV_CHANGE
+    return _kinematics_out(out, params.kinematics, state.kinematics, event)
+
+
+@kernel
 def estimate_spatial(st, out, t, dt, phase, event):
-    """:func:`estimate_object` for the models that need the contact point's motion in 3-D
-    (cartesian, revolute, prismatic): the 3-D kinematics, the mechanism's path and geometry,
-    and in contact the model's measurement rows through the environment filter (a mechanism's
-    only once its geometry is fitted: until then its parameters stay at their prior)."""
+    """:func:`object_begin` and :func:`object_row` for the models that need the contact
+    point's motion in 3-D (cartesian, revolute, prismatic): the 3-D kinematics, the mechanism's
+    path and geometry, and in contact the model's measurement rows through the environment
+    filter (a mechanism's only once its geometry is fitted: until then its parameters stay at
+    their prior)."""
     s = st.state[0].pipeline
     kp, ss = st.params[0].kinematics, st.state[0].spatial
     mp, ms = st.params[0].mechanism, st.state[0].mechanism
@@ -282,7 +301,7 @@ def estimate_spatial(st, out, t, dt, phase, event):
         return event, STEP_DONE
     if event == EV_BEGIN:
         if not s.ever_contact or t - s.contact_end_s > st.params[0].pipeline.forget_after_s:
-            # a new contact: x from where the residual last was quiet (see estimate_object)
+            # a new contact: x from where the residual last was quiet (see object_begin)
             for r in range(3):
                 ss.onset[r] = s.quiet_point[r]
             model_s.filtered = False
@@ -540,8 +559,22 @@ def _step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
     out.force_along = force_along
     out.velocity_along = velocity_along
 
-    event, code = estimate_object(st, out, t, dt, phase, event, level, dx, velocity_along,
-                                  force_along)
+    if params.model.kind != object_models.MODEL_ALONG_DIRECTION:
+        event, code = estimate_spatial(st, out, t, dt, phase, event)
+    else:   # kinematics along u and the object's parameters (the filter's records only where
+        # its update needs them: see the comment at the top)
+        event, ready, restart = object_begin(params, state, st.ring, out, t, event)
+        code = STEP_DONE
+        if ready:
+            if restart:
+                environment.filter_restart(_filter(st), environment.CHANGE_REGAINED)
+                out.regained = True
+            event, code = object_row(params, state, st.ring, st.coefficients, st.model_rows,
+                                     st.block_force, st.block_regressor, out, t, dt, phase,
+                                     event, dx, velocity_along, force_along)
+            if code == _BLOCK_COMPLETE:
+                environment.filter_use_block(_filter(st))
+                event, code = object_updated(params, state, out, event)
     if code != STEP_DONE:
         return code
     if event == EV_END:
@@ -573,22 +606,30 @@ def _step_signature():
     out = numba.typeof(outputs.SAMPLE.one())
     out_params = numba.typeof(outputs.PARAMETER.many(1))
     out_joints = numba.typeof(outputs.JOINT.many(1))
-    return numba.int64(st, f64, c1, c1, c1, a2, a2, c1, a2, a2, out, out_params, out_joints)
+    return numba.int64(st, f64, c1, c1, c1, a2, a2, c1, a2, a2, out, out_params, out_joints,
+                       numba.int64, numba.boolean)
 
 
 @entry_kernel(_step_signature)
-def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints):
+def pipeline_step(st, t, q, v, effort, M, C, g, J, H, out, out_params, out_joints,
+                  recent_rejects, from_receive):
     """One sample through every stage (see the module docstring). st: :class:`~.storage.Storage`;
     t: stamp, s; q (nq,) configuration, v (nv,) velocity, effort (n,) of the measured joints
     (the last n velocity coordinates; the first nv - n a moving base's twist), in model order;
     M (nv, nv), C (nv, nv) Coriolis matrix, g (nv,), J (6, nv) world-aligned contact Jacobian,
     H (4, 4) contact-frame pose, all from Pinocchio; out (1,) outputs.SAMPLE, out_params (m,)
-    outputs.PARAMETER and out_joints (n,) outputs.JOINT receive the sample's outputs.
+    outputs.PARAMETER and out_joints (n,) outputs.JOINT receive the sample's outputs;
+    recent_rejects: samples rejected over the second before this one, from_receive: True when
+    t is the receive time (both the caller's, as :func:`pipeline_run` takes them per sample;
+    arguments rather than two Python-side writes into the state record, ~0.3 us each).
 
     Returns STEP_DONE (outputs filled), STEP_INVALID_SAMPLE (a non-finite number or a stamp not
     after the last valid one: nothing changed; samples.SampleValidator says which),
     STEP_NON_FINITE_WRENCH (the wrench came out non-finite) or STEP_FILTER_REFUSED (the filter
     refused its measurement row, its code in out.filter_code)."""
+    s = st.state[0].pipeline
+    s.recent_rejects = recent_rejects
+    s.stamp_from_receive = from_receive
     return _step(st, t, q, v, effort, M, C, g, J, H, out[0], out_params, out_joints)
 
 
