@@ -311,10 +311,21 @@ def _simulate(args: argparse.Namespace) -> int:
     except (ValueError, BagError) as exc:
         raise UsageError(str(exc)) from None
     t = run.truth
-    truth = ("no object, no contact (free motion only: bias, friction and noise truth only)"
-             if not t.get("has_object", True) else
-             f"truth mass {t['mass']:.4g} kg, damping {t['damping']:.4g} N·s/m, stiffness "
-             f"{t['stiffness']:.4g} N/m, static force {t['static_force']:.4g} N")
+    if not t.get("has_object", True):
+        truth = "no object, no contact (free motion only: bias, friction and noise truth only)"
+    elif "mass_matrix" in t:   # the cartesian model's truth: principal values (ascending)
+        import numpy as np  # imported by the simulation already
+
+        truth = "truth " + ", ".join(
+            f"{label} {', '.join(f'{x:.4g}' for x in np.linalg.eigvalsh(t[key]))} {unit}"
+            for label, key, unit in (("mass", "mass_matrix", "kg"),
+                                     ("damping", "damping_matrix", "N·s/m"),
+                                     ("stiffness", "stiffness_matrix", "N/m"))) + (
+            f" (principal values), static force ({t['static_force_x']:.4g}, "
+            f"{t['static_force_y']:.4g}, {t['static_force_z']:.4g}) N")
+    else:
+        truth = (f"truth mass {t['mass']:.4g} kg, damping {t['damping']:.4g} N·s/m, stiffness "
+                 f"{t['stiffness']:.4g} N/m, static force {t['static_force']:.4g} N")
     print(f"wrote {args.out} ({args.storage}): scenario {args.scenario}, "
           f"{run.time[-1]:.1f} s at {args.rate:g} Hz, {len(run.time)} joint states; {truth}")
     return EXIT_OK

@@ -403,6 +403,20 @@ def test_existing_result_is_kept_when_a_later_replay_fails(bags, tmp_path, capsy
     assert (tmp_path / "mine" / "notes.txt").read_text() == "keep me"
 
 
+def test_simulate_command_states_a_3d_objects_truth(tmp_path, capsys):
+    # the soft fixture's truth is matrices: the command prints their principal values, which
+    # are numpy.linalg.eigvalsh's of the bag's own ground truth (reference: numpy)
+    from interaction_estimator.sim.simulator import SCENARIOS
+    spec = SCENARIOS["soft_fixture"]
+    code, out, err = run_cli(["simulate", "soft_fixture", "--out", tmp_path / "s",
+                              "--duration", f"{spec.min_duration:g}"], capsys)
+    assert code == 0, err
+    with RecordedBag(tmp_path / "s") as bag:
+        stiffness = bag.truth().extra["stiffness_matrix"]
+    values = ", ".join(f"{x:.4g}" for x in np.linalg.eigvalsh(np.asarray(stiffness)))
+    assert f"stiffness {values} N/m (principal values)" in out
+
+
 def test_simulate_command_and_its_errors(tmp_path, capsys):
     code, out, err = run_cli(["simulate", "drawer", "--out", tmp_path / "b", "--duration",
                               "3.5", "--seed", "4", "--storage", "sqlite3", "--effort-side",
