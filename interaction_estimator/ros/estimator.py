@@ -12,7 +12,6 @@ import time
 from collections import OrderedDict, deque
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
 
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import WrenchStamped
@@ -27,11 +26,10 @@ from visualization_msgs.msg import MarkerArray
 from ..core.model import ModelError
 from ..core.pipeline import Pipeline
 from ..core.samples import RejectCounts, Sample, SampleRejected
-from ..core.settings import SPEC_BY_NAME, Settings, SettingsError
+from ..core.settings import Settings, SettingsError
 from ..io.bag import base_records
 from ..io.description_file import resolve as resolve_description
 from ..io.effort_matching import EffortMatcher
-from . import parameters as node_params
 from .inputs import LatencyMeter, WarningThrottle
 from .markers import ContactPoint, MarkerBuilder
 from .messages import (
@@ -128,7 +126,6 @@ class _Estimator(_ParameterHandling, _StatusReporting):
         self._markers_shown = False
         self._contact_point: ContactPoint | None = None
         self._last_sample: Sample | None = None
-        self._marker_scale = self._node_setting("output.marker_force_scale")
         self._marker_builder: MarkerBuilder | None = None   # made for the current settings
         self._declare_errors: dict[str, str] = {}
         self._lifecycle = ACTIVE   # a plain node is always active; a managed one says
@@ -224,15 +221,6 @@ class _Estimator(_ParameterHandling, _StatusReporting):
 
     def _create_watch(self) -> None:
         self._watch_timer = self.create_timer(WATCH_PERIOD_S, self._on_watch)
-
-    def _node_setting(self, name: str) -> Any:
-        """A node-only setting (node_params.NODE_SPECS) or, once the registry has it, the
-        registry's value."""
-        if name in SPEC_BY_NAME:
-            return self.settings[name]
-        return node_params.node_value(node_params.NODE_SPEC_BY_NAME[name],
-                                      self.get_parameter(name).value)
-
 
     # --- robot model -----------------------------------------------------------------------
     def _load_file(self, path: str) -> None:

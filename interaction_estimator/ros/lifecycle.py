@@ -67,7 +67,6 @@ class ManagedEstimatorNode(_Estimator, LifecycleNode):
         self.settings = settings
         self._declare_errors.pop("<settings>", None)
         self._matcher = EffortMatcher(settings["input.stamp_tolerance"], EFFORT_BUFFER)
-        self._marker_scale = self._node_setting("output.marker_force_scale")
         self._marker_builder = None
         path = settings["robot_description_file"]
         if path:

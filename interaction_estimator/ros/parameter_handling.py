@@ -25,7 +25,7 @@ class _ParameterHandling:
         the default declared; returns {name: why} for those, and for names no setting has
         (key ``<unknown>``)."""
         errors: dict[str, str] = {}
-        for spec in (*SPECS, *node_params.NODE_SPECS):
+        for spec in SPECS:
             try:
                 self.declare_parameter(spec.name, node_params.declared_default(spec),
                                        node_params.descriptor(spec))
@@ -51,16 +51,13 @@ class _ParameterHandling:
             except ParameterUninitializedException:
                 param = Parameter(spec.name)
             values[spec.name] = node_params.setting_value(param)
-        settings = Settings(values)
-        for spec in node_params.NODE_SPECS:
-            node_params.node_value(spec, self.get_parameter(spec.name).value)
-        return settings
+        return Settings(values)
 
     def _normalize_declared(self) -> None:
         """Store floats and typed lists where a file wrote 9 for 9.0 or [] (not for read-only
         ones)."""
         fixes = []
-        for spec in (*SPECS, *node_params.NODE_SPECS):
+        for spec in SPECS:
             try:
                 param = self.get_parameter(spec.name)
             except ParameterUninitializedException:
@@ -75,18 +72,8 @@ class _ParameterHandling:
         return [node_params.normalized(p) for p in params]
 
     def _on_set_parameters(self, params: list[Parameter]) -> SetParametersResult:
-        node_only = {}
-        for p in params:
-            spec = node_params.NODE_SPEC_BY_NAME.get(p.name)
-            if spec is not None:
-                try:
-                    node_only[p.name] = node_params.node_value(spec, p.value)
-                except SettingsError as exc:
-                    self.get_logger().warning(f"parameter change refused: {exc}")
-                    return SetParametersResult(successful=False, reason=str(exc))
         changes = node_params.changes_from(params)
         if not changes:
-            self._apply_node_only(node_only)
             return SetParametersResult(successful=True)
         try:
             new = self.settings.replace(changes)
@@ -103,12 +90,10 @@ class _ParameterHandling:
             self.get_logger().warning(f"parameter change refused: {reason}")
             return SetParametersResult(successful=False, reason=reason)
         old, self.settings = self.settings, new
-        self._apply_node_only(node_only)
         for name in changes:
             self._declare_errors.pop(name, None)
         self._matcher.tolerance_s = new["input.stamp_tolerance"]
         if new["output.marker_force_scale"] != old["output.marker_force_scale"]:
-            self._marker_scale = new["output.marker_force_scale"]
             self._marker_builder = None   # made again with the new scale
         if new["output.diagnostics_rate"] != old["output.diagnostics_rate"]:
             self.destroy_timer(self._diagnostics_timer)
@@ -117,13 +102,3 @@ class _ParameterHandling:
         self.get_logger().info("parameters changed: " + ", ".join(
             f"{k}={v!r}" for k, v in sorted(changes.items())))
         return SetParametersResult(successful=True)
-
-    def _apply_node_only(self, values: dict[str, Any]) -> None:
-        for name in values:
-            self._declare_errors.pop(name, None)
-        if "output.marker_force_scale" in values:
-            self._marker_scale = values["output.marker_force_scale"]
-            self._marker_builder = None   # made again with the new scale
-        if values:
-            self.get_logger().info("parameters changed: " + ", ".join(
-                f"{k}={v!r}" for k, v in sorted(values.items())))

@@ -53,29 +53,6 @@ FOREIGN_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_se
 
 PER_JOINT_SETTINGS: tuple[str, ...] = tuple(s.name for s in SPECS if PER_JOINT in s.description)
 
-# Settings only the node uses, declared as parameters beside the registry's. None today: a
-# setting belongs in the registry (core/settings.py SPECS) so that the replay and tune commands
-# accept a parameter file that sets it; a name the registry has is skipped here.
-_NODE_ONLY: tuple[ParamSpec, ...] = ()
-NODE_SPECS: tuple[ParamSpec, ...] = tuple(s for s in _NODE_ONLY if s.name not in SPEC_BY_NAME)
-NODE_SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in NODE_SPECS}
-
-
-def node_value(spec: ParamSpec, value: Any) -> Any:
-    """Check a node-only setting's value (type and range) and return it normalized; raises
-    SettingsError naming the value and what is expected."""
-    if spec.kind == "float":
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise SettingsError(f"{spec.name}: {value!r} is not a number; expected "
-                                f"{spec.range_text()}")
-        x = float(value)
-        if not (spec.minimum <= x <= spec.maximum):
-            raise SettingsError(f"{spec.name}: {x!r} {spec.unit} is out of range; expected "
-                                f"{spec.range_text()}")
-        return x
-    raise AssertionError(f"node-only setting kind {spec.kind} not handled")  # a defect here
-
-
 def descriptor(spec: ParamSpec) -> ParameterDescriptor:
     """The ParameterDescriptor of one setting (description with unit and allowed values)."""
     unit = f" Unit: {spec.unit}." if spec.unit else ""
@@ -113,7 +90,7 @@ def normalized(param: Parameter) -> Parameter:
     for float lists; an empty/unset value -> STRING_ARRAY for string lists. Anything else is
     returned unchanged (and then refused by the validation, with the reason).
     """
-    spec = SPEC_BY_NAME.get(param.name) or NODE_SPEC_BY_NAME.get(param.name)
+    spec = SPEC_BY_NAME.get(param.name)
     if spec is None:
         return param
     t, v = param.type_, param.value
@@ -159,7 +136,6 @@ def unknown_overrides(names: Iterable[str], declared: Iterable[str]) -> list[str
     """Parameter-file names that are neither settings nor parameters rclpy declares itself."""
     known = set(declared)
     return sorted(n for n in names if n not in SPEC_BY_NAME and n not in known
-                  and n not in NODE_SPEC_BY_NAME
                   and not n.startswith(FOREIGN_PREFIXES))
 
 
@@ -222,5 +198,4 @@ def unmatched_file_warning(path: str, node_fqn: str) -> str:
 
 __all__ = ["parameter_files", "unreadable_file", "section_matches", "unmatched_file_warning",
            "descriptor", "declared_default", "normalized", "setting_value", "changes_from",
-           "check_fits_model", "unknown_overrides", "type_refusal", "PER_JOINT_SETTINGS",
-           "NODE_SPECS", "NODE_SPEC_BY_NAME", "node_value"]
+           "check_fits_model", "unknown_overrides", "type_refusal", "PER_JOINT_SETTINGS"]

@@ -201,7 +201,8 @@ class _StatusReporting:
         model = self._object_model()
         if builder is None:
             builder = self._marker_builder = MarkerBuilder(
-                self._marker_scale, self.settings["health.stale_after"], model[0])
+                self.settings["output.marker_force_scale"], self.settings["health.stale_after"],
+                model[0])
         scene = MarkerScene(
             frame_id=self._frame_id(), stamp=TimeMsg(sec=sec, nanosec=nanosec),
             contact_point=self._contact_point.position(sample), force=est.force,
